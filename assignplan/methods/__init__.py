@@ -1,0 +1,1 @@
+"""Planning methods: greedy (list scheduling), ga (genetic algorithm), exact (CP-SAT)."""

@@ -1,0 +1,106 @@
+"""The one result type every method returns, its objective, and its plan document."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import timedelta
+
+import numpy as np
+
+from assignplan.instance import NO_DUE, Instance
+from assignplan.model import Assignment, HistoryRow, Objective, PlanDoc
+
+
+def objective(inst: Instance, end: np.ndarray) -> tuple[int, float, float]:
+    """Lexicographic objective of a schedule, in minutes.
+
+    1. makespan            C_max = max_j end_j
+    2. weighted tardiness  T_w = sum_j w_j * max(0, end_j - due_j)   (jobs without due: 0)
+    3. weighted completion C_w = sum_j w_j * end_j
+    """
+    end = np.asarray(end, dtype=np.int64)
+    has_due = inst.due != NO_DUE
+    tardy = np.where(has_due, np.maximum(0, end - inst.due), 0)
+    return (
+        int(end.max()) if len(end) else 0,
+        float(np.dot(inst.weight, tardy)),
+        float(np.dot(inst.weight, end)),
+    )
+
+
+def gap_pct(makespan: int, lower_bound: int) -> float:
+    """Relative gap of a makespan to a lower bound, in percent: 100 * (C - LB) / LB."""
+    if lower_bound <= 0:
+        return 0.0
+    return 100.0 * (makespan - lower_bound) / lower_bound
+
+
+@dataclass(frozen=True, eq=False)
+class PlanResult:
+    """A plan: node and start minute per job, plus how it was found.
+
+    ``assign``: int64[J] node index; ``start``/``end``: int64[J] minutes from window start.
+    ``lower_bound``: minutes (the provable bound of `bounds.lower_bound`, or a method's own
+    better bound such as a proven optimum). ``status``: optimal | feasible | unknown.
+    """
+
+    method: str
+    assign: np.ndarray
+    start: np.ndarray
+    end: np.ndarray
+    lower_bound: int
+    status: str = "feasible"
+    seed: int | None = None
+    seconds: float = 0.0
+    history: list[HistoryRow] = field(default_factory=list)
+    solver_bound: int | None = None
+
+    @property
+    def makespan(self) -> int:
+        return int(self.end.max()) if len(self.end) else 0
+
+    @property
+    def gap_pct(self) -> float:
+        return gap_pct(self.makespan, self.lower_bound)
+
+
+def make_result(inst: Instance, method: str, assign: np.ndarray, start: np.ndarray,
+                lower_bound: int, **kwargs) -> PlanResult:
+    """Build a PlanResult, deriving end times from the durations on the chosen nodes."""
+    assign = np.asarray(assign, dtype=np.int64)
+    start = np.asarray(start, dtype=np.int64)
+    end = start + inst.duration[np.arange(inst.n_jobs), assign].astype(np.int64)
+    return PlanResult(method, assign, start, end, int(lower_bound), **kwargs)
+
+
+def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
+    """The JSON plan document: hours as floats (exact multiples of 1/60), names not indices."""
+    mk, tard, compl = objective(inst, result.end)
+    return PlanDoc(
+        method=result.method,
+        status=result.status,
+        seed=result.seed,
+        window_start=inst.window_start,
+        makespan_h=mk / 60,
+        lower_bound_h=result.lower_bound / 60,
+        gap_pct=round(result.gap_pct, 4),
+        objective=Objective(
+            makespan_h=mk / 60, weighted_tardiness_h=tard / 60, weighted_completion_h=compl / 60
+        ),
+        seconds=round(result.seconds, 3),
+        assignments=[
+            Assignment(
+                job=inst.job_names[j],
+                node=inst.node_names[int(result.assign[j])],
+                start_h=int(result.start[j]) / 60,
+                end_h=int(result.end[j]) / 60,
+            )
+            for j in range(inst.n_jobs)
+        ],
+        history=list(result.history),
+    )
+
+
+def calendar_time(inst: Instance, minute: int) -> str:
+    """Minute offset as a calendar time from the window start (ISO, minute precision)."""
+    return (inst.window_start + timedelta(minutes=int(minute))).strftime("%a %Y-%m-%d %H:%M")

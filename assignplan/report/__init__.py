@@ -1,0 +1,1 @@
+"""Everything that turns a plan into something to read: tables, exports, charts."""
