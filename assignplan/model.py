@@ -281,9 +281,8 @@ def expand_batch(batch: Batch, source: str = "<batch>") -> ExpandedBatch:
     problems: list[str] = []
     nodes = _expand_nodes(batch, problems)
     jobs = _expand_jobs(batch, problems)
-    if not problems:
-        _check_capacity(batch, nodes, jobs, problems)
-        _check_cycles(batch, jobs, problems)
+    _check_capacity(batch, nodes, jobs, problems)
+    _check_cycles(batch, jobs, problems)
     if problems:
         raise InputError([f"{source}: {p}" for p in problems])
     return ExpandedBatch(batch.window.start, batch.window.hours, tuple(nodes), tuple(jobs))
@@ -429,4 +428,5 @@ def _check_cycles(batch: Batch, jobs: list[Job], problems: list[str]) -> None:
         reported.add(key)
         problems.append(
             f"jobs[{index[names[0]]}].follows: dependency cycle {' -> '.join(names)}"
+            " (each must end before the next starts)"
         )

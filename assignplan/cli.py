@@ -1,0 +1,139 @@
+"""The `assignplan` command line: thin commands over the library; errors become exit codes."""
+
+from __future__ import annotations
+
+import functools
+import json
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+
+from assignplan.errors import AssignplanError
+
+app = typer.Typer(
+    name="assignplan",
+    help="Plan a week of single-node jobs on a heterogeneous cluster.",
+    no_args_is_help=True,
+    pretty_exceptions_show_locals=False,
+    add_completion=False,
+)
+
+
+def _fail(problems: list[str], code: int) -> None:
+    for line in problems:
+        typer.echo(line, err=True)
+    raise typer.Exit(code)
+
+
+def reports_errors(command):
+    """Map library errors to one line per problem on stderr and the error's exit code."""
+
+    @functools.wraps(command)
+    def wrapper(*args, **kwargs):
+        try:
+            return command(*args, **kwargs)
+        except AssignplanError as err:
+            _fail(err.problems, err.exit_code)
+        except KeyboardInterrupt:
+            _fail(["interrupted; nothing was written"], 130)
+
+    return wrapper
+
+
+BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jobs.",
+                                          show_default=False)]
+
+
+@app.command()
+@reports_errors
+def solve(
+    batch: BatchArg,
+    method: Annotated[str, typer.Option(help="greedy | exact")] = "greedy",
+    seed: Annotated[int, typer.Option(help="Seed of the random generator.")] = 0,
+    time_limit: Annotated[float, typer.Option(help="Seconds a search method may run.",
+                                              min=0.1)] = 60.0,
+    out: Annotated[Path | None, typer.Option(help="Write the plan to this JSON file.")] = None,
+    csv: Annotated[Path | None, typer.Option(
+        help="Write jobs.csv, nodes.csv and summary.csv into this folder.")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object.")] = False,
+    show_all: Annotated[bool, typer.Option("--all", help="List every job, not the first 30.")]
+    = False,
+    force: Annotated[bool, typer.Option(help="Let exact try batches above its size limit.")]
+    = False,
+) -> None:
+    """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
+    from assignplan.instance import build_instance
+    from assignplan.model import load_batch
+    from assignplan.report import exports
+
+    exports.check_output_file(out, "--out")
+    exports.check_output_dir(csv, "--csv")
+    expanded = load_batch(batch)
+    # The planning stack (numba, solvers) loads only once the input is known to be good.
+    from assignplan.plan import to_plan_doc
+    from assignplan.planner import solve as run
+    from assignplan.report import stats, tables
+
+    inst = build_instance(expanded)
+    result = run(inst, method, seed=seed, time_limit=time_limit, force=force)
+    summary = stats.summary(inst, result)
+    nodes, jobs = stats.node_frame(inst, result), stats.job_frame(inst, result)
+    if out is not None:
+        exports.write_json(out, to_plan_doc(inst, result).model_dump(mode="json"))
+    if csv is not None:
+        exports.write_csv_tables(csv, summary, nodes, jobs)
+    if as_json:
+        typer.echo(json.dumps(summary, indent=2))
+    else:
+        tables.print_plan(Console(), summary, nodes, jobs, show_all=show_all)
+
+
+@app.command()
+@reports_errors
+def check(
+    batch: BatchArg,
+    plan: Annotated[Path, typer.Argument(help="Plan JSON to verify.", show_default=False)],
+    as_json: Annotated[bool, typer.Option("--json", help="Print the violations as JSON.")]
+    = False,
+) -> None:
+    """Verify any plan against its batch; list every violation (exit 1 if there is any)."""
+    from assignplan.check import check_plan, summary_line
+    from assignplan.model import load_batch, load_plan
+
+    expanded = load_batch(batch)
+    doc = load_plan(plan)
+    violations = check_plan(expanded, doc)
+    if as_json:
+        typer.echo(json.dumps({"ok": not violations, "violations": [
+            {"kind": v.kind, "job": v.job, "node": v.node, "minute": v.minute,
+             "message": v.message} for v in violations]}, indent=2))
+    else:
+        for v in violations:
+            typer.echo(v.message)
+        typer.echo(summary_line(violations, doc))
+    if violations:
+        raise typer.Exit(1)
+
+
+@app.command()
+@reports_errors
+def schema(
+    out: Annotated[Path, typer.Option(help="Folder for batch.schema.json and plan.schema.json.")]
+    = Path("schemas"),
+) -> None:
+    """Write the JSON Schemas of the batch and plan documents (generated from the models)."""
+    from assignplan.report.exports import atomic_write_text, check_output_dir
+    from assignplan.schemas import schema_texts
+
+    check_output_dir(out, "--out")
+    out.mkdir(parents=True, exist_ok=True)
+    for name, text in schema_texts().items():
+        atomic_write_text(out / name, text)
+        typer.echo(f"wrote {out / name}")
+
+
+def main() -> None:  # pragma: no cover - the console script goes through `app`
+    app(sys.argv[1:])

@@ -1,0 +1,344 @@
+"""Compiled kernels of the schedule builder (serial SGS) and of greedy list scheduling.
+
+Plain arrays in, plain arrays out; `schedule.py` is the Python face. Each node keeps a step
+profile of free capacity: segment k of node i covers ``[seg_t[k], seg_t[k+1])`` (the last one
+runs to infinity) with free ``seg_f[k] = (cores, memory MiB, GPUs)``. Maintenance is a segment
+whose free capacity is ``BLOCKED`` (below any demand, which is >= 0), so it needs no special case.
+Each node owns a contiguous slice ``[seg_lo[i], seg_lo[i] + seg_n[i])`` of one flat pool of
+``seg_cap[i]`` slots. A placement inserts at most two breakpoints, so a node holding n_i jobs
+and m_i windows never needs more than ``2*m_i + 1 + 2*n_i`` slots; the builder knows n_i from
+the assignment and sizes the pool exactly: O(J + N + maintenance) memory per individual.
+Finding a start and placing a job cost O(segments on that node).
+
+Tie rules are part of the contract (the pure-Python twin in tests/twin_builder.py follows
+them): jobs are placed in the given order; greedy picks the earliest finish, then the earliest
+start, then the lowest node index.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+BLOCKED = -1  # free capacity of a maintenance segment: every demand (>= 0) exceeds it
+NEVER = np.int64(-1)  # returned as a start when a job cannot fit the node at all
+_DUE_NONE = np.int64(np.iinfo(np.int64).max // 4)  # == instance.NO_DUE (checked in tests)
+
+
+@njit(cache=True)
+def _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end):
+    """Fill node i's slice with its empty profile: full capacity, maintenance blocked.
+
+    Windows are sorted; after widening to whole minutes two windows may touch or overlap,
+    so each one is clipped to start no earlier than the previous end.
+    """
+    lo = seg_lo[i]
+    n = 0
+    cur = np.int64(0)
+    for w in range(maint_ptr[i], maint_ptr[i + 1]):
+        a = max(maint_start[w], cur)
+        b = maint_end[w]
+        if b <= a:
+            continue
+        if a > cur or n == 0:
+            if a > cur:
+                seg_t[lo + n] = cur
+                for r in range(3):
+                    seg_f[lo + n, r] = capacity[i, r]
+                n += 1
+        seg_t[lo + n] = a
+        for r in range(3):
+            seg_f[lo + n, r] = BLOCKED
+        n += 1
+        cur = b
+    seg_t[lo + n] = cur
+    for r in range(3):
+        seg_f[lo + n, r] = capacity[i, r]
+    n += 1
+    if seg_t[lo] > 0:  # profile must begin at minute 0; a window starting later left a gap
+        for k in range(n, 0, -1):
+            seg_t[lo + k] = seg_t[lo + k - 1]
+            for r in range(3):
+                seg_f[lo + k, r] = seg_f[lo + k - 1, r]
+        seg_t[lo] = 0
+        for r in range(3):
+            seg_f[lo, r] = capacity[i, r]
+        n += 1
+    seg_n[i] = n
+
+
+@njit(cache=True)
+def _segment_at(seg_t, lo, n, t):
+    """Index (relative to lo) of the segment containing minute t >= 0 (binary search)."""
+    a = 0
+    b = n - 1
+    while a < b:
+        mid = (a + b + 1) // 2
+        if seg_t[lo + mid] <= t:
+            a = mid
+        else:
+            b = mid - 1
+    return a
+
+
+@njit(cache=True)
+def _earliest_start(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2):
+    """Earliest s >= t0 with free >= demand on every segment meeting [s, s + dur).
+
+    Returns (s, k) with k the segment containing s, or (NEVER, -1) if the demand exceeds even
+    the empty node. When segment m is too full, no start before its end can work, so the
+    search jumps to the next breakpoint: each segment is looked at once.
+    """
+    k = _segment_at(seg_t, lo, n, t0)
+    s = t0
+    while True:
+        m = k
+        ok = True
+        while m < n:
+            if m > k and seg_t[lo + m] >= s + dur:
+                break
+            if seg_f[lo + m, 0] < d0 or seg_f[lo + m, 1] < d1 or seg_f[lo + m, 2] < d2:
+                ok = False
+                break
+            m += 1
+        if ok:
+            return s, k
+        if m + 1 >= n:
+            return NEVER, -1
+        k = m + 1
+        s = seg_t[lo + k]
+
+
+@njit(cache=True)
+def _insert(seg_t, seg_f, lo, n, pos, t, src):
+    """Insert a breakpoint at relative index pos with time t and the free capacity of src."""
+    f0 = seg_f[lo + src, 0]
+    f1 = seg_f[lo + src, 1]
+    f2 = seg_f[lo + src, 2]
+    for k in range(n, pos, -1):
+        seg_t[lo + k] = seg_t[lo + k - 1]
+        seg_f[lo + k, 0] = seg_f[lo + k - 1, 0]
+        seg_f[lo + k, 1] = seg_f[lo + k - 1, 1]
+        seg_f[lo + k, 2] = seg_f[lo + k - 1, 2]
+    seg_t[lo + pos] = t
+    seg_f[lo + pos, 0] = f0
+    seg_f[lo + pos, 1] = f1
+    seg_f[lo + pos, 2] = f2
+
+
+@njit(cache=True)
+def _place(seg_t, seg_f, lo, n, k, s, dur, d0, d1, d2):
+    """Take demand off [s, s + dur) on a profile where it fits; return the new segment count.
+
+    k is the segment containing s (from `_earliest_start`). At most two breakpoints are added.
+    """
+    e = s + dur
+    if seg_t[lo + k] < s:
+        _insert(seg_t, seg_f, lo, n, k + 1, s, k)
+        n += 1
+        k += 1
+    m = k
+    while True:
+        nxt = seg_t[lo + m + 1] if m + 1 < n else e + 1
+        if nxt > e:
+            _insert(seg_t, seg_f, lo, n, m + 1, e, m)
+            n += 1
+        seg_f[lo + m, 0] -= d0
+        seg_f[lo + m, 1] -= d1
+        seg_f[lo + m, 2] -= d2
+        if nxt >= e:
+            return n
+        m += 1
+
+
+@njit(cache=True)
+def _ready_time(j, ready, end, pred_ptr, pred_idx):
+    """max(ready_j, ends of j's predecessors); a predecessor not yet placed has end -1."""
+    t0 = ready[j]
+    for q in range(pred_ptr[j], pred_ptr[j + 1]):
+        p = pred_idx[q]
+        if end[p] < 0:
+            return NEVER
+        if end[p] > t0:
+            t0 = end[p]
+    return t0
+
+
+@njit(cache=True)
+def _sgs(assign, order, demand, duration, ready, pred_ptr, pred_idx, capacity,
+         maint_ptr, maint_start, maint_end, start):
+    """Serial SGS for one assignment; writes start int64[J], returns False if a job failed.
+
+    A job fails when it is too big for its node or a predecessor comes later in `order`;
+    its start (and every later one) is left at -1.
+    """
+    n_jobs = assign.shape[0]
+    n_nodes = capacity.shape[0]
+    seg_cap = np.empty(n_nodes, np.int64)
+    for i in range(n_nodes):
+        seg_cap[i] = 2 * (maint_ptr[i + 1] - maint_ptr[i]) + 2
+    for j in range(n_jobs):
+        seg_cap[assign[j]] += 2
+    seg_lo = np.empty(n_nodes, np.int64)
+    total = np.int64(0)
+    for i in range(n_nodes):
+        seg_lo[i] = total
+        total += seg_cap[i]
+    seg_t = np.empty(total, np.int64)
+    seg_f = np.empty((total, 3), np.int64)
+    seg_n = np.empty(n_nodes, np.int64)
+    for i in range(n_nodes):
+        _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+    end = np.full(n_jobs, -1, np.int64)
+    start[:] = -1
+    for q in range(n_jobs):
+        j = order[q]
+        i = assign[j]
+        t0 = _ready_time(j, ready, end, pred_ptr, pred_idx)
+        if t0 < 0:
+            return False
+        dur = np.int64(duration[j, i])
+        d0 = demand[j, 0]
+        d1 = demand[j, 1]
+        d2 = demand[j, 2]
+        lo = seg_lo[i]
+        s, k = _earliest_start(seg_t, seg_f, lo, seg_n[i], t0, dur, d0, d1, d2)
+        if s < 0:
+            return False
+        seg_n[i] = _place(seg_t, seg_f, lo, seg_n[i], k, s, dur, d0, d1, d2)
+        start[j] = s
+        end[j] = s + dur
+    return True
+
+
+@njit(cache=True)
+def _fitness(start, assign, duration, due, weight, out):
+    """out[:] = (C_max, sum w_j max(0, C_j - d_j) over jobs with a due time, sum w_j C_j)."""
+    mk = np.int64(0)
+    tard = 0.0
+    compl = 0.0
+    for j in range(start.shape[0]):
+        c = start[j] + np.int64(duration[j, assign[j]])
+        if c > mk:
+            mk = c
+        if due[j] != _DUE_NONE and c > due[j]:
+            tard += weight[j] * (c - due[j])
+        compl += weight[j] * c
+    out[0] = mk
+    out[1] = tard
+    out[2] = compl
+
+
+@njit(cache=True, parallel=True)
+def sgs_population(assign, order, demand, duration, ready, due, weight, pred_ptr, pred_idx,
+                   capacity, maint_ptr, maint_start, maint_end, start_out, fitness_out):
+    """Build and score P schedules in parallel; each individual has its own workspace.
+
+    assign: int64[P, J] node per job; order: int64[J]; start_out: int64[P, J] (or [P, 0] to
+    skip writing starts); fitness_out: float64[P, 3] = (makespan, weighted tardiness,
+    weighted completion) in minutes, +inf in every column for an individual that failed.
+    """
+    n_pop = assign.shape[0]
+    n_jobs = assign.shape[1]
+    keep = start_out.shape[1] == n_jobs
+    for p in prange(n_pop):
+        start = np.empty(n_jobs, np.int64)
+        ok = _sgs(assign[p], order, demand, duration, ready, pred_ptr, pred_idx, capacity,
+                  maint_ptr, maint_start, maint_end, start)
+        if ok:
+            _fitness(start, assign[p], duration, due, weight, fitness_out[p])
+        else:
+            fitness_out[p, :] = np.inf
+        if keep:
+            start_out[p, :] = start
+
+
+@njit(cache=True)
+def _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i, need):
+    """Give node i room for `need` slots: move its slice to the pool's end, doubling the pool
+    when full. Returns (seg_t, seg_f, used). Moved-out slices are abandoned, a geometric
+    series: total space stays within a constant factor of the segments in use."""
+    new_cap = max(2 * seg_cap[i], need)
+    if used + new_cap > seg_t.shape[0]:
+        size = max(2 * seg_t.shape[0], used + new_cap)
+        t2 = np.empty(size, np.int64)
+        f2 = np.empty((size, 3), np.int64)
+        t2[:used] = seg_t[:used]
+        f2[:used] = seg_f[:used]
+        seg_t = t2
+        seg_f = f2
+    lo = seg_lo[i]
+    for k in range(seg_n[i]):
+        seg_t[used + k] = seg_t[lo + k]
+        for r in range(3):
+            seg_f[used + k, r] = seg_f[lo + k, r]
+    seg_lo[i] = used
+    seg_cap[i] = new_cap
+    return seg_t, seg_f, used + new_cap
+
+
+@njit(cache=True)
+def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, capacity,
+                maint_ptr, maint_start, maint_end, assign, start):
+    """List scheduling: each job in `order` to the eligible node where it finishes earliest.
+
+    Ties: earliest start, then lowest node index. Writes assign and start int64[J].
+    Per-node room is unknown up front, so slices start small and grow (see `_grow`).
+    Returns False if some job has no node or a predecessor comes later in `order`.
+    """
+    n_jobs = order.shape[0]
+    n_nodes = capacity.shape[0]
+    seg_cap = np.empty(n_nodes, np.int64)
+    seg_lo = np.empty(n_nodes, np.int64)
+    used = np.int64(0)
+    for i in range(n_nodes):
+        seg_cap[i] = 2 * (maint_ptr[i + 1] - maint_ptr[i]) + 2 + 8
+        seg_lo[i] = used
+        used += seg_cap[i]
+    seg_t = np.empty(2 * used + 2 * n_jobs, np.int64)
+    seg_f = np.empty((seg_t.shape[0], 3), np.int64)
+    seg_n = np.empty(n_nodes, np.int64)
+    for i in range(n_nodes):
+        _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+    end = np.full(n_jobs, -1, np.int64)
+    assign[:] = -1
+    start[:] = -1
+    for q in range(n_jobs):
+        j = order[q]
+        t0 = _ready_time(j, ready, end, pred_ptr, pred_idx)
+        if t0 < 0:
+            return False
+        d0 = demand[j, 0]
+        d1 = demand[j, 1]
+        d2 = demand[j, 2]
+        best_i = -1
+        best_s = np.int64(0)
+        best_k = -1
+        best_e = np.int64(0)
+        for i in range(n_nodes):
+            if not eligible[j, i]:
+                continue
+            dur = np.int64(duration[j, i])
+            if best_i >= 0 and t0 + dur > best_e:  # cannot finish earlier here
+                continue
+            s, k = _earliest_start(seg_t, seg_f, seg_lo[i], seg_n[i], t0, dur, d0, d1, d2)
+            if s < 0:
+                continue
+            e = s + dur
+            if best_i < 0 or e < best_e or (e == best_e and s < best_s):
+                best_i = i
+                best_s = s
+                best_k = k
+                best_e = e
+        if best_i < 0:
+            return False
+        i = best_i
+        if seg_n[i] + 2 > seg_cap[i]:
+            seg_t, seg_f, used = _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i,
+                                       seg_n[i] + 2)
+        dur = np.int64(duration[j, i])
+        seg_n[i] = _place(seg_t, seg_f, seg_lo[i], seg_n[i], best_k, best_s, dur, d0, d1, d2)
+        assign[j] = i
+        start[j] = best_s
+        end[j] = best_e
+    return True

@@ -1,0 +1,280 @@
+"""Exact method: a CP-SAT model of the batch, lexicographic makespan then weighted tardiness."""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+from ortools.sat.python import cp_model
+
+from assignplan.errors import InputError, SolveError
+from assignplan.instance import NO_DUE, Instance
+from assignplan.plan import PlanResult, make_result
+
+# CP-SAT objectives are integers: float job weights are scaled by this and rounded, so weights
+# are honoured to 1/1000 (the plan's reported objective is recomputed from the float weights).
+WEIGHT_SCALE = 1000
+
+# Share of the time limit stage 1 (makespan, the primary objective) may use; what it leaves
+# goes to stage 2, and to the stage-3 tie-break only when stages 1 and 2 proved optimal.
+STAGE1_SHARE = 0.7
+STAGE2_SHARE_BEFORE_TIEBREAK = 2 / 3
+# The stage-3 tie-break (weighted completion) is capped: its bound is weak, so proving it can
+# take the whole limit for little gain.
+TIEBREAK_SHARE = 0.25
+
+_STATUS = {cp_model.OPTIMAL: "optimal", cp_model.FEASIBLE: "feasible"}
+
+
+@dataclass
+class _Model:
+    """The CP-SAT model and the handles the stages read back."""
+
+    model: cp_model.CpModel
+    start: list[cp_model.IntVar]
+    end: list[cp_model.IntVar]
+    presence: list[dict[int, cp_model.IntVar]]  # job -> {node: literal}: the matrix X
+    makespan: cp_model.IntVar
+    tardiness: cp_model.LinearExpr | None  # scaled weighted tardiness, None if no job can be late
+    completion: cp_model.LinearExpr
+
+
+def horizon(inst: Instance) -> int:
+    """A makespan every batch can meet: H = max(max_j ready_j, max maintenance end) + sum_j max_i d_ji.
+
+    Why it is safe: from that minute on no node is ever in maintenance and every job is ready,
+    so running the jobs one after another in a `follows` order, each on any eligible node,
+    is a feasible plan ending by H. (A hint is not trusted for the horizon: a wrong hint would
+    make the model infeasible, whereas CP-SAT merely ignores a wrong hint.)
+    """
+    longest = np.where(inst.eligible, inst.duration, 0).max(axis=1).astype(np.int64)
+    free_from = max(int(inst.ready.max(initial=0)), int(inst.maint_end.max(initial=0)))
+    return free_from + int(longest.sum())
+
+
+def _node_resources(inst: Instance, i: int, jobs: np.ndarray) -> list[int]:
+    """Resources that need a cumulative on node i.
+
+    A resource can be skipped when the eligible jobs together never exceed the capacity;
+    cores (every job needs >= 1) are kept whenever the node has maintenance, since the
+    maintenance windows ride in the cumulatives.
+    """
+    total = inst.demand[jobs].sum(axis=0)
+    keep = [r for r in range(inst.capacity.shape[1]) if total[r] > inst.capacity[i, r]]
+    has_maint = inst.maint_ptr[i + 1] > inst.maint_ptr[i]
+    if has_maint and not keep:
+        keep = [0]
+    return keep
+
+
+def build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> _Model:
+    """Data -> variables -> constraints of the model in DESIGN.md (no objective yet).
+
+    x_ji in {0,1} for eligible (j, i), sum_i x_ji = 1; an optional interval
+    [s_j, s_j + d_ji) present iff x_ji; per node and resource r:
+    cumulative(intervals on i, demand_jr, capacity_ir) with each maintenance window as a fixed
+    interval demanding the full capacity; e_j = s_j + sum_i d_ji x_ji; s_j >= ready_j;
+    e_p <= s_j for p in follows(j); C_max >= e_j.
+    """
+    # data
+    n_jobs, n_nodes = inst.n_jobs, inst.n_nodes
+    big = horizon(inst)
+    m = cp_model.CpModel()
+
+    # variables
+    start = [m.new_int_var(int(inst.ready[j]), big, f"s{j}") for j in range(n_jobs)]
+    end = [m.new_int_var(int(inst.ready[j]) + 1, big, f"e{j}") for j in range(n_jobs)]
+    presence: list[dict[int, cp_model.IntVar]] = [{} for _ in range(n_jobs)]
+    on_node: list[list[tuple[int, cp_model.IntervalVar]]] = [[] for _ in range(n_nodes)]
+    for j in range(n_jobs):
+        for i in np.flatnonzero(inst.eligible[j]):
+            i = int(i)
+            x = m.new_bool_var(f"x{j}_{i}")
+            presence[j][i] = x
+            iv = m.new_optional_fixed_size_interval_var(
+                start[j], int(inst.duration[j, i]), x, f"iv{j}_{i}"
+            )
+            on_node[i].append((j, iv))
+    makespan = m.new_int_var(0, big, "makespan")
+
+    # constraints
+    for j in range(n_jobs):
+        m.add_exactly_one(presence[j].values())
+        m.add(end[j] == start[j] + sum(int(inst.duration[j, i]) * x
+                                       for i, x in presence[j].items()))
+        for p in inst.predecessors(j):
+            m.add(end[int(p)] <= start[j])
+        m.add(makespan >= end[j])
+    for i in range(n_nodes):
+        _add_node_capacity(m, inst, i, on_node[i])
+
+    _add_hint(m, inst, hint, start, end, presence, makespan)
+    return _Model(m, start, end, presence, makespan, *_secondary_objectives(m, inst, end, big))
+
+
+def _add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int,
+                       jobs_on: list[tuple[int, cp_model.IntervalVar]]) -> None:
+    """One cumulative per binding resource of node i, maintenance as full-capacity intervals."""
+    if not jobs_on:
+        return
+    jobs = np.array([j for j, _ in jobs_on], dtype=np.int64)
+    lo, hi = inst.maint_ptr[i], inst.maint_ptr[i + 1]
+    maint = [
+        m.new_fixed_size_interval_var(int(s), int(e - s), f"maint{i}_{k}")
+        for k, (s, e) in enumerate(zip(inst.maint_start[lo:hi], inst.maint_end[lo:hi],
+                                       strict=True))
+    ]
+    for r in _node_resources(inst, i, jobs):
+        cap = int(inst.capacity[i, r])
+        m.add_cumulative(
+            [iv for _, iv in jobs_on] + maint,
+            [int(inst.demand[j, r]) for j, _ in jobs_on] + [cap] * len(maint),
+            cap,
+        )
+
+
+def _secondary_objectives(m: cp_model.CpModel, inst: Instance, end: list, big: int
+                          ) -> tuple[cp_model.LinearExpr | None, cp_model.LinearExpr]:
+    """Scaled objectives 2 and 3.
+
+    T_w = sum_j w'_j * t_j with t_j >= e_j - due_j, t_j >= 0 (tight under minimisation);
+    C_w = sum_j w'_j * e_j; w'_j = round(WEIGHT_SCALE * w_j). Jobs due at or after the horizon,
+    or of weight 0, can never add tardiness and get no variable.
+    """
+    w = np.rint(inst.weight * WEIGHT_SCALE).astype(np.int64)
+    terms = []
+    for j in range(inst.n_jobs):
+        due = int(inst.due[j])
+        if due == NO_DUE or due >= big or w[j] == 0:
+            continue
+        t = m.new_int_var(0, big - due if big > due else 0, f"t{j}")
+        m.add(t >= end[j] - due)
+        terms.append(int(w[j]) * t)
+    tardiness = sum(terms) if terms else None
+    completion = sum(int(w[j]) * end[j] for j in range(inst.n_jobs))
+    return tardiness, completion
+
+
+def _add_hint(m: cp_model.CpModel, inst: Instance, hint, start, end, presence, makespan) -> None:
+    """Hint presences and starts from a known plan (CP-SAT repairs or ignores a bad hint)."""
+    if hint is None:
+        return
+    assign, hstart = (np.asarray(a, dtype=np.int64) for a in hint)
+    hend = hstart + inst.duration[np.arange(inst.n_jobs), assign]
+    for j in range(inst.n_jobs):
+        for i, x in presence[j].items():
+            m.add_hint(x, bool(assign[j] == i))
+        m.add_hint(start[j], int(hstart[j]))
+        m.add_hint(end[j], int(hend[j]))
+    m.add_hint(makespan, int(hend.max(initial=0)))
+
+
+def _hint_from_solution(mdl: _Model, solver: cp_model.CpSolver) -> None:
+    """Replace the hints with the last stage's solution (feasible for the next stage)."""
+    m = mdl.model
+    m.clear_hints()
+    for j, xs in enumerate(mdl.presence):
+        for x in xs.values():
+            m.add_hint(x, solver.boolean_value(x))
+        m.add_hint(mdl.start[j], solver.value(mdl.start[j]))
+        m.add_hint(mdl.end[j], solver.value(mdl.end[j]))
+    m.add_hint(mdl.makespan, solver.value(mdl.makespan))
+
+
+def _run(mdl: _Model, seconds: float, workers: int, seed: int
+         ) -> tuple[cp_model.CpSolver, cp_model.CpSolverStatus]:
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = max(seconds, 0.001)
+    solver.parameters.num_workers = workers  # 0: CP-SAT picks one worker per core
+    solver.parameters.random_seed = seed
+    status = solver.solve(mdl.model)
+    if status == cp_model.MODEL_INVALID:
+        raise SolveError(f"exact: internal error, invalid model: {mdl.model.validate()}")
+    return solver, status
+
+
+def _read_plan(mdl: _Model, solver: cp_model.CpSolver) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    assign = np.array([next(i for i, x in xs.items() if solver.boolean_value(x))
+                       for xs in mdl.presence], dtype=np.int64)
+    start = np.array([solver.value(s) for s in mdl.start], dtype=np.int64)
+    end = np.array([solver.value(e) for e in mdl.end], dtype=np.int64)
+    return assign, start, end
+
+
+def _next_stage(mdl: _Model, solver: cp_model.CpSolver, done, proven: bool, objective,
+                seconds: float, workers: int, seed: int):
+    """Keep the finished stage's objective (== if proven optimal, else <= the best found), start
+    from its solution, and minimise the next objective."""
+    value = int(solver.value(done))
+    mdl.model.add(done == value if proven else done <= value)
+    _hint_from_solution(mdl, solver)
+    mdl.model.minimize(objective)
+    return _run(mdl, seconds, workers, seed)
+
+
+def solve_exact(
+    inst: Instance,
+    *,
+    lower_bound: int,
+    time_limit: float = 60.0,
+    hint: tuple[np.ndarray, np.ndarray] | None = None,
+    workers: int = 0,
+    seed: int = 0,
+    max_jobs: int = 300,
+    force: bool = False,
+) -> PlanResult:
+    """Plan `inst` with CP-SAT, lexicographically.
+
+    Stage 1 minimises C_max; stage 2 minimises T_w = sum_j w_j max(0, e_j - due_j) with
+    C_max fixed (== if stage 1 was proven, else <= the best found); when both stages proved
+    optimal, a stage 3 (at most TIEBREAK_SHARE of the limit) minimises C_w = sum_j w_j e_j with T_w fixed,
+    which also starts jobs as early as the first two objectives allow.
+    Status "optimal" means C_max and T_w are both proven optimal. The result's lower bound is
+    max(lower_bound, ceil(stage-1 best_objective_bound)).
+    """
+    if inst.n_jobs > max_jobs and not force:
+        raise InputError(
+            f"exact: {inst.n_jobs} jobs is above the exact method's limit of {max_jobs};"
+            " use --method ga, or --force to try anyway"
+        )
+    t0 = time.perf_counter()
+    mdl = build_model(inst, hint)
+
+    mdl.model.minimize(mdl.makespan)
+    solver, status = _run(mdl, STAGE1_SHARE * time_limit, workers, seed)
+    if status not in _STATUS:
+        raise SolveError(
+            f"exact: no plan found within {time_limit:g} s (status {solver.status_name(status)});"
+            " try a longer --time-limit or --method ga"
+        )
+    solver_bound = math.ceil(solver.best_objective_bound - 1e-6)
+    proven = status == cp_model.OPTIMAL
+    plan = _read_plan(mdl, solver)
+
+    done = mdl.makespan
+    if mdl.tardiness is not None:
+        left = time_limit - (time.perf_counter() - t0)
+        share = STAGE2_SHARE_BEFORE_TIEBREAK if proven else 1.0
+        solver2, status = _next_stage(mdl, solver, done, proven, mdl.tardiness, share * left,
+                                      workers, seed)
+        proven = proven and status == cp_model.OPTIMAL
+        if status in _STATUS:
+            solver, done, plan = solver2, mdl.tardiness, _read_plan(mdl, solver2)
+    if proven:
+        left = min(time_limit - (time.perf_counter() - t0), TIEBREAK_SHARE * time_limit)
+        solver3, status = _next_stage(mdl, solver, done, True, mdl.completion, left,
+                                      workers, seed)
+        if status in _STATUS:
+            plan = _read_plan(mdl, solver3)
+
+    assign, start, end = plan
+    result = make_result(
+        inst, "exact", assign, start, max(int(lower_bound), solver_bound),
+        status="optimal" if proven else "feasible", seed=seed,
+        seconds=time.perf_counter() - t0, solver_bound=solver_bound,
+    )
+    if not np.array_equal(result.end, end):
+        raise SolveError("exact: internal error, solver end times disagree with the durations")
+    return result

@@ -1,0 +1,33 @@
+"""One entry point from a validated batch to a plan, whatever the method."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import replace
+
+from assignplan.bounds import lower_bound
+from assignplan.errors import InputError
+from assignplan.instance import Instance
+from assignplan.plan import PlanResult
+
+METHODS = ("greedy", "exact")
+
+
+def solve(inst: Instance, method: str, *, seed: int = 0, time_limit: float = 60.0,
+          force: bool = False) -> PlanResult:
+    """Plan `inst` with `method`; the result carries the provable lower bound and its seconds."""
+    t0 = time.perf_counter()
+    bound = lower_bound(inst).value
+    if method == "greedy":
+        from assignplan.methods.greedy import solve_greedy
+
+        result = solve_greedy(inst, lower_bound=bound)
+    elif method == "exact":
+        from assignplan.methods.exact import solve_exact
+        from assignplan.methods.greedy import greedy_assign
+
+        result = solve_exact(inst, lower_bound=bound, time_limit=time_limit,
+                             hint=greedy_assign(inst), seed=seed, force=force)
+    else:
+        raise InputError(f"--method {method}: unknown method; choose one of {', '.join(METHODS)}")
+    return replace(result, seconds=time.perf_counter() - t0)

@@ -1,0 +1,151 @@
+"""Figures of a plan: the summary, the per-node and the per-job frames every output renders.
+
+All figures are computed once here from the instance and the result; tables, CSV, JSON and
+charts only format them. Utilisation is measured against *available* capacity: a node in
+maintenance offers nothing, so its window is taken out of the denominator.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from assignplan.instance import NO_DUE, Instance
+from assignplan.plan import PlanResult, calendar_time, objective
+
+
+def available_minutes(inst: Instance, horizon: int) -> np.ndarray:
+    """int64[N]: minutes in [0, horizon) each node is outside maintenance."""
+    avail = np.full(inst.n_nodes, max(0, horizon), dtype=np.int64)
+    for i in range(inst.n_nodes):
+        lo, hi = inst.maint_ptr[i], inst.maint_ptr[i + 1]
+        s = np.clip(inst.maint_start[lo:hi], 0, horizon)
+        e = np.clip(inst.maint_end[lo:hi], 0, horizon)
+        avail[i] -= int(np.sum(e - s))
+    return avail
+
+
+def peak_usage(assign: np.ndarray, start: np.ndarray, end: np.ndarray, demand: np.ndarray,
+               n_nodes: int) -> np.ndarray:
+    """float64[N]: the largest simultaneous demand on each node (event sweep, ends first).
+
+    Intervals are half-open, so a job ending at t and one starting at t never overlap:
+    at equal times the end events are sorted before the start events.
+    """
+    n = len(assign)
+    if n == 0:
+        return np.zeros(n_nodes)
+    node = np.concatenate([assign, assign])
+    time = np.concatenate([start, end])
+    is_start = np.concatenate([np.ones(n, np.int8), np.zeros(n, np.int8)])
+    delta = np.concatenate([demand, -demand]).astype(np.float64)
+    order = np.lexsort((is_start, time, node))
+    node, delta = node[order], delta[order]
+    # Each node's deltas sum to zero, so a running total over all nodes restarts at zero on
+    # every node boundary; the per-node maximum is a segmented max over that total.
+    level = np.cumsum(delta)
+    peaks = np.zeros(n_nodes)
+    firsts = np.flatnonzero(np.r_[True, node[1:] != node[:-1]])
+    peaks[node[firsts]] = np.maximum.reduceat(level, firsts)
+    return peaks
+
+
+def _work_within(inst: Instance, result: PlanResult, horizon: int) -> np.ndarray:
+    """float64[J, 3]: resource-minutes each job uses inside [0, horizon)."""
+    inside = np.clip(np.minimum(result.end, horizon) - np.minimum(result.start, horizon), 0, None)
+    return inst.demand * inside[:, None].astype(np.float64)
+
+
+def _pct(num: float, den: float) -> float | None:
+    return None if den <= 0 else round(100.0 * num / den, 2)
+
+
+def summary(inst: Instance, result: PlanResult) -> dict:
+    """The plan's headline figures (the keys of `solve --json`)."""
+    mk, tard, compl = objective(inst, result.end)
+    cap = inst.capacity.astype(np.float64)
+    avail_mk = available_minutes(inst, mk).astype(np.float64)
+    avail_win = available_minutes(inst, inst.window_minutes).astype(np.float64)
+    used_mk = _work_within(inst, result, mk).sum(axis=0)
+    used_win = _work_within(inst, result, inst.window_minutes).sum(axis=0)
+    cap_mk = cap.T @ avail_mk
+    cap_win = cap.T @ avail_win
+    late = (inst.due != NO_DUE) & (result.end > inst.due)
+    return {
+        "method": result.method,
+        "status": result.status,
+        "jobs": inst.n_jobs,
+        "nodes": inst.n_nodes,
+        "makespan_h": mk / 60,
+        "makespan_at": calendar_time(inst, mk),
+        "lower_bound_h": result.lower_bound / 60,
+        "gap_pct": round(result.gap_pct, 2),
+        "core_utilisation_pct": _pct(used_mk[0], cap_mk[0]),
+        "memory_utilisation_pct": _pct(used_mk[1], cap_mk[1]),
+        "gpu_utilisation_pct": _pct(used_mk[2], cap_mk[2]),
+        "core_utilisation_window_pct": _pct(used_win[0], cap_win[0]),
+        "memory_utilisation_window_pct": _pct(used_win[1], cap_win[1]),
+        "gpu_utilisation_window_pct": _pct(used_win[2], cap_win[2]),
+        "window_h": inst.window_minutes / 60,
+        "jobs_past_window": int(np.sum(result.end > inst.window_minutes)),
+        "late_jobs": int(np.sum(late)),
+        "weighted_tardiness_h": tard / 60,
+        "weighted_completion_h": compl / 60,
+        "seed": result.seed,
+        "seconds": round(result.seconds, 3),
+    }
+
+
+def node_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
+    """One row per node: jobs, core-hours, utilisation over the makespan, peaks, busy until."""
+    mk = max(result.makespan, 1)
+    n = inst.n_nodes
+    dur = (result.end - result.start).astype(np.float64)
+    jobs = np.bincount(result.assign, minlength=n)
+    core_min = np.bincount(result.assign, weights=inst.demand[:, 0] * dur, minlength=n)
+    gpu_min = np.bincount(result.assign, weights=inst.demand[:, 2] * dur, minlength=n)
+    avail = available_minutes(inst, mk).astype(np.float64)
+    peak_cores = peak_usage(result.assign, result.start, result.end, inst.demand[:, 0], n)
+    peak_mem = peak_usage(result.assign, result.start, result.end, inst.demand[:, 1], n)
+    busy_until = np.zeros(n, dtype=np.int64)
+    np.maximum.at(busy_until, result.assign, result.end)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        core_util = np.where(avail > 0, 100 * core_min / (inst.capacity[:, 0] * avail), 0.0)
+        gpu_den = inst.capacity[:, 2] * avail
+        gpu_util = np.where(gpu_den > 0, 100 * gpu_min / np.where(gpu_den > 0, gpu_den, 1), np.nan)
+    return pd.DataFrame({
+        "node": inst.node_names,
+        "kind": inst.node_groups,
+        "jobs": jobs,
+        "core_hours": np.round(core_min / 60, 2),
+        "core_utilisation_pct": np.round(core_util, 2),
+        "peak_cores": peak_cores.astype(np.int64),
+        "cores": inst.capacity[:, 0],
+        "peak_memory_gib": np.round(peak_mem / 1024, 2),
+        "memory_gib": np.round(inst.capacity[:, 1] / 1024, 2),
+        "gpu_utilisation_pct": np.round(gpu_util, 2),
+        "busy_until_h": busy_until / 60,
+        "busy_until": [calendar_time(inst, m) if m else "" for m in busy_until],
+    })
+
+
+def job_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
+    """One row per job, in start order: node, start, end, hours, size, late / past window."""
+    has_due = inst.due != NO_DUE
+    frame = pd.DataFrame({
+        "job": inst.job_names,
+        "group": inst.job_groups,
+        "node": [inst.node_names[i] for i in result.assign],
+        "start_h": result.start / 60,
+        "end_h": result.end / 60,
+        "start": [calendar_time(inst, m) for m in result.start],
+        "end": [calendar_time(inst, m) for m in result.end],
+        "hours": (result.end - result.start) / 60,
+        "cores": inst.demand[:, 0],
+        "memory_gib": np.round(inst.demand[:, 1] / 1024, 2),
+        "gpus": inst.demand[:, 2],
+        "due_h": np.where(has_due, inst.due / 60, np.nan),
+        "late": has_due & (result.end > inst.due),
+        "past_window": result.end > inst.window_minutes,
+    })
+    return frame.sort_values(["start_h", "node", "job"], kind="stable").reset_index(drop=True)

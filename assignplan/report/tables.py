@@ -1,0 +1,86 @@
+"""Rich tables of a plan: the summary, one row per node and one row per job."""
+
+from __future__ import annotations
+
+import math
+
+import pandas as pd
+from rich.console import Console
+from rich.table import Table
+
+
+def _num(value, digits: int = 1, suffix: str = "") -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "–"
+    return f"{value:,.{digits}f}{suffix}"
+
+
+def summary_table(s: dict) -> Table:
+    """Headline figures: makespan against the bound and the window, utilisation, lateness."""
+    t = Table(title=f"Plan summary ({s['method']})", show_header=False, title_justify="left")
+    t.add_column("figure", style="bold")
+    t.add_column("value")
+    window_h = s["window_h"]
+    fits = "inside" if s["makespan_h"] <= window_h else "PAST"
+    rows = [
+        ("method", f"{s['method']} ({s['status']})"),
+        ("jobs / nodes", f"{s['jobs']:,} jobs on {s['nodes']:,} nodes"),
+        ("makespan", f"{_num(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
+                     f"({fits} the {window_h:g} h window)"),
+        ("lower bound", f"{_num(s['lower_bound_h'], 2)} h (gap {_num(s['gap_pct'], 2)} %)"),
+        ("utilisation over makespan",
+         f"cores {_num(s['core_utilisation_pct'], 1, ' %')}, memory "
+         f"{_num(s['memory_utilisation_pct'], 1, ' %')}, GPUs {_num(s['gpu_utilisation_pct'], 1, ' %')}"),
+        ("utilisation over window",
+         f"cores {_num(s['core_utilisation_window_pct'], 1, ' %')}, memory "
+         f"{_num(s['memory_utilisation_window_pct'], 1, ' %')}, GPUs "
+         f"{_num(s['gpu_utilisation_window_pct'], 1, ' %')}"),
+        ("jobs ending past window", f"{s['jobs_past_window']:,}"),
+        ("late jobs", f"{s['late_jobs']:,} (weighted tardiness {_num(s['weighted_tardiness_h'], 2)} h)"),
+        ("solve time", f"{s['seconds']:.2f} s" + (f", seed {s['seed']}" if s["seed"] is not None else "")),
+    ]
+    for k, v in rows:
+        t.add_row(k, v)
+    return t
+
+
+def node_table(nodes: pd.DataFrame) -> Table:
+    """Per-node load: how much each node does and how full it gets."""
+    t = Table(title="Nodes", title_justify="left")
+    for col, justify in [("node", "left"), ("jobs", "right"), ("core-h", "right"),
+                         ("core util", "right"), ("peak cores", "right"),
+                         ("peak memory", "right"), ("GPU util", "right"), ("busy until", "left")]:
+        t.add_column(col, justify=justify)
+    for r in nodes.itertuples(index=False):
+        t.add_row(
+            r.node, f"{r.jobs:,}", _num(r.core_hours, 1), _num(r.core_utilisation_pct, 1, " %"),
+            f"{r.peak_cores}/{r.cores}", f"{r.peak_memory_gib:g}/{r.memory_gib:g} GiB",
+            _num(r.gpu_utilisation_pct, 1, " %"), r.busy_until or "idle",
+        )
+    return t
+
+
+def job_table(jobs: pd.DataFrame, limit: int | None = 30) -> Table:
+    """Per-job placement in start order; truncated to `limit` rows unless limit is None."""
+    shown = jobs if limit is None else jobs.head(limit)
+    title = "Jobs" if len(shown) == len(jobs) else (
+        f"Jobs (first {len(shown)} of {len(jobs):,} by start; --all shows every job)")
+    t = Table(title=title, title_justify="left")
+    for col, justify in [("job", "left"), ("node", "left"), ("start", "left"), ("end", "left"),
+                         ("hours", "right"), ("cores", "right"), ("memory", "right"),
+                         ("late?", "left")]:
+        t.add_column(col, justify=justify)
+    for r in shown.itertuples(index=False):
+        flag = "late" if r.late else ""
+        if r.past_window:
+            flag = (flag + ", " if flag else "") + "past window"
+        t.add_row(r.job, r.node, r.start, r.end, _num(r.hours, 2), str(r.cores),
+                  f"{r.memory_gib:g} GiB", flag, style="red" if r.late else None)
+    return t
+
+
+def print_plan(console: Console, s: dict, nodes: pd.DataFrame, jobs: pd.DataFrame,
+               *, show_all: bool) -> None:
+    console.print(summary_table(s))
+    console.print(node_table(nodes))
+    console.print(job_table(jobs, None if show_all else 30))

@@ -1,0 +1,21 @@
+"""JSON Schemas of the batch and plan documents, generated from the pydantic models."""
+
+from __future__ import annotations
+
+import json
+
+from assignplan.model import Batch, PlanDoc
+
+SCHEMA_ID = "https://assignplan.invalid/schemas/"
+
+
+def schema_texts() -> dict[str, str]:
+    """File name -> schema text (stable formatting, so a test can diff the committed files)."""
+    out = {}
+    for name, model, title in (("batch.schema.json", Batch, "assignplan batch"),
+                               ("plan.schema.json", PlanDoc, "assignplan plan")):
+        schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
+                  "$id": SCHEMA_ID + name, "title": title, **model.model_json_schema()}
+        schema["title"] = title
+        out[name] = json.dumps(schema, indent=2, ensure_ascii=False) + "\n"
+    return out
