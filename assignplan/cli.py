@@ -135,5 +135,10 @@ def schema(
         typer.echo(f"wrote {out / name}")
 
 
+from assignplan.importers.cli import import_app  # noqa: E402  (sub-app, mounted last)
+
+app.add_typer(import_app, name="import")
+
+
 def main() -> None:  # pragma: no cover - the console script goes through `app`
     app(sys.argv[1:])

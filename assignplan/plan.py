@@ -104,3 +104,35 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
 def calendar_time(inst: Instance, minute: int) -> str:
     """Minute offset as a calendar time from the window start (ISO, minute precision)."""
     return (inst.window_start + timedelta(minutes=int(minute))).strftime("%a %Y-%m-%d %H:%M")
+
+
+def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:
+    """Read a plan document back into a PlanResult (for `report` and re-checking).
+
+    Raises InputError naming the first unknown job or node, or a job without a row; a plan
+    that is merely infeasible is still read (the checker is what judges it).
+    """
+    from assignplan.errors import InputError
+
+    job_index = {n: k for k, n in enumerate(inst.job_names)}
+    node_index = {n: k for k, n in enumerate(inst.node_names)}
+    assign = np.full(inst.n_jobs, -1, dtype=np.int64)
+    start = np.zeros(inst.n_jobs, dtype=np.int64)
+    end = np.zeros(inst.n_jobs, dtype=np.int64)
+    problems = []
+    for k, a in enumerate(doc.assignments):
+        if a.job not in job_index:
+            problems.append(f"assignments[{k}].job: no job named '{a.job}' in the batch")
+        elif a.node not in node_index:
+            problems.append(f"assignments[{k}].node: no node named '{a.node}' in the batch")
+        else:
+            j = job_index[a.job]
+            assign[j], start[j], end[j] = node_index[a.node], round(a.start_h * 60), round(a.end_h * 60)
+    missing = [inst.job_names[j] for j in np.flatnonzero(assign < 0)]
+    if missing:
+        problems.append(f"assignments: {len(missing)} jobs have no row, e.g. '{missing[0]}'")
+    if problems:
+        raise InputError(problems)
+    return PlanResult(doc.method, assign, start, end, round(doc.lower_bound_h * 60),
+                      status=doc.status, seed=doc.seed, seconds=doc.seconds,
+                      history=list(doc.history))

@@ -19,6 +19,7 @@ from assignplan.model import (
     Batch,
     NodeGroup,
     Window,
+    _expand_nodes,
     _format_validation_error,
     expand_batch,
     parse_batch_text,
@@ -40,11 +41,20 @@ class Inventory(BaseModel):
 
 
 def load_inventory(path: Path | str) -> Inventory:
-    """Read and validate a node file; every problem is one line naming the file and JSON path."""
+    """Read and validate a node file; every problem is one line naming the file and JSON path.
+
+    The node checks of a batch (duplicate names, maintenance windows) run here too, so their
+    problems name the node file rather than the jobs' source.
+    """
     try:
-        return Inventory.model_validate_json(read_text(path))
+        inventory = Inventory.model_validate_json(read_text(path))
     except ValidationError as err:
         raise InputError([f"{path}: {line}" for line in _format_validation_error(err)]) from None
+    problems: list[str] = []
+    _expand_nodes(inventory, problems)  # reads only `.nodes`, which an Inventory has
+    if problems:
+        raise InputError([f"{path}: {p}" for p in problems])
+    return inventory
 
 
 def finish_batch(doc: dict[str, Any], source: str) -> Batch:
