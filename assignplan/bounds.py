@@ -1,0 +1,261 @@
+"""Provable lower bounds on the makespan (whole minutes) of any feasible plan of an instance."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import networkx as nx
+import numpy as np
+
+from assignplan.instance import RESOURCES, Instance
+
+MAX_CLASSES = 300  # node-set classes examined beyond the whole cluster (largest load first)
+_CHUNK_CELLS = 2_000_000  # job x node cells per vectorised block: bounds memory at ~16 MB/array
+_BIG = np.iinfo(np.int64).max // 4
+# Work and supply are float sums of up to ~1e14; a relative slack far below one minute of any
+# class's supply keeps float noise from ever rejecting a makespan that is actually feasible.
+_REL_SLACK = 1e-9
+
+
+@dataclass(frozen=True)
+class LowerBound:
+    """A lower bound on the makespan in minutes and the component each part of it came from."""
+
+    value: int
+    parts: dict[str, int]
+
+
+def lower_bound(inst: Instance) -> LowerBound:
+    """The largest of several bounds, each valid for every feasible plan of `inst`.
+
+    - ``job``: max_j min_{i eligible} eft_i(ready_j, dur_ji), where eft_i(t, d) is the earliest
+      end of a d-minute run starting at or after t on node i outside its maintenance.
+    - ``critical_path``: the same along ``follows``: est_j = max(ready_j, max_p fin_p),
+      fin_j = min_i eft_i(est_j, dur_ji); bound max_j fin_j (see `head_times`).
+    - ``cores``/``memory``/``gpus``: total work over total supply (see `work_bound`).
+    - ``class_cores``/``class_memory``/``class_gpus``: the same for the jobs that only a
+      node set S can hold, on S alone.
+    - ``conflict``: jobs that can never share a node, counted by pigeonhole (see
+      `conflict_bound`).
+    - ``grid``: the largest of the above rounded up to a multiple of g (see `time_grid`).
+    """
+    est, fin = head_times(inst)
+    fin_ready = _earliest_finish(inst, np.arange(inst.n_jobs), inst.ready)
+    parts = {"job": int(fin_ready.max()), "critical_path": int(fin.max())}
+    parts.update(_resource_bounds(inst, est))
+    g = time_grid(inst)
+    parts["grid"] = -(-max(parts.values()) // g) * g
+    return LowerBound(value=max(parts.values()), parts=parts)
+
+
+def time_grid(inst: Instance) -> int:
+    """g = gcd of every eligible duration, ready time and maintenance end (minutes).
+
+    Some optimal plan has a makespan that is a multiple of g: shift jobs one minute earlier
+    while the plan stays feasible (no end grows). When no job can move, each start is 0, a
+    ready time, a maintenance end, or the end of another job (a predecessor, or a job on the
+    same node whose end frees the resource that blocks minute start - 1). By induction over
+    start times every start is then a multiple of g, and so is every end, the makespan
+    included. A lower bound B therefore rounds up to g * ceil(B / g).
+    """
+    values = [inst.duration[inst.eligible].astype(np.int64), inst.ready, inst.maint_end]
+    return max(1, int(np.gcd.reduce(np.concatenate(values))))
+
+
+# --------------------------------------------------------------------------- per job, per chain
+
+
+def _maintenance_table(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
+    """int64[N, K] window starts and ends per node, padded with windows that never overlap."""
+    counts = np.diff(inst.maint_ptr)
+    width = int(counts.max()) if len(counts) else 0
+    starts = np.full((inst.n_nodes, width), _BIG, dtype=np.int64)
+    ends = np.full((inst.n_nodes, width), _BIG, dtype=np.int64)
+    for i in np.flatnonzero(counts):
+        lo, hi = inst.maint_ptr[i], inst.maint_ptr[i + 1]
+        starts[i, : hi - lo] = inst.maint_start[lo:hi]
+        ends[i, : hi - lo] = inst.maint_end[lo:hi]
+    return starts, ends
+
+
+def _earliest_finish(inst: Instance, jobs: np.ndarray, t0: np.ndarray,
+                     table: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
+    """int64[len(jobs)]: min over eligible nodes of the earliest end of each job from `t0`.
+
+    Windows are sorted and disjoint, so one pass in start order suffices: after a push to the
+    end of window k, every earlier window ends before the new start.
+    """
+    starts, ends = _maintenance_table(inst) if table is None else table
+    out = np.empty(len(jobs), dtype=np.int64)
+    step = max(1, _CHUNK_CELLS // max(1, inst.n_nodes))
+    for lo in range(0, len(jobs), step):
+        rows = jobs[lo : lo + step]
+        dur = inst.duration[rows].astype(np.int64)
+        t = np.broadcast_to(np.asarray(t0[lo : lo + step], dtype=np.int64)[:, None], dur.shape)
+        for k in range(starts.shape[1]):
+            hit = (t < ends[:, k]) & (starts[:, k] < t + dur)
+            t = np.where(hit, ends[:, k], t)
+        out[lo : lo + step] = np.where(inst.eligible[rows], t + dur, _BIG).min(axis=1)
+    return out
+
+
+def head_times(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
+    """Earliest possible start and end of every job, int64[J] each (the critical-path bound).
+
+    est_j = max(ready_j, max_{p in follows(j)} fin_p);  fin_j = min_{i eligible} eft_i(est_j).
+
+    In any feasible plan start_j >= est_j and end_j >= fin_j, by induction along a topological
+    order: a job cannot start before its ready time nor before a predecessor ends, and eft_i is
+    non-decreasing in its start argument. Jobs of one topological generation (networkx) have no
+    follows among them, so each generation is computed as one vectorised block.
+    """
+    graph = nx.DiGraph()
+    graph.add_nodes_from(range(inst.n_jobs))
+    dst = np.repeat(np.arange(inst.n_jobs), np.diff(inst.pred_ptr))
+    graph.add_edges_from(zip(inst.pred_idx.tolist(), dst.tolist(), strict=True))
+    table = _maintenance_table(inst)
+    est = inst.ready.astype(np.int64).copy()
+    fin = np.zeros(inst.n_jobs, dtype=np.int64)
+    for generation in nx.topological_generations(graph):
+        gen = np.asarray(sorted(generation), dtype=np.int64)
+        for j in gen:
+            preds = inst.predecessors(int(j))
+            if len(preds):
+                est[j] = max(est[j], int(fin[preds].max()))
+        fin[gen] = _earliest_finish(inst, gen, est[gen], table)
+    return est, fin
+
+
+# --------------------------------------------------------------------------- resources
+
+
+def _min_over_eligible(inst: Instance, node_weight: np.ndarray) -> np.ndarray:
+    """float64[J]: min over eligible nodes i of duration_ji * node_weight_i."""
+    out = np.empty(inst.n_jobs, dtype=np.float64)
+    step = max(1, _CHUNK_CELLS // max(1, inst.n_nodes))
+    for lo in range(0, inst.n_jobs, step):
+        dur = inst.duration[lo : lo + step] * node_weight[None, :]
+        out[lo : lo + step] = np.where(inst.eligible[lo : lo + step], dur, np.inf).min(axis=1)
+    return out
+
+
+def _max_capacity(inst: Instance) -> np.ndarray:
+    """int64[J, R]: the largest capacity of each resource among each job's eligible nodes."""
+    out = np.empty((inst.n_jobs, len(RESOURCES)), dtype=np.int64)
+    step = max(1, _CHUNK_CELLS // max(1, inst.n_nodes))
+    for lo in range(0, inst.n_jobs, step):
+        elig = inst.eligible[lo : lo + step]
+        for r in range(len(RESOURCES)):
+            out[lo : lo + step, r] = np.where(elig, inst.capacity[None, :, r], -1).max(axis=1)
+    return out
+
+
+def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance) -> np.ndarray:
+    """int64[R]: the smallest T with sum_{i in nodes} cap_ir * speed_i * avail_i(T) >= W_r.
+
+    A job j on node i occupies d_jr resource units for dur_ji minutes, all inside
+    [start, T) minus node i's maintenance, where `start` <= every counted job's est. With
+    avail_i(T) = (T - start) - (maintenance minutes of node i inside [start, T)) the load
+    on node i satisfies sum_j d_jr * dur_ji <= cap_ir * avail_i(T). Multiplying by speed_i and
+    using dur_ji * speed_i >= ref_j = min_{i' eligible} dur_ji' * speed_i' (>= hours_j * 60):
+        W_r = sum_j d_jr * ref_j <= sum_i cap_ir * speed_i * avail_i(T).
+    The right side is non-decreasing in T, so the smallest such integer T is found by
+    bisection. A resource without work gives 0.
+    """
+    rate = (inst.capacity[nodes] * inst.speed[nodes, None]).astype(np.float64)  # [n, R]
+    win_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
+    keep = np.isin(win_node, nodes) & (inst.maint_end > start)
+    w_start = np.maximum(inst.maint_start[keep], start)
+    w_end = inst.maint_end[keep]
+    w_rate = (inst.capacity[win_node[keep]] * inst.speed[win_node[keep], None]).astype(float)
+    total_rate = rate.sum(axis=0)
+
+    def supply(t: np.ndarray) -> np.ndarray:
+        lost = np.clip(np.minimum(w_end[:, None], t[None, :]) - w_start[:, None], 0, None)
+        return total_rate * np.maximum(0, t - start) - (w_rate * lost).sum(axis=0)
+
+    need = np.asarray(work, dtype=np.float64) * (1.0 - _REL_SLACK)
+    active = need > 0
+    safe_rate = np.where(total_rate > 0, total_rate, 1.0)
+    last = max(start, int(w_end.max()) if len(w_end) else start)
+    lo = np.full(len(need), start, dtype=np.int64)  # supply(lo) < need
+    hi = last + np.ceil(need / safe_rate).astype(np.int64) + 1  # supply(hi) >= need
+    while np.any(active & (hi - lo > 1)):
+        mid = (lo + hi) // 2
+        ok = supply(mid) >= need
+        hi = np.where(active & ok, mid, hi)
+        lo = np.where(active & ~ok, mid, lo)
+    return np.where(active, hi, 0)
+
+
+def conflict_bound(p: np.ndarray, est: np.ndarray, n_hosts: int) -> int:
+    """Pigeonhole bound for jobs no two of which can ever run on one node at the same time.
+
+    Let B be such jobs (for one resource r, every job of B needs more than half of r on every
+    node that can hold it, so any two exceed cap_ir together), all hostable only on a set of
+    K = `n_hosts` nodes, with minimal durations sorted p_1 >= p_2 >= ... (`p`) and head times
+    `est`. For q >= 1 with |B| >= qK + 1: among the qK + 1 longest jobs some node runs at
+    least q + 1 (pigeonhole), one after another, the first not before min est over them, so
+        T >= min_{k <= qK+1} est_k + (p_{qK-q+1} + ... + p_{qK+1})
+    (the q + 1 smallest of the qK + 1 longest). q = 1 is the classic P||Cmax bound
+    p_K + p_{K+1} for whole-node jobs on K identical nodes.
+    """
+    n = len(p)
+    if n_hosts <= 0 or n <= n_hosts:
+        return 0
+    order = np.lexsort((est, -p))
+    p, est = p[order].astype(np.int64), est[order]
+    cs = np.concatenate(([0], np.cumsum(p)))
+    first = np.minimum.accumulate(est)
+    q = np.arange(1, (n - 1) // n_hosts + 1)
+    top = q * n_hosts + 1
+    return int(np.max(first[top - 1] + cs[top] - cs[top - q - 1]))
+
+
+def _unique_node_sets(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
+    """Distinct eligibility rows as packed uint64 words, and each job's row index."""
+    packed = np.packbits(inst.eligible, axis=1)
+    pad = (-packed.shape[1]) % 8
+    packed = np.pad(packed, ((0, 0), (0, pad))).view(np.uint64)
+    rows, inverse = np.unique(packed, axis=0, return_inverse=True)
+    return rows, inverse.reshape(-1)
+
+
+def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
+    """Work bounds on the whole cluster and per node-set class, and the conflict bound."""
+    ref = _min_over_eligible(inst, inst.speed)
+    mindur = inst.min_duration()
+    work = inst.demand * ref[:, None]  # [J, R] reference resource-minutes
+    big = 2 * inst.demand > _max_capacity(inst)  # [J, R] never two on one node at once
+    rows, inverse = _unique_node_sets(inst)
+    n_rows = len(rows)
+    row_work = np.zeros((n_rows, len(RESOURCES)))
+    np.add.at(row_work, inverse, work)
+    row_nodes = np.unpackbits(rows.view(np.uint8), axis=1, count=inst.n_nodes).astype(bool)
+    rate = (inst.capacity * inst.speed[:, None]).astype(np.float64)
+    row_rate = row_nodes.astype(np.float64) @ rate
+    with np.errstate(divide="ignore", invalid="ignore"):
+        score = np.nan_to_num(row_work / row_rate, nan=0.0, posinf=0.0).max(axis=1)
+    partial = ~row_nodes.all(axis=1)
+    classes = [c for c in np.argsort(-score, kind="stable") if partial[c]][:MAX_CLASSES]
+
+    out = {name: 0 for name in RESOURCES}
+    out.update({f"class_{name}": 0 for name in RESOURCES})
+    out["conflict"] = 0
+    all_nodes = np.arange(inst.n_nodes)
+    for label, c in [("", None)] + [("class_", c) for c in classes]:
+        if c is None:
+            members, nodes = np.ones(n_rows, dtype=bool), all_nodes
+        else:
+            members = ~np.any(rows & ~rows[c], axis=1)  # rows whose node set is inside c's
+            nodes = np.flatnonzero(row_nodes[c])
+        jobs = members[inverse]
+        w = work_bound(row_work[members].sum(axis=0), nodes, int(est[jobs].min()), inst)
+        for r, name in enumerate(RESOURCES):
+            out[label + name] = max(out[label + name], int(w[r]))
+            chosen = jobs & big[:, r]
+            if chosen.any():
+                hosts = int(row_nodes[np.unique(inverse[chosen])].any(axis=0).sum())
+                b = conflict_bound(mindur[chosen], est[chosen], hosts)
+                out["conflict"] = max(out["conflict"], b)
+    return out
