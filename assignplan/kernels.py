@@ -20,50 +20,41 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from assignplan.instance import NO_DUE
+
 BLOCKED = -1  # free capacity of a maintenance segment: every demand (>= 0) exceeds it
 NEVER = np.int64(-1)  # returned as a start when a job cannot fit the node at all
-_DUE_NONE = np.int64(np.iinfo(np.int64).max // 4)  # == instance.NO_DUE (checked in tests)
 
 
 @njit(cache=True)
 def _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end):
     """Fill node i's slice with its empty profile: full capacity, maintenance blocked.
 
-    Windows are sorted; after widening to whole minutes two windows may touch or overlap,
-    so each one is clipped to start no earlier than the previous end.
+    Windows are sorted; after widening to whole minutes two of them may touch or overlap,
+    so each is clipped to begin no earlier than the previous one ends. At most 2*m_i + 1
+    segments; the last (free, to infinity) segment is always fully free.
     """
     lo = seg_lo[i]
-    n = 0
-    cur = np.int64(0)
+    seg_t[lo] = 0
+    for r in range(3):
+        seg_f[lo, r] = capacity[i, r]
+    n = 1
+    cur = np.int64(0)  # start of the last (free) segment
     for w in range(maint_ptr[i], maint_ptr[i + 1]):
         a = max(maint_start[w], cur)
         b = maint_end[w]
         if b <= a:
             continue
-        if a > cur or n == 0:
-            if a > cur:
-                seg_t[lo + n] = cur
-                for r in range(3):
-                    seg_f[lo + n, r] = capacity[i, r]
-                n += 1
-        seg_t[lo + n] = a
+        if a > cur:
+            seg_t[lo + n] = a
+            n += 1
         for r in range(3):
-            seg_f[lo + n, r] = BLOCKED
+            seg_f[lo + n - 1, r] = BLOCKED
+        seg_t[lo + n] = b
+        for r in range(3):
+            seg_f[lo + n, r] = capacity[i, r]
         n += 1
         cur = b
-    seg_t[lo + n] = cur
-    for r in range(3):
-        seg_f[lo + n, r] = capacity[i, r]
-    n += 1
-    if seg_t[lo] > 0:  # profile must begin at minute 0; a window starting later left a gap
-        for k in range(n, 0, -1):
-            seg_t[lo + k] = seg_t[lo + k - 1]
-            for r in range(3):
-                seg_f[lo + k, r] = seg_f[lo + k - 1, r]
-        seg_t[lo] = 0
-        for r in range(3):
-            seg_f[lo, r] = capacity[i, r]
-        n += 1
     seg_n[i] = n
 
 
@@ -221,7 +212,7 @@ def _fitness(start, assign, duration, due, weight, out):
         c = start[j] + np.int64(duration[j, assign[j]])
         if c > mk:
             mk = c
-        if due[j] != _DUE_NONE and c > due[j]:
+        if due[j] != NO_DUE and c > due[j]:
             tard += weight[j] * (c - due[j])
         compl += weight[j] * c
     out[0] = mk

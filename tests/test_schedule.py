@@ -1,0 +1,243 @@
+"""The compiled schedule builder against its pure-Python twin, the objective, and hand cases."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from assignplan.methods.greedy import greedy_assign
+from assignplan.plan import objective
+from assignplan.schedule import build_schedule, evaluate_population, schedule_result
+from tests.strategies import instance_of, random_batch_doc
+from tests.twin_builder import twin_build, twin_greedy
+
+
+def random_assign(inst, *, rng: np.random.Generator, size: int = 1) -> np.ndarray:
+    """int64[size, J]: every job on a uniformly drawn eligible node."""
+    out = np.empty((size, inst.n_jobs), dtype=np.int64)
+    for j in range(inst.n_jobs):
+        out[:, j] = rng.choice(np.flatnonzero(inst.eligible[j]), size=size)
+    return out
+
+
+def random_topological_order(inst, *, rng: np.random.Generator) -> np.ndarray:
+    """A uniformly shuffled priority list repaired into a follows-respecting order (Kahn)."""
+    key = rng.permutation(inst.n_jobs)
+    indeg = np.diff(inst.pred_ptr).copy()
+    ready = [j for j in range(inst.n_jobs) if indeg[j] == 0]
+    out = []
+    while ready:
+        ready.sort(key=lambda j: key[j])
+        j = ready.pop(0)
+        out.append(j)
+        for s in inst.successors(j):
+            indeg[s] -= 1
+            if indeg[s] == 0:
+                ready.append(int(s))
+    return np.array(out, dtype=np.int64)
+
+
+def doc(nodes: list[dict], jobs: list[dict]) -> dict:
+    return {"window": {"start": "2026-12-07T00:00:00", "hours": 168.0},
+            "nodes": nodes, "jobs": jobs}
+
+
+def node(name="n", cores=4, memory_gib=16.0, **kw) -> dict:
+    return {"name": name, "cores": cores, "memory_gib": memory_gib, **kw}
+
+
+def job(name, cores=1, hours=1.0, memory_gib=1.0, **kw) -> dict:
+    return {"name": name, "cores": cores, "memory_gib": memory_gib, "hours": hours, **kw}
+
+
+# ----------------------------------------------------------------- kernels vs twin (random)
+
+
+@pytest.mark.parametrize("block", range(4))
+def test_builder_matches_twin_on_random_batches(block):
+    """200 random heterogeneous batches (50 per block): random assignments and random orders."""
+    for seed in range(50 * block, 50 * block + 50):
+        rng = np.random.default_rng(seed)
+        _, inst = instance_of(random_batch_doc(rng, max_jobs=14))
+        orders = [inst.order, random_topological_order(inst, rng=rng)]
+        for order in orders:
+            for assign in random_assign(inst, rng=rng, size=2):
+                got = build_schedule(inst, assign, order)
+                want = twin_build(inst, assign, order)
+                np.testing.assert_array_equal(got, want, err_msg=f"seed {seed}")
+
+
+@pytest.mark.parametrize("block", range(4))
+def test_greedy_matches_twin_on_random_batches(block):
+    for seed in range(50 * block, 50 * block + 50):
+        rng = np.random.default_rng(10_000 + seed)
+        _, inst = instance_of(random_batch_doc(rng, max_jobs=14))
+        for order in (None, random_topological_order(inst, rng=rng)):
+            a, s = greedy_assign(inst, order)
+            ta, ts = twin_greedy(inst, order)
+            np.testing.assert_array_equal(a, ta, err_msg=f"seed {seed}")
+            np.testing.assert_array_equal(s, ts, err_msg=f"seed {seed}")
+            # greedy's own starts are exactly what the builder makes of its assignment:
+            # both place the same jobs in the same order at their earliest feasible start
+            np.testing.assert_array_equal(build_schedule(inst, a, order), s)
+
+
+def test_population_equals_individual_builds_and_objective():
+    for seed in range(40):
+        rng = np.random.default_rng(20_000 + seed)
+        _, inst = instance_of(random_batch_doc(rng, max_jobs=14, p_due=0.6))
+        pop = random_assign(inst, rng=rng, size=7)
+        order = random_topological_order(inst, rng=rng)
+        fit = evaluate_population(inst, pop, order)
+        assert fit.shape == (7, 3)
+        for p in range(len(pop)):
+            res = schedule_result(inst, pop[p], "test", 0, order)
+            mk, tard, compl = objective(inst, res.end)
+            assert fit[p, 0] == mk == res.makespan
+            # same sums in a different order (np.dot vs a loop): equal up to float rounding
+            np.testing.assert_allclose(fit[p, 1:], [tard, compl], rtol=1e-12, atol=0)
+
+
+def test_fractional_weights_objective_close():
+    rng = np.random.default_rng(7)
+    d = random_batch_doc(rng, max_jobs=12, p_due=1.0)
+    for g in d["jobs"]:
+        g["weight"] = round(float(rng.uniform(0.1, 3.0)), 3)
+    _, inst = instance_of(d)
+    pop = random_assign(inst, rng=rng, size=3)
+    fit = evaluate_population(inst, pop)
+    for p in range(3):
+        end = build_schedule(inst, pop[p]) + inst.duration[np.arange(inst.n_jobs), pop[p]]
+        np.testing.assert_allclose(fit[p], objective(inst, end), rtol=1e-12)
+
+
+def test_deterministic():
+    rng = np.random.default_rng(3)
+    _, inst = instance_of(random_batch_doc(rng, max_jobs=14))
+    pop = random_assign(inst, rng=rng, size=5)
+    np.testing.assert_array_equal(evaluate_population(inst, pop), evaluate_population(inst, pop))
+
+
+# ----------------------------------------------------------------- hand-made cases
+
+
+def starts(d: dict, assign=None, order=None) -> np.ndarray:
+    """Kernel starts, cross-checked against the twin on every hand case."""
+    _, inst = instance_of(d)
+    assign = np.zeros(inst.n_jobs, dtype=np.int64) if assign is None else np.asarray(assign)
+    order = None if order is None else np.asarray(order)
+    got = build_schedule(inst, assign, order)
+    np.testing.assert_array_equal(got, twin_build(inst, assign, order))
+    return got
+
+
+def test_maintenance_blocks_a_job():
+    # a 2 h job would overlap the window [1 h, 3 h): it waits until 3 h; a 1 h job fits before
+    d = doc([node(maintenance=[{"start_h": 1.0, "end_h": 3.0}])],
+            [job("long", hours=2.0), job("short", hours=1.0)])
+    assert list(starts(d)) == [180, 0]
+
+
+def test_maintenance_from_minute_zero_and_touching_windows():
+    d = doc([node(maintenance=[{"start_h": 0.0, "end_h": 1.0}, {"start_h": 1.0, "end_h": 2.5}])],
+            [job("a", hours=0.5)])
+    assert list(starts(d)) == [150]
+
+
+def test_one_minute_gap_between_windows_is_usable():
+    d = doc([node(maintenance=[{"start_h": 0.0, "end_h": 1.0},
+                               {"start_h": 61 / 60, "end_h": 2.0}])],
+            [job("a", cores=4, hours=1 / 60), job("b", cores=4, hours=1 / 60)])
+    # the one free minute [60, 61) takes one whole-node job; the other waits for 2 h
+    assert list(starts(d)) == [60, 120]
+
+
+def test_job_waits_for_cores():
+    d = doc([node(cores=4)], [job("a", cores=3, hours=2.0), job("b", cores=2, hours=1.0)])
+    assert list(starts(d)) == [0, 120]
+
+
+def test_job_waits_for_memory_and_gpus():
+    d = doc([node(cores=16, memory_gib=64.0, gpus=2)],
+            [job("a", hours=2.0, memory_gib=40.0), job("b", hours=1.5, memory_gib=30.0),
+             job("g1", hours=1.0, gpus=2), job("g2", hours=0.5, gpus=1)])
+    # order: a (2 h), b (1.5 h), g1 (1 h), g2 (0.5 h); b waits for a's memory, g2 for g1's GPUs
+    assert list(starts(d)) == [0, 120, 0, 60]
+
+
+def test_jobs_share_a_node_when_they_fit():
+    d = doc([node(cores=4)], [job("a", cores=2, hours=2.0), job("b", cores=2, hours=1.0)])
+    assert list(starts(d)) == [0, 0]
+
+
+def test_follows_respected_across_nodes():
+    d = doc([node("x"), node("y")],
+            [job("a", hours=1.5), job("b", hours=1.0, follows=["a"])])
+    assert list(starts(d, assign=[0, 1])) == [0, 90]
+
+
+def test_follows_a_group():
+    d = doc([node("x", cores=8)],
+            [job("sweep", count=3, hours=1.0), job("b", hours=3.0, follows=["sweep"])])
+    # b is longest but follows every member: it starts when the last member ends
+    s = starts(d)
+    assert list(s[:3]) == [0, 0, 0] and s[3] == 60
+
+
+def test_ready_time_respected():
+    d = doc([node()], [job("a", hours=1.0, ready_h=1.5)])
+    assert list(starts(d)) == [90]
+
+
+def test_speed_changes_durations():
+    # duration = ceil(hours * 60 / speed): 60 / 1.5 = 40; 60 / 0.7 = 85.71 -> 86
+    d = doc([node("fast", speed=1.5), node("slow", speed=0.7)],
+            [job("a", cores=4, hours=1.0), job("b", cores=4, hours=1.0), job("c", cores=4)])
+    _, inst = instance_of(d)
+    res = schedule_result(inst, np.array([0, 1, 0]), "test", 0)
+    assert list(res.end - res.start) == [40, 86, 40]
+    assert list(res.start) == [0, 0, 40]
+
+
+def test_backfilling_into_an_earlier_hole():
+    # a (whole node, ready at 1 h) is placed first at 60; c (2 h) cannot fit in [0, 60) and
+    # goes after a; b (1 h), placed last, fits exactly into the hole before a
+    d = doc([node(cores=4)],
+            [job("a", cores=4, hours=2.0, ready_h=1.0), job("c", cores=2, hours=2.0),
+             job("b", cores=2, hours=1.0)])
+    _, inst = instance_of(d)
+    assert list(inst.order) == [0, 1, 2]
+    assert list(starts(d)) == [60, 180, 0]
+
+
+def test_given_order_changes_the_schedule():
+    d = doc([node(cores=4)], [job("a", cores=4, hours=2.0), job("b", cores=4, hours=1.0)])
+    assert list(starts(d)) == [0, 120]
+    assert list(starts(d, order=[1, 0])) == [60, 0]
+
+
+def test_rejects_bad_assignment_and_order():
+    d = doc([node("small", cores=2), node("big", cores=8)],
+            [job("a", cores=4), job("b", follows=["a"])])
+    _, inst = instance_of(d)
+    with pytest.raises(ValueError, match="cannot hold"):
+        build_schedule(inst, np.array([0, 0]))
+    with pytest.raises(ValueError, match="out of range"):
+        build_schedule(inst, np.array([1, 2]))
+    with pytest.raises(ValueError, match="before a job it follows"):
+        build_schedule(inst, np.array([1, 1]), order=np.array([1, 0]))
+    with pytest.raises(ValueError, match="permutation"):
+        evaluate_population(inst, np.array([[1, 1]]), order=np.array([0, 0]))
+
+
+def test_many_jobs_one_node_matches_twin():
+    # a long profile: 60 small jobs on one node exercises many breakpoints and inserts
+    rng = np.random.default_rng(11)
+    jobs = [job(f"j{k}", cores=int(rng.integers(1, 5)), hours=int(rng.integers(1, 240)) / 60,
+                ready_h=int(rng.integers(0, 300)) / 60) for k in range(60)]
+    d = doc([node(cores=4, maintenance=[{"start_h": 2.0, "end_h": 2.5},
+                                        {"start_h": 4.0, "end_h": 9.0}])], jobs)
+    _, inst = instance_of(d)
+    for order in (inst.order, rng.permutation(inst.n_jobs)):
+        s = starts(d, order=order)
+        assert np.all(s >= inst.ready)
