@@ -101,9 +101,13 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
     )
 
 
-def calendar_time(inst: Instance, minute: int) -> str:
-    """Minute offset as a calendar time from the window start (ISO, minute precision)."""
-    return (inst.window_start + timedelta(minutes=int(minute))).strftime("%a %Y-%m-%d %H:%M")
+def calendar_time(inst: Instance, minute: int, *, short: bool = False) -> str:
+    """Minute offset as a calendar time from the window start, to the minute.
+
+    Long form `Thu 2026-12-10 00:00`; short form `Thu 10 Dec 00:00` for table cells.
+    """
+    fmt = "%a %d %b %H:%M" if short else "%a %Y-%m-%d %H:%M"
+    return (inst.window_start + timedelta(minutes=int(minute))).strftime(fmt)
 
 
 def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:

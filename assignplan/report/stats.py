@@ -125,7 +125,7 @@ def node_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
         "memory_gib": np.round(inst.capacity[:, 1] / 1024, 2),
         "gpu_utilisation_pct": np.round(gpu_util, 2),
         "busy_until_h": busy_until / 60,
-        "busy_until": [calendar_time(inst, m) if m else "" for m in busy_until],
+        "busy_until": [calendar_time(inst, m, short=True) if m else "" for m in busy_until],
     })
 
 
@@ -138,8 +138,8 @@ def job_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
         "node": [inst.node_names[i] for i in result.assign],
         "start_h": result.start / 60,
         "end_h": result.end / 60,
-        "start": [calendar_time(inst, m) for m in result.start],
-        "end": [calendar_time(inst, m) for m in result.end],
+        "start": [calendar_time(inst, m, short=True) for m in result.start],
+        "end": [calendar_time(inst, m, short=True) for m in result.end],
         "hours": (result.end - result.start) / 60,
         "cores": inst.demand[:, 0],
         "memory_gib": np.round(inst.demand[:, 1] / 1024, 2),

@@ -46,15 +46,15 @@ def summary_table(s: dict) -> Table:
 
 def node_table(nodes: pd.DataFrame) -> Table:
     """Per-node load: how much each node does and how full it gets."""
-    t = Table(title="Nodes", title_justify="left")
+    t = Table(title="Nodes (utilisation over the makespan)", title_justify="left")
     for col, justify in [("node", "left"), ("jobs", "right"), ("core-h", "right"),
                          ("core util", "right"), ("peak cores", "right"),
-                         ("peak memory", "right"), ("GPU util", "right"), ("busy until", "left")]:
+                         ("peak GiB", "right"), ("GPU util", "right"), ("busy until", "left")]:
         t.add_column(col, justify=justify)
     for r in nodes.itertuples(index=False):
         t.add_row(
             r.node, f"{r.jobs:,}", _num(r.core_hours, 1), _num(r.core_utilisation_pct, 1, " %"),
-            f"{r.peak_cores}/{r.cores}", f"{r.peak_memory_gib:g}/{r.memory_gib:g} GiB",
+            f"{r.peak_cores}/{r.cores}", f"{r.peak_memory_gib:g}/{r.memory_gib:g}",
             _num(r.gpu_utilisation_pct, 1, " %"), r.busy_until or "idle",
         )
     return t
@@ -67,7 +67,7 @@ def job_table(jobs: pd.DataFrame, limit: int | None = 30) -> Table:
         f"Jobs (first {len(shown)} of {len(jobs):,} by start; --all shows every job)")
     t = Table(title=title, title_justify="left")
     for col, justify in [("job", "left"), ("node", "left"), ("start", "left"), ("end", "left"),
-                         ("hours", "right"), ("cores", "right"), ("memory", "right"),
+                         ("hours", "right"), ("cores", "right"), ("GiB", "right"),
                          ("late?", "left")]:
         t.add_column(col, justify=justify)
     for r in shown.itertuples(index=False):
@@ -75,12 +75,15 @@ def job_table(jobs: pd.DataFrame, limit: int | None = 30) -> Table:
         if r.past_window:
             flag = (flag + ", " if flag else "") + "past window"
         t.add_row(r.job, r.node, r.start, r.end, _num(r.hours, 2), str(r.cores),
-                  f"{r.memory_gib:g} GiB", flag, style="red" if r.late else None)
+                  f"{r.memory_gib:g}", flag, style="red" if r.late else None)
     return t
 
 
 def print_plan(console: Console, s: dict, nodes: pd.DataFrame, jobs: pd.DataFrame,
                *, show_all: bool) -> None:
+    """The three tables; piped output gets a width that fits them instead of rich's 80."""
+    if not console.is_terminal:
+        console.width = max(console.width, 110)
     console.print(summary_table(s))
     console.print(node_table(nodes))
     console.print(job_table(jobs, None if show_all else 30))

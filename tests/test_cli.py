@@ -1,0 +1,103 @@
+"""The commands end to end, through typer's runner and through the installed entry point."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+from assignplan.cli import app
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+SMALL = EXAMPLES / "small.json"
+WEEK = EXAMPLES / "institute-week.json"
+JSON_KEYS = {"method", "makespan_h", "lower_bound_h", "gap_pct", "core_utilisation_pct",
+             "jobs_past_window", "late_jobs", "seconds"}
+
+runner = CliRunner()
+
+
+def solve(*args: str):
+    result = runner.invoke(app, ["solve", *args])
+    assert result.exit_code == 0, result.output
+    return result
+
+
+def test_solve_prints_three_tables():
+    out = solve(str(SMALL), "--method", "greedy").stdout
+    for title in ("Plan summary (greedy)", "Nodes", "Jobs"):
+        assert title in out
+    for name in ("cpu-1", "bigmem", "gpu", "summarise", "preprocess-3"):
+        assert name in out
+
+
+def test_job_table_truncates_unless_all():
+    out = solve(str(WEEK), "--method", "greedy").stdout
+    assert "first 30 of 482" in out
+    everything = solve(str(WEEK), "--method", "greedy", "--all").stdout
+    assert "first 30" not in everything and "genome-align-96" in everything
+
+
+def test_json_summary_has_the_documented_keys():
+    data = json.loads(solve(str(SMALL), "--method", "greedy", "--json").stdout)
+    assert JSON_KEYS <= data.keys()
+    assert data["makespan_h"] >= data["lower_bound_h"] > 0
+    assert data["jobs"] == 14 and data["nodes"] == 4
+
+
+def test_plan_file_passes_check_and_a_broken_edit_fails(tmp_path):
+    plan = tmp_path / "plan.json"
+    solve(str(SMALL), "--method", "greedy", "--out", str(plan))
+    doc = json.loads(plan.read_text())
+    assert {"method", "makespan_h", "lower_bound_h", "assignments"} <= doc.keys()
+    assert {"job", "node", "start_h", "end_h"} == doc["assignments"][0].keys()
+    ok = runner.invoke(app, ["check", str(SMALL), str(plan)])
+    assert ok.exit_code == 0 and ok.stdout.startswith("plan OK")
+    # Hand edit: the GPU job onto a CPU node, and a job removed.
+    train = next(a for a in doc["assignments"] if a["job"] == "train")
+    train["node"] = "cpu-1"
+    doc["assignments"] = [a for a in doc["assignments"] if a["job"] != "sweep-1"]
+    plan.write_text(json.dumps(doc))
+    bad = runner.invoke(app, ["check", str(SMALL), str(plan)])
+    assert bad.exit_code == 1
+    assert "sweep-1" in bad.stdout and "train" in bad.stdout
+    as_json = json.loads(runner.invoke(app, ["check", str(SMALL), str(plan), "--json"]).stdout)
+    assert {v["kind"] for v in as_json["violations"]} >= {"missing_job", "cannot_hold"}
+
+
+def test_check_rejects_a_malformed_plan_with_exit_2(tmp_path):
+    plan = tmp_path / "plan.json"
+    plan.write_text('{"method": "greedy", "assignments": [{"job": 1}]}')
+    result = runner.invoke(app, ["check", str(SMALL), str(plan)])
+    assert result.exit_code == 2
+    assert "assignments[0].job" in result.stderr and "Traceback" not in result.output
+
+
+def test_csv_tables(tmp_path):
+    solve(str(SMALL), "--method", "greedy", "--csv", str(tmp_path / "tables"))
+    jobs = pd.read_csv(tmp_path / "tables" / "jobs.csv")
+    nodes = pd.read_csv(tmp_path / "tables" / "nodes.csv")
+    summary = pd.read_csv(tmp_path / "tables" / "summary.csv")
+    assert len(jobs) == 14 and len(nodes) == 4 and len(summary) == 1
+    assert set(jobs["node"]) <= set(nodes["node"])
+    # Core-hours per node add up from the job rows (hours on the node x cores).
+    per_node = (jobs["hours"] * jobs["cores"]).groupby(jobs["node"]).sum()
+    for row in nodes.itertuples():
+        assert row.core_hours == pytest.approx(per_node.get(row.node, 0.0), abs=0.01)
+
+
+def test_installed_entry_point_solves(tmp_path):
+    exe = Path(sys.executable).with_name("assignplan")
+    proc = subprocess.run([str(exe), "solve", str(SMALL), "--method", "greedy", "--json",
+                           "--out", str(tmp_path / "p.json")],
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert JSON_KEYS <= json.loads(proc.stdout).keys()
+    check = subprocess.run([str(exe), "check", str(SMALL), str(tmp_path / "p.json")],
+                           capture_output=True, text=True, timeout=300)
+    assert check.returncode == 0 and "no violations" in check.stdout
