@@ -9,7 +9,6 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.console import Console
 
 from assignplan.errors import AssignplanError
 
@@ -63,6 +62,9 @@ def solve(
     = False,
     force: Annotated[bool, typer.Option(help="Let exact try batches above its size limit.")]
     = False,
+    report: Annotated[Path | None, typer.Option(
+        help="Also write the HTML report of the plan to this file.")] = None,
+    png: Annotated[Path | None, typer.Option(help="Also write each chart as PNG here.")] = None,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.instance import build_instance
@@ -71,6 +73,8 @@ def solve(
 
     exports.check_output_file(out, "--out")
     exports.check_output_dir(csv, "--csv")
+    exports.check_output_file(report, "--report")
+    exports.check_output_dir(png, "--png")
     expanded = load_batch(batch)
     # The planning stack (numba, solvers) loads only once the input is known to be good.
     from assignplan.plan import to_plan_doc
@@ -85,10 +89,76 @@ def solve(
         exports.write_json(out, to_plan_doc(inst, result).model_dump(mode="json"))
     if csv is not None:
         exports.write_csv_tables(csv, summary, nodes, jobs)
+    _write_report(inst, result, report, png)
     if as_json:
         typer.echo(json.dumps(summary, indent=2))
     else:
-        tables.print_plan(Console(), summary, nodes, jobs, show_all=show_all)
+        tables.print_plan(tables.make_console(), summary, nodes, jobs, show_all=show_all)
+
+
+@app.command()
+@reports_errors
+def compare(
+    batch: BatchArg,
+    seed: Annotated[int, typer.Option(help="Seed of the random generator.")] = 0,
+    time_limit: Annotated[float, typer.Option(help="Seconds each method may run.", min=0.1)]
+    = 30.0,
+    as_json: Annotated[bool, typer.Option("--json", help="Print a JSON list.")] = False,
+) -> None:
+    """Run greedy, ga and (on small batches) exact with one budget; one row per method."""
+    from assignplan.instance import build_instance
+    from assignplan.model import load_batch
+
+    inst = build_instance(load_batch(batch))
+    from assignplan.compare import compare_methods, compare_records
+    from assignplan.planner import METHODS
+    from assignplan.report.tables import compare_table, make_console
+
+    rows = compare_methods(inst, METHODS, seed=seed, time_limit=time_limit)
+    records = compare_records(inst, rows)
+    if as_json:
+        typer.echo(json.dumps(records, indent=2))
+    else:
+        make_console().print(compare_table(records))
+        for rec in records:
+            if rec["note"]:
+                typer.echo(f"{rec['method']}: {rec['status']}: {rec['note']}")
+    if any(rec["status"] == "failed" for rec in records):
+        raise typer.Exit(1)
+
+
+@app.command()
+@reports_errors
+def report(
+    batch: BatchArg,
+    plan: Annotated[Path, typer.Argument(help="Plan JSON (from solve --out).", show_default=False)],
+    out: Annotated[Path, typer.Option(help="HTML file to write.")] = Path("report.html"),
+    png: Annotated[Path | None, typer.Option(help="Also write each chart as PNG here.")] = None,
+) -> None:
+    """Write a self-contained HTML report (timeline, utilisation, tables) of a plan."""
+    from assignplan.instance import build_instance
+    from assignplan.model import load_batch, load_plan
+    from assignplan.plan import result_from_doc
+    from assignplan.report.exports import check_output_dir, check_output_file
+
+    check_output_file(out, "--out")
+    check_output_dir(png, "--png")
+    inst = build_instance(load_batch(batch))
+    result = result_from_doc(inst, load_plan(plan))
+    _write_report(inst, result, out, png)
+
+
+def _write_report(inst, result, html_path: Path | None, png_dir: Path | None) -> None:
+    from assignplan.report.charts import write_png_charts
+    from assignplan.report.html import write_html_report
+
+    if html_path is not None:
+        size = write_html_report(html_path, inst, result)
+        typer.echo(f"wrote {html_path} ({size / 1024:,.0f} KiB)", err=True)
+    if png_dir is not None:
+        png_dir.mkdir(parents=True, exist_ok=True)
+        for path in write_png_charts(png_dir, inst, result):
+            typer.echo(f"wrote {path}", err=True)
 
 
 @app.command()

@@ -47,7 +47,7 @@ def test_json_summary_has_the_documented_keys():
     data = json.loads(solve(str(SMALL), "--method", "greedy", "--json").stdout)
     assert JSON_KEYS <= data.keys()
     assert data["makespan_h"] >= data["lower_bound_h"] > 0
-    assert data["jobs"] == 14 and data["nodes"] == 4
+    assert data["jobs"] == 13 and data["nodes"] == 4
 
 
 def test_plan_file_passes_check_and_a_broken_edit_fails(tmp_path):
@@ -83,7 +83,7 @@ def test_csv_tables(tmp_path):
     jobs = pd.read_csv(tmp_path / "tables" / "jobs.csv")
     nodes = pd.read_csv(tmp_path / "tables" / "nodes.csv")
     summary = pd.read_csv(tmp_path / "tables" / "summary.csv")
-    assert len(jobs) == 14 and len(nodes) == 4 and len(summary) == 1
+    assert len(jobs) == 13 and len(nodes) == 4 and len(summary) == 1
     assert set(jobs["node"]) <= set(nodes["node"])
     # Core-hours per node add up from the job rows (hours on the node x cores).
     per_node = (jobs["hours"] * jobs["cores"]).groupby(jobs["node"]).sum()

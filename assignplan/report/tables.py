@@ -79,11 +79,32 @@ def job_table(jobs: pd.DataFrame, limit: int | None = 30) -> Table:
     return t
 
 
-def print_plan(console: Console, s: dict, nodes: pd.DataFrame, jobs: pd.DataFrame,
-               *, show_all: bool) -> None:
-    """The three tables; piped output gets a width that fits them instead of rich's 80."""
+def make_console() -> Console:
+    """A stdout console; piped output gets a width that fits our tables instead of rich's 80."""
+    console = Console()
     if not console.is_terminal:
         console.width = max(console.width, 110)
+    return console
+
+
+def print_plan(console: Console, s: dict, nodes: pd.DataFrame, jobs: pd.DataFrame,
+               *, show_all: bool) -> None:
+    """The summary, per-node and per-job tables."""
     console.print(summary_table(s))
     console.print(node_table(nodes))
     console.print(job_table(jobs, None if show_all else 30))
+
+
+def compare_table(records: list[dict]) -> Table:
+    """One row per method: makespan, its gaps (bound, best found, proven optimum), cost."""
+    t = Table(title="Methods compared", title_justify="left")
+    for col in ("method", "makespan h", "gap to bound", "gap to best", "gap to optimum",
+                "core util", "late jobs", "seconds", "status"):
+        t.add_column(col, justify="left" if col in ("method", "status") else "right")
+    for r in records:
+        t.add_row(r["method"], _num(r["makespan_h"], 2), _num(r["gap_pct"], 2, " %"),
+                  _num(r["gap_best_pct"], 2, " %"), _num(r["gap_optimum_pct"], 2, " %"),
+                  _num(r["core_utilisation_pct"], 1, " %"),
+                  "–" if r["late_jobs"] is None else str(r["late_jobs"]),
+                  _num(r["seconds"], 2), r["status"])
+    return t

@@ -1,0 +1,75 @@
+"""Every method on one batch with the same time budget, measured against the bound and the best."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from assignplan.errors import AssignplanError
+from assignplan.instance import NO_DUE, Instance
+from assignplan.plan import PlanResult, gap_pct
+from assignplan.report.stats import summary
+
+
+@dataclass(frozen=True)
+class CompareRow:
+    """One method's outcome; `result` is None when it was skipped or failed (see `note`)."""
+
+    method: str
+    status: str
+    result: PlanResult | None
+    note: str = ""
+
+
+def compare_methods(inst: Instance, methods: tuple[str, ...], *, seed: int, time_limit: float,
+                    exact_max_jobs: int = 300) -> list[CompareRow]:
+    """Run each method; exact is skipped above its size guard, with the reason in `note`."""
+    from assignplan.planner import solve
+
+    rows = []
+    for method in methods:
+        if method == "exact" and inst.n_jobs > exact_max_jobs:
+            rows.append(CompareRow(method, "skipped", None,
+                                   f"{inst.n_jobs} jobs is above the exact method's limit of "
+                                   f"{exact_max_jobs}; it would not prove anything in time"))
+            continue
+        try:
+            result = solve(inst, method, seed=seed, time_limit=time_limit)
+        except AssignplanError as err:
+            rows.append(CompareRow(method, "failed", None, "; ".join(err.problems)))
+            continue
+        rows.append(CompareRow(method, result.status, result))
+    return rows
+
+
+def compare_records(inst: Instance, rows: list[CompareRow]) -> list[dict]:
+    """Plain records of a comparison (the `compare --json` output and the table's data).
+
+    gap_pct is to the provable lower bound (the strongest any method proved); gap_best_pct to
+    the best makespan found; gap_optimum_pct to the optimum when exact proved one.
+    """
+    found = [r.result for r in rows if r.result is not None]
+    bound = max((r.lower_bound for r in found), default=0)
+    best = min((r.makespan for r in found), default=None)
+    optimum = next((r.makespan for r in found if r.status == "optimal"), None)
+    records = []
+    for row in rows:
+        rec = {"method": row.method, "status": row.status, "note": row.note,
+               "makespan_h": None, "lower_bound_h": bound / 60, "gap_pct": None,
+               "gap_best_pct": None, "gap_optimum_pct": None, "core_utilisation_pct": None,
+               "late_jobs": None, "weighted_tardiness_h": None, "seconds": None}
+        if row.result is not None:
+            r, s = row.result, summary(inst, row.result)
+            rec.update(
+                makespan_h=r.makespan / 60,
+                gap_pct=round(gap_pct(r.makespan, bound), 2),
+                gap_best_pct=round(gap_pct(r.makespan, best), 2),
+                gap_optimum_pct=None if optimum is None else round(gap_pct(r.makespan, optimum), 2),
+                core_utilisation_pct=s["core_utilisation_pct"],
+                late_jobs=int(np.sum((inst.due != NO_DUE) & (r.end > inst.due))),
+                weighted_tardiness_h=s["weighted_tardiness_h"],
+                seconds=round(r.seconds, 3),
+            )
+        records.append(rec)
+    return records
