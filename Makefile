@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench schema clean
+.PHONY: demo test bench schema clean browser
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -15,7 +15,20 @@ $(STAMP): pyproject.toml
 demo: $(STAMP)
 	$(BIN)/assignplan solve examples/institute-week.json
 
-test: $(STAMP)
+# The report's browser test renders the HTML in headless Chromium (Debian packages chromium and
+# chromium-driver). Installed only when missing and only as root; elsewhere the test says why.
+CHROMIUM := /usr/bin/chromium
+CHROMEDRIVER := /usr/bin/chromedriver
+
+browser:
+	@if [ -x $(CHROMIUM) ] && [ -x $(CHROMEDRIVER) ]; then :; \
+	elif [ "$$(id -u)" = 0 ]; then \
+		apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium chromium-driver; \
+	else \
+		echo "browser: $(CHROMIUM) or $(CHROMEDRIVER) missing and not root: install chromium and chromium-driver to run the browser test" >&2; \
+	fi
+
+test: $(STAMP) browser
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)

@@ -20,10 +20,18 @@ def atomic_write(path: Path | str, write: Callable[[Path], None]) -> None:
     os.close(fd)
     try:
         write(Path(tmp))
+        # mkstemp makes the file private (0600); a plan or report is an ordinary file.
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def atomic_write_text(path: Path | str, text: str) -> None:
