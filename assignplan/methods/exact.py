@@ -25,7 +25,7 @@ STAGE2_SHARE_BEFORE_TIEBREAK = 2 / 3
 # take the whole limit for little gain.
 TIEBREAK_SHARE = 0.25
 
-_STATUS = {cp_model.OPTIMAL: "optimal", cp_model.FEASIBLE: "feasible"}
+_FOUND = (cp_model.OPTIMAL, cp_model.FEASIBLE)
 
 
 @dataclass
@@ -42,7 +42,7 @@ class _Model:
 
 
 def horizon(inst: Instance) -> int:
-    """A makespan every batch can meet: H = max(max_j ready_j, max maintenance end) + sum_j max_i d_ji.
+    """A makespan every batch can meet: H = max(max_j r_j, last maintenance end) + sum_j max_i d_ji.
 
     Why it is safe: from that minute on no node is ever in maintenance and every job is ready,
     so running the jobs one after another in a `follows` order, each on any eligible node,
@@ -54,14 +54,14 @@ def horizon(inst: Instance) -> int:
     return free_from + int(longest.sum())
 
 
-def _node_resources(inst: Instance, i: int, jobs: np.ndarray) -> list[int]:
-    """Resources that need a cumulative on node i.
+def _node_resources(inst: Instance, i: int, demand: np.ndarray) -> list[int]:
+    """Resources that need a cumulative on node i, given its eligible jobs' `demand` int64[k, 3].
 
     A resource can be skipped when the eligible jobs together never exceed the capacity;
     cores (every job needs >= 1) are kept whenever the node has maintenance, since the
     maintenance windows ride in the cumulatives.
     """
-    total = inst.demand[jobs].sum(axis=0)
+    total = demand.sum(axis=0)
     keep = [r for r in range(inst.capacity.shape[1]) if total[r] > inst.capacity[i, r]]
     has_maint = inst.maint_ptr[i + 1] > inst.maint_ptr[i]
     if has_maint and not keep:
@@ -69,14 +69,14 @@ def _node_resources(inst: Instance, i: int, jobs: np.ndarray) -> list[int]:
     return keep
 
 
-def build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> _Model:
+def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> _Model:
     """Data -> variables -> constraints of the model in DESIGN.md (no objective yet).
 
     x_ji in {0,1} for eligible (j, i), sum_i x_ji = 1; an optional interval
     [s_j, s_j + d_ji) present iff x_ji; per node and resource r:
     cumulative(intervals on i, demand_jr, capacity_ir) with each maintenance window as a fixed
-    interval demanding the full capacity; e_j = s_j + sum_i d_ji x_ji; s_j >= ready_j;
-    e_p <= s_j for p in follows(j); C_max >= e_j.
+    interval demanding the full capacity (plus an energy cut, see `_add_node_capacity`);
+    e_j = s_j + sum_i d_ji x_ji; s_j >= ready_j; e_p <= s_j for p in follows(j); C_max >= e_j.
     """
     # data
     n_jobs, n_nodes = inst.n_jobs, inst.n_nodes
@@ -87,52 +87,65 @@ def build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> _
     start = [m.new_int_var(int(inst.ready[j]), big, f"s{j}") for j in range(n_jobs)]
     end = [m.new_int_var(int(inst.ready[j]) + 1, big, f"e{j}") for j in range(n_jobs)]
     presence: list[dict[int, cp_model.IntVar]] = [{} for _ in range(n_jobs)]
-    on_node: list[list[tuple[int, cp_model.IntervalVar]]] = [[] for _ in range(n_nodes)]
+    # per node: its eligible jobs, their optional intervals and presence literals
+    node_jobs: list[list[int]] = [[] for _ in range(n_nodes)]
+    node_iv: list[list[cp_model.IntervalVar]] = [[] for _ in range(n_nodes)]
+    node_x: list[list[cp_model.IntVar]] = [[] for _ in range(n_nodes)]
     for j in range(n_jobs):
         for i in np.flatnonzero(inst.eligible[j]):
             i = int(i)
             x = m.new_bool_var(f"x{j}_{i}")
             presence[j][i] = x
-            iv = m.new_optional_fixed_size_interval_var(
-                start[j], int(inst.duration[j, i]), x, f"iv{j}_{i}"
-            )
-            on_node[i].append((j, iv))
+            node_jobs[i].append(j)
+            node_x[i].append(x)
+            node_iv[i].append(m.new_optional_fixed_size_interval_var(
+                start[j], int(inst.duration[j, i]), x, f"iv{j}_{i}"))
     makespan = m.new_int_var(0, big, "makespan")
 
     # constraints
     for j in range(n_jobs):
         m.add_exactly_one(presence[j].values())
-        m.add(end[j] == start[j] + sum(int(inst.duration[j, i]) * x
-                                       for i, x in presence[j].items()))
+        nodes = list(presence[j])
+        m.add(end[j] == start[j] + cp_model.LinearExpr.weighted_sum(
+            [presence[j][i] for i in nodes], [int(inst.duration[j, i]) for i in nodes]))
         for p in inst.predecessors(j):
             m.add(end[int(p)] <= start[j])
         m.add(makespan >= end[j])
     for i in range(n_nodes):
-        _add_node_capacity(m, inst, i, on_node[i])
+        _add_node_capacity(m, inst, i, node_jobs[i], node_iv[i], node_x[i], makespan)
 
     _add_hint(m, inst, hint, start, end, presence, makespan)
     return _Model(m, start, end, presence, makespan, *_secondary_objectives(m, inst, end, big))
 
 
-def _add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int,
-                       jobs_on: list[tuple[int, cp_model.IntervalVar]]) -> None:
-    """One cumulative per binding resource of node i, maintenance as full-capacity intervals."""
-    if not jobs_on:
+def _add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[int],
+                       intervals: list[cp_model.IntervalVar], x: list[cp_model.IntVar],
+                       makespan: cp_model.IntVar) -> None:
+    """Capacity of node i over its eligible `jobs` (their `intervals` and presences `x`).
+
+    cumulative(intervals + maintenance, demand_jr | capacity_ir, capacity_ir) per binding
+    resource r, and the redundant energy cut sum_j a_jr d_ji x_ji <= capacity_ir * C_max for
+    every demanded resource. The cut is implied but gives the LP relaxation the load of each
+    node, which the cumulatives over optional intervals do not: on random 80-200-job batches
+    it raised the proven bound within 10 s markedly (887 -> 3750 minutes on a 192-job one).
+    """
+    if not jobs:
         return
-    jobs = np.array([j for j, _ in jobs_on], dtype=np.int64)
     lo, hi = inst.maint_ptr[i], inst.maint_ptr[i + 1]
     maint = [
         m.new_fixed_size_interval_var(int(s), int(e - s), f"maint{i}_{k}")
         for k, (s, e) in enumerate(zip(inst.maint_start[lo:hi], inst.maint_end[lo:hi],
                                        strict=True))
     ]
-    for r in _node_resources(inst, i, jobs):
+    demand = inst.demand[jobs]
+    for r in _node_resources(inst, i, demand):
         cap = int(inst.capacity[i, r])
-        m.add_cumulative(
-            [iv for _, iv in jobs_on] + maint,
-            [int(inst.demand[j, r]) for j, _ in jobs_on] + [cap] * len(maint),
-            cap,
-        )
+        m.add_cumulative(intervals + maint, [int(a) for a in demand[:, r]] + [cap] * len(maint),
+                         cap)
+    work = demand * inst.duration[jobs, i].astype(np.int64)[:, None]
+    for r in np.flatnonzero(work.sum(axis=0) > 0):
+        m.add(cp_model.LinearExpr.weighted_sum(x, [int(a) for a in work[:, r]])
+              <= int(inst.capacity[i, r]) * makespan)
 
 
 def _secondary_objectives(m: cp_model.CpModel, inst: Instance, end: list, big: int
@@ -144,16 +157,17 @@ def _secondary_objectives(m: cp_model.CpModel, inst: Instance, end: list, big: i
     or of weight 0, can never add tardiness and get no variable.
     """
     w = np.rint(inst.weight * WEIGHT_SCALE).astype(np.int64)
-    terms = []
+    late, coef = [], []
     for j in range(inst.n_jobs):
         due = int(inst.due[j])
         if due == NO_DUE or due >= big or w[j] == 0:
             continue
-        t = m.new_int_var(0, big - due if big > due else 0, f"t{j}")
+        t = m.new_int_var(0, big - due, f"t{j}")
         m.add(t >= end[j] - due)
-        terms.append(int(w[j]) * t)
-    tardiness = sum(terms) if terms else None
-    completion = sum(int(w[j]) * end[j] for j in range(inst.n_jobs))
+        late.append(t)
+        coef.append(int(w[j]))
+    tardiness = cp_model.LinearExpr.weighted_sum(late, coef) if late else None
+    completion = cp_model.LinearExpr.weighted_sum(end, [int(x) for x in w])
     return tardiness, completion
 
 
@@ -229,10 +243,11 @@ def solve_exact(
 
     Stage 1 minimises C_max; stage 2 minimises T_w = sum_j w_j max(0, e_j - due_j) with
     C_max fixed (== if stage 1 was proven, else <= the best found); when both stages proved
-    optimal, a stage 3 (at most TIEBREAK_SHARE of the limit) minimises C_w = sum_j w_j e_j with T_w fixed,
-    which also starts jobs as early as the first two objectives allow.
-    Status "optimal" means C_max and T_w are both proven optimal. The result's lower bound is
-    max(lower_bound, ceil(stage-1 best_objective_bound)).
+    optimal, a stage 3 (at most TIEBREAK_SHARE of the limit) minimises C_w = sum_j w_j e_j with
+    T_w fixed, which also starts jobs as early as the first two objectives allow.
+    Status is "optimal" when C_max and T_w are both proven optimal, else "feasible" (no plan at
+    all raises SolveError). The result's lower bound is
+    max(lower_bound, ceil(stage-1 best_objective_bound)); `solver_bound` is the latter.
     """
     if inst.n_jobs > max_jobs and not force:
         raise InputError(
@@ -240,11 +255,13 @@ def solve_exact(
             " use --method ga, or --force to try anyway"
         )
     t0 = time.perf_counter()
-    mdl = build_model(inst, hint)
+    mdl = _build_model(inst, hint)
 
     mdl.model.minimize(mdl.makespan)
     solver, status = _run(mdl, STAGE1_SHARE * time_limit, workers, seed)
-    if status not in _STATUS:
+    if status == cp_model.INFEASIBLE:
+        raise SolveError("exact: internal error, the model is infeasible despite a safe horizon")
+    if status not in _FOUND:
         raise SolveError(
             f"exact: no plan found within {time_limit:g} s (status {solver.status_name(status)});"
             " try a longer --time-limit or --method ga"
@@ -260,13 +277,13 @@ def solve_exact(
         solver2, status = _next_stage(mdl, solver, done, proven, mdl.tardiness, share * left,
                                       workers, seed)
         proven = proven and status == cp_model.OPTIMAL
-        if status in _STATUS:
+        if status in _FOUND:
             solver, done, plan = solver2, mdl.tardiness, _read_plan(mdl, solver2)
     if proven:
         left = min(time_limit - (time.perf_counter() - t0), TIEBREAK_SHARE * time_limit)
         solver3, status = _next_stage(mdl, solver, done, True, mdl.completion, left,
                                       workers, seed)
-        if status in _STATUS:
+        if status in _FOUND:
             plan = _read_plan(mdl, solver3)
 
     assign, start, end = plan
