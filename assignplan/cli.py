@@ -5,12 +5,18 @@ from __future__ import annotations
 import functools
 import json
 import sys
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Annotated
 
 import typer
+from pydantic import ValidationError
+from rich.console import Console
+from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
-from assignplan.errors import AssignplanError
+from assignplan.errors import AssignplanError, InputError
+from assignplan.methods.ga.config import GAConfig
+from assignplan.model import HistoryRow
 
 app = typer.Typer(
     name="assignplan",
@@ -42,6 +48,67 @@ def reports_errors(command):
     return wrapper
 
 
+GA_DEFAULTS = GAConfig()
+GenerationsOpt = Annotated[int, typer.Option(help="ga: most generations.", min=0,
+                                             rich_help_panel="ga")]
+StagnationOpt = Annotated[int, typer.Option(
+    help="ga: stop after this many generations without a better plan.", min=1,
+    rich_help_panel="ga")]
+MuOpt = Annotated[int, typer.Option(help="ga: parents kept (μ).", min=2, rich_help_panel="ga")]
+LamOpt = Annotated[int, typer.Option(help="ga: offspring per generation (λ).", min=2,
+                                     rich_help_panel="ga")]
+CrossoverOpt = Annotated[str, typer.Option(help="ga: uniform | kpoint.", rich_help_panel="ga")]
+BiasOpt = Annotated[float, typer.Option(
+    help="ga: uniform crossover, chance a gene comes from the first parent.",
+    rich_help_panel="ga")]
+KpointsOpt = Annotated[int, typer.Option(help="ga: cut points of k-point crossover.", min=1,
+                                         rich_help_panel="ga")]
+MutationOpt = Annotated[str, typer.Option(
+    help="ga: symmetric | asymmetric (moves jobs off the busiest nodes more often).",
+    rich_help_panel="ga")]
+FlipsOpt = Annotated[float, typer.Option(
+    help="ga: expected bit flips per individual in its job x node matrix.",
+    rich_help_panel="ga")]
+TournamentOpt = Annotated[int, typer.Option(help="ga: tournament size.", min=1,
+                                            rich_help_panel="ga")]
+SurvivalOpt = Annotated[str, typer.Option(help="ga: plus = (μ+λ), comma = (μ,λ).",
+                                          rich_help_panel="ga")]
+LocalOpt = Annotated[bool, typer.Option(
+    help="ga: sharpen the best offspring by moves off the makespan node.",
+    rich_help_panel="ga")]
+
+
+def ga_config(**fields) -> GAConfig:
+    """Validate the ga options once; a bad value is an input error naming its option."""
+    try:
+        return GAConfig(**fields)
+    except ValidationError as err:
+        raise InputError([
+            f"--{str(e['loc'][0]).replace('_', '-') if e['loc'] else 'ga'}: {e['msg']}"
+            for e in err.errors()]) from None
+
+
+@contextmanager
+def progress_bar(enabled: bool, generations: int, bound_h: float):
+    """A rich progress bar on stderr fed by the ga's per-generation hook (None when hidden)."""
+    console = Console(stderr=True)
+    if not enabled or not console.is_terminal:
+        yield None
+        return
+    columns = (TextColumn("ga"), BarColumn(), TextColumn("gen {task.completed:,.0f}"),
+               TextColumn("best {task.fields[best]}"), TextColumn("bound gap {task.fields[gap]}"),
+               TimeElapsedColumn())
+    with Progress(*columns, console=console, transient=True) as progress:
+        task = progress.add_task("ga", total=generations, best="–", gap="–")
+
+        def tick(row: HistoryRow) -> None:
+            gap = 100 * (row.best_makespan_h - bound_h) / bound_h if bound_h > 0 else 0.0
+            progress.update(task, completed=row.generation, best=f"{row.best_makespan_h:.2f} h",
+                            gap=f"{gap:.2f} %")
+
+        yield tick
+
+
 BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jobs.",
                                           show_default=False)]
 
@@ -50,10 +117,10 @@ BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jo
 @reports_errors
 def solve(
     batch: BatchArg,
-    method: Annotated[str, typer.Option(help="greedy | exact")] = "greedy",
+    method: Annotated[str, typer.Option(help="ga | greedy | exact")] = "ga",
     seed: Annotated[int, typer.Option(help="Seed of the random generator.")] = 0,
     time_limit: Annotated[float, typer.Option(help="Seconds a search method may run.",
-                                              min=0.1)] = 60.0,
+                                              min=0.1)] = 30.0,
     out: Annotated[Path | None, typer.Option(help="Write the plan to this JSON file.")] = None,
     csv: Annotated[Path | None, typer.Option(
         help="Write jobs.csv, nodes.csv and summary.csv into this folder.")] = None,
@@ -65,6 +132,19 @@ def solve(
     report: Annotated[Path | None, typer.Option(
         help="Also write the HTML report of the plan to this file.")] = None,
     png: Annotated[Path | None, typer.Option(help="Also write each chart as PNG here.")] = None,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
+    generations: GenerationsOpt = GA_DEFAULTS.generations,
+    stagnation: StagnationOpt = GA_DEFAULTS.stagnation,
+    mu: MuOpt = GA_DEFAULTS.mu,
+    lam: LamOpt = GA_DEFAULTS.lam,
+    crossover: CrossoverOpt = GA_DEFAULTS.crossover,
+    crossover_bias: BiasOpt = GA_DEFAULTS.crossover_bias,
+    kpoints: KpointsOpt = GA_DEFAULTS.kpoints,
+    mutation: MutationOpt = GA_DEFAULTS.mutation,
+    mutation_flips: FlipsOpt = GA_DEFAULTS.mutation_flips,
+    tournament_size: TournamentOpt = GA_DEFAULTS.tournament_size,
+    survival: SurvivalOpt = GA_DEFAULTS.survival,
+    local_search: LocalOpt = GA_DEFAULTS.local_search,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.instance import build_instance
@@ -77,12 +157,22 @@ def solve(
     exports.check_output_dir(png, "--png")
     expanded = load_batch(batch)
     # The planning stack (numba, solvers) loads only once the input is known to be good.
+    from assignplan.bounds import lower_bound
     from assignplan.plan import to_plan_doc
     from assignplan.planner import solve as run
     from assignplan.report import stats, tables
 
+    config = ga_config(generations=generations, stagnation=stagnation, mu=mu, lam=lam,
+                       crossover=crossover, crossover_bias=crossover_bias, kpoints=kpoints,
+                       mutation=mutation, mutation_flips=mutation_flips,
+                       tournament_size=tournament_size, survival=survival,
+                       local_search=local_search)
     inst = build_instance(expanded)
-    result = run(inst, method, seed=seed, time_limit=time_limit, force=force)
+    bound = lower_bound(inst).value
+    with progress_bar(method == "ga" and not quiet and not as_json, config.generations,
+                      bound / 60) as tick:
+        result = run(inst, method, seed=seed, time_limit=time_limit, force=force,
+                     ga_config=config, on_generation=tick, bound=bound)
     summary = stats.summary(inst, result)
     nodes, jobs = stats.node_frame(inst, result), stats.job_frame(inst, result)
     if out is not None:

@@ -3,22 +3,37 @@
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import replace
 
 from assignplan.bounds import lower_bound
 from assignplan.errors import InputError
 from assignplan.instance import Instance
+from assignplan.methods.ga.config import GAConfig
+from assignplan.model import HistoryRow
 from assignplan.plan import PlanResult
 
-METHODS = ("greedy", "exact")
+METHODS = ("greedy", "ga", "exact")
 
 
 def solve(inst: Instance, method: str, *, seed: int = 0, time_limit: float = 60.0,
-          force: bool = False) -> PlanResult:
-    """Plan `inst` with `method`; the result carries the provable lower bound and its seconds."""
+          force: bool = False, ga_config: GAConfig | None = None,
+          on_generation: Callable[[HistoryRow], None] | None = None,
+          bound: int | None = None) -> PlanResult:
+    """Plan `inst` with `method`; the result carries the provable lower bound and its seconds.
+
+    `bound` is `bounds.lower_bound(inst).value` when the caller already has it.
+    """
     t0 = time.perf_counter()
-    bound = lower_bound(inst).value
-    if method == "greedy":
+    if bound is None:
+        bound = lower_bound(inst).value
+    if method == "ga":
+        from assignplan.methods.ga.engine import solve_ga
+
+        result = solve_ga(inst, config=ga_config or GAConfig(), lower_bound=bound, seed=seed,
+                          time_limit=max(0.0, time_limit - (time.perf_counter() - t0)),
+                          on_generation=on_generation)
+    elif method == "greedy":
         from assignplan.methods.greedy import solve_greedy
 
         result = solve_greedy(inst, lower_bound=bound)

@@ -101,3 +101,40 @@ def test_installed_entry_point_solves(tmp_path):
     check = subprocess.run([str(exe), "check", str(SMALL), str(tmp_path / "p.json")],
                            capture_output=True, text=True, timeout=300)
     assert check.returncode == 0 and "no violations" in check.stdout
+
+
+def test_ga_is_the_default_and_reproducible(tmp_path):
+    """Same batch + seed + options => byte-identical assignments in PLAN.json."""
+    args = [str(SMALL), "--generations", "40", "--seed", "7", "--quiet"]
+    first, second = tmp_path / "a.json", tmp_path / "b.json"
+    solve(*args, "--out", str(first))
+    solve(*args, "--out", str(second))
+    a, b = json.loads(first.read_text()), json.loads(second.read_text())
+    assert a["method"] == "ga" and a["seed"] == 7
+    assert json.dumps(a["assignments"]) == json.dumps(b["assignments"])
+    assert 0 < len(a["history"]) <= 41
+    assert {"generation", "best_makespan_h", "median_makespan_h"} <= a["history"][0].keys()
+    assert runner.invoke(app, ["check", str(SMALL), str(first)]).exit_code == 0
+
+
+def test_ga_options_are_validated():
+    result = runner.invoke(app, ["solve", str(SMALL), "--crossover", "halfway"])
+    assert result.exit_code == 2
+    assert "--crossover" in result.stderr and "Traceback" not in result.output
+    result = runner.invoke(app, ["solve", str(SMALL), "--crossover-bias", "1.5"])
+    assert result.exit_code == 2 and "--crossover-bias" in result.stderr
+
+
+def test_compare_small_has_three_rows_and_week_explains_skipped_exact():
+    small = runner.invoke(app, ["compare", str(SMALL), "--time-limit", "5", "--json"])
+    assert small.exit_code == 0, small.output
+    rows = {r["method"]: r for r in json.loads(small.stdout)}
+    assert set(rows) == {"greedy", "ga", "exact"}
+    for r in rows.values():
+        assert {"method", "makespan_h", "lower_bound_h", "gap_pct", "seconds", "status"} <= r.keys()
+    if rows["exact"]["status"] == "optimal":
+        assert rows["exact"]["makespan_h"] <= min(rows["ga"]["makespan_h"], rows["greedy"]["makespan_h"])
+    week = runner.invoke(app, ["compare", str(WEEK), "--time-limit", "3"])
+    assert week.exit_code == 0, week.output
+    assert "greedy" in week.stdout and "ga" in week.stdout
+    assert "exact: skipped: 482 jobs is above the exact method's limit of 300" in week.stdout

@@ -1,0 +1,49 @@
+"""Validated, frozen configuration of the genetic algorithm (defaults: see bench_ga.py)."""
+
+from __future__ import annotations
+
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+
+class GAConfig(BaseModel):
+    """Every knob of `solve_ga`; the defaults are the ones benchmarks/bench_ga.py settled on.
+
+    Mutation is set as ``mutation_flips``, the expected number of bit flips per individual
+    over its J x N assignment matrix: the per-bit rate is ``mutation_flips / (J * N)``
+    (see `mutation.bit_flip` for how many jobs that moves).
+    """
+
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
+
+    mu: int = Field(default=24, ge=2, le=10_000, description="Parents kept per generation.")
+    lam: int = Field(default=48, ge=2, le=10_000, description="Offspring per generation.")
+    crossover: Literal["uniform", "kpoint"] = "uniform"
+    crossover_bias: float = Field(default=0.5, gt=0.0, lt=1.0,
+                                  description="Uniform crossover: P(gene from first parent).")
+    kpoints: int = Field(default=2, ge=1, le=1_000, description="Cut points of k-point crossover.")
+    mutation: Literal["symmetric", "asymmetric"] = "symmetric"
+    mutation_flips: float = Field(default=6.0, gt=0.0, le=10_000.0,
+                                  description="Expected bit flips per individual.")
+    tournament_size: int = Field(default=3, ge=1, le=100)
+    survival: Literal["plus", "comma"] = "plus"
+    local_search: bool = True
+    local_evaluations: int = Field(
+        default=64, ge=1, le=10_000,
+        description="Trial plans the local step may score per generation.")
+    repair_fill: Literal["earliest", "random"] = "earliest"
+    repair_keep: Literal["random", "previous"] = "random"
+    generations: int = Field(default=2_000, ge=0, le=10_000_000)
+    stagnation: int = Field(default=300, ge=1, le=10_000_000,
+                            description="Stop after this many generations without a better best.")
+    greedy_variants: int = Field(default=8, ge=0, le=10_000,
+                                 description="Greedy plans from perturbed priority orders.")
+    order_noise: float = Field(default=0.3, ge=0.0, lt=1.0,
+                               description="Relative noise on hours for the greedy variants.")
+
+    @model_validator(mode="after")
+    def _comma_needs_enough_offspring(self) -> GAConfig:
+        if self.survival == "comma" and self.lam < self.mu:
+            raise ValueError(f"comma survival needs lam >= mu (lam={self.lam}, mu={self.mu})")
+        return self

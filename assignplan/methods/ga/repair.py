@@ -1,0 +1,163 @@
+"""Repair after variation: one 1 per row, only on an eligible node, overloaded nodes relieved."""
+
+from __future__ import annotations
+
+from typing import Literal
+
+import numpy as np
+
+from assignplan.instance import Instance
+from assignplan.methods.ga.encoding import EligibleIndex, Rows, job_share, node_load
+
+
+def repair(rows: Rows, inst: Instance, index: EligibleIndex, horizon: int | None, *,
+           fill: Literal["earliest", "random"], keep: Literal["random", "previous"],
+           rng: np.random.Generator) -> np.ndarray:
+    """int64[P, J]: a valid population from matrices that may hold 0 or several 1s per row.
+
+    1. 1s on nodes that cannot hold the job are cleared.
+    2. A row with several 1s keeps one: uniformly at random ("random") or its original 1
+       ("previous", a random one if it had none).
+    3. An empty row gets a node (`fill_rows`).
+    4. Nodes whose work cannot fit before `horizon` shed jobs (`shed_overload`); None skips it.
+    Idempotent: a valid population comes back unchanged unless step 4 can still move a job,
+    and step 4 runs to a fixed point.
+    """
+    base = rows.base.copy()
+    n_pop, n_jobs = base.shape
+    jobs = np.broadcast_to(np.arange(n_jobs), base.shape)
+    base[(base >= 0) & ~inst.eligible[jobs, np.maximum(base, 0)]] = -1
+    extra = rows.extra[inst.eligible[rows.extra[:, 1], rows.extra[:, 2]]]
+    assign = _keep_one(base, extra, keep=keep, rng=rng)
+    assign = fill_rows(assign, inst, index, fill=fill, rng=rng)
+    if horizon is not None:
+        assign = shed_overload(assign, inst, index, horizon, rng=rng)
+    return assign
+
+
+def _keep_one(base: np.ndarray, extra: np.ndarray, *, keep: str,
+              rng: np.random.Generator) -> np.ndarray:
+    """int64[P, J]: base with each row that has extra 1s reduced to one chosen 1."""
+    if len(extra) == 0:
+        return base
+    p, j = extra[:, 0], extra[:, 1]
+    has_base = base[p, j] >= 0
+    bp, bj = p[has_base], j[has_base]
+    cand = np.concatenate([extra, np.stack([bp, bj, base[bp, bj]], axis=1)])
+    key = rng.random(len(cand))
+    if keep == "previous":  # the original 1 wins its row whenever it is still there
+        key[len(extra):] = -1.0
+    row = cand[:, 0] * base.shape[1] + cand[:, 1]
+    first = np.lexsort((key, row))
+    _, at = np.unique(row[first], return_index=True)
+    chosen = cand[first[at]]
+    out = base.copy()
+    out[chosen[:, 0], chosen[:, 1]] = chosen[:, 2]
+    return out
+
+
+def fill_rows(assign: np.ndarray, inst: Instance, index: EligibleIndex, *,
+              fill: Literal["earliest", "random"], rng: np.random.Generator) -> np.ndarray:
+    """int64[P, J]: rows holding -1 get an eligible node.
+
+    "random": uniformly among the eligible nodes. "earliest": the eligible node i minimising
+    the estimated finish L_i + p_ji * share_ji (`encoding.node_load`; maintenance and waiting
+    ignored: a cheap estimate), rows filled one by one in job order so each sees the others.
+    """
+    p_empty, j_empty = np.nonzero(assign < 0)
+    if len(p_empty) == 0:
+        return assign
+    out = assign.copy()
+    if fill == "random":
+        out[p_empty, j_empty] = index.sample(j_empty, rng=rng)
+        return out
+    # an empty row is counted on its first eligible node, then taken off again
+    placed = np.where(out >= 0, out, index.idx[index.ptr[:-1]][None, :])
+    load = node_load(inst, placed)
+    load[p_empty, placed[p_empty, j_empty]] -= _work(inst, j_empty, placed[p_empty, j_empty])
+    for p, j in zip(p_empty.tolist(), j_empty.tolist(), strict=True):
+        nodes = index.nodes(j)
+        add = _work(inst, np.full(len(nodes), j), nodes)
+        k = int(np.argmin(load[p, nodes] + add))
+        out[p, j] = nodes[k]
+        load[p, nodes[k]] += add[k]
+    return out
+
+
+def _work(inst: Instance, jobs: np.ndarray, nodes: np.ndarray) -> np.ndarray:
+    """float64: p_ji * share_ji, the minutes job j adds to node i's estimated finish."""
+    return inst.duration[jobs, nodes] * job_share(inst, jobs, nodes)
+
+
+def available_minutes(inst: Instance, horizon: int) -> np.ndarray:
+    """int64[N]: minutes of [0, horizon) outside each node's maintenance windows."""
+    lost = np.clip(np.minimum(inst.maint_end, horizon) - inst.maint_start, 0, None)
+    node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
+    return horizon - np.bincount(node, weights=lost, minlength=inst.n_nodes).astype(np.int64)
+
+
+def resource_work(inst: Instance, assign: np.ndarray) -> np.ndarray:
+    """int64[P, N, 3]: W_pir = sum_{j: a_pj = i} d_jr * p_ji (resource-minutes per node)."""
+    n_pop, n_jobs = assign.shape
+    jobs = np.broadcast_to(np.arange(n_jobs), assign.shape)
+    dur = inst.duration[jobs, assign].astype(np.int64)
+    flat = (np.arange(n_pop)[:, None] * inst.n_nodes + assign).ravel()
+    out = np.empty((n_pop, inst.n_nodes, 3), dtype=np.int64)
+    for r in range(3):
+        w = (inst.demand[jobs, r] * dur).ravel()
+        out[:, :, r] = np.bincount(flat, weights=w, minlength=n_pop * inst.n_nodes).reshape(
+            n_pop, inst.n_nodes)
+    return out
+
+
+def shed_overload(assign: np.ndarray, inst: Instance, index: EligibleIndex, horizon: int, *,
+                  rng: np.random.Generator) -> np.ndarray:
+    """int64[P, J]: jobs moved off nodes that cannot finish their work by `horizon`.
+
+    Node i is overloaded when W_ir > cap_ir * A_i for some resource r (W from
+    `resource_work`, A_i = `available_minutes`): its jobs then cannot all end by the horizon,
+    whatever their order (work conservation), so the plan is already worse than one ending
+    there. Its jobs, in random order, move to the eligible node k with room
+    (W_k + d_j p_jk <= cap_k A_k for every r) and the lowest resulting max_r W_kr / (cap_kr A_k),
+    until it fits. Passes repeat until no job can move (a fixed point: total excess over the
+    limits strictly falls with each move).
+    """
+    limit = inst.capacity * available_minutes(inst, horizon)[:, None]  # int64[N, 3]
+    work = resource_work(inst, assign)
+    over = (work > limit[None]).any(axis=2)
+    if not over.any():
+        return assign
+    out = assign.copy()
+    scale = np.where(limit > 0, limit, 1).astype(np.float64)
+    for p in np.flatnonzero(over.any(axis=1)).tolist():
+        moved = True
+        while moved:
+            moved = False
+            for i in np.flatnonzero((work[p] > limit).any(axis=1)).tolist():
+                moved |= _shed_node(out[p], work[p], p, i, inst, index, limit, scale, rng=rng)
+    return out
+
+
+def _shed_node(row: np.ndarray, work: np.ndarray, p: int, i: int, inst: Instance,
+               index: EligibleIndex, limit: np.ndarray, scale: np.ndarray, *,
+               rng: np.random.Generator) -> bool:
+    """Move jobs off node i of one individual (row, work updated in place: they are this
+    function's private copies) until it fits; True if any job moved."""
+    moved = False
+    for j in rng.permutation(np.flatnonzero(row == i)).tolist():
+        nodes = index.nodes(j).astype(np.int64)
+        nodes = nodes[nodes != i]
+        add = inst.demand[j][None, :] * inst.duration[j, nodes].astype(np.int64)[:, None]
+        after = work[nodes] + add
+        room = (after <= limit[nodes]).all(axis=1)
+        if not room.any():
+            continue
+        fill_ratio = np.where(room, (after / scale[nodes]).max(axis=1), np.inf)
+        k = int(nodes[np.argmin(fill_ratio)])
+        work[i] -= inst.demand[j] * int(inst.duration[j, i])
+        work[k] += inst.demand[j] * int(inst.duration[j, k])
+        row[j] = k
+        moved = True
+        if not (work[i] > limit[i]).any():
+            break
+    return moved

@@ -1,0 +1,36 @@
+"""Parent selection: tournaments on the lexicographic fitness rank."""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def lex_rank(fitness: np.ndarray) -> np.ndarray:
+    """int64[P]: 0 for the best row of fitness float64[P, 3], lexicographic (makespan first).
+
+    Ties keep the lower index first, so ranks are a permutation of 0..P-1.
+    """
+    order = np.lexsort((np.arange(len(fitness)), fitness[:, 2], fitness[:, 1], fitness[:, 0]))
+    rank = np.empty(len(fitness), dtype=np.int64)
+    rank[order] = np.arange(len(fitness))
+    return rank
+
+
+def tournament(fitness: np.ndarray, n_select: int, size: int, *,
+               rng: np.random.Generator) -> np.ndarray:
+    """int64[n_select] indices: each the best of `size` individuals drawn with replacement."""
+    rank = lex_rank(fitness)
+    entrants = rng.integers(0, len(fitness), size=(n_select, size))
+    winner = np.argmin(rank[entrants], axis=1)
+    return entrants[np.arange(n_select), winner]
+
+
+def lex_less(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """bool[n]: row k of a (float64[n, 3]) is lexicographically strictly below b (float64[3])."""
+    a = np.atleast_2d(a)
+    less = np.zeros(len(a), dtype=bool)
+    tied = np.ones(len(a), dtype=bool)
+    for c in range(a.shape[1]):
+        less |= tied & (a[:, c] < b[c])
+        tied &= a[:, c] == b[c]
+    return less

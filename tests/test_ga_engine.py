@@ -1,0 +1,209 @@
+"""The ga loop: checker-clean plans never worse than greedy, reproducibility, known optima."""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from pydantic import ValidationError
+
+from assignplan.bounds import lower_bound
+from assignplan.check import check_plan
+from assignplan.methods.ga import GAConfig, run_island, solve_ga
+from assignplan.methods.ga.engine import greedy_variant_orders
+from assignplan.methods.greedy import greedy_assign
+from assignplan.plan import to_plan_doc
+from assignplan.schedule import evaluate_population
+from tests.strategies import batches, instance_of
+
+ROOT = Path(__file__).resolve().parents[1]
+SMALL = GAConfig(mu=8, lam=8, generations=15, local_evaluations=8, greedy_variants=2)
+
+
+def greedy_makespan(inst) -> int:
+    assign, start = greedy_assign(inst)
+    return int((start + inst.duration[np.arange(inst.n_jobs), assign]).max())
+
+
+def identical_whole_node(m: int, hours: list[float]) -> dict:
+    """P||Cmax: m identical nodes, every job takes a whole node (runs alone)."""
+    return {"window": {"start": "2026-12-07T00:00:00", "hours": 168.0},
+            "nodes": [{"name": "m", "count": m, "cores": 4, "memory_gib": 8.0}],
+            "jobs": [{"name": f"j{k}", "cores": 4, "memory_gib": 1.0, "hours": float(h)}
+                     for k, h in enumerate(hours)]}
+
+
+@pytest.mark.slow
+@settings(max_examples=100, deadline=None)
+@given(batches(max_jobs=14, p_follows=0.3, p_maintenance=0.5))
+def test_every_ga_plan_passes_the_checker_and_is_no_worse_than_greedy(d):
+    batch, inst = instance_of(d)
+    bound = lower_bound(inst).value
+    res = solve_ga(inst, config=SMALL, lower_bound=bound, seed=0, time_limit=60.0)
+    assert check_plan(batch, to_plan_doc(inst, res)) == []
+    assert bound <= res.makespan <= greedy_makespan(inst)
+    assert res.method == "ga" and res.seed == 0 and res.history
+
+
+OTHER = GAConfig(mu=6, lam=8, generations=10, local_evaluations=4, greedy_variants=1,
+                crossover="kpoint", kpoints=3, mutation="asymmetric", mutation_flips=20.0,
+                survival="comma", repair_fill="random", repair_keep="previous",
+                local_search=False)
+
+
+@pytest.mark.slow
+@settings(max_examples=30, deadline=None)
+@given(batches(max_jobs=14, p_follows=0.3, p_maintenance=0.5))
+def test_the_optional_operators_also_give_checked_plans_no_worse_than_greedy(d):
+    batch, inst = instance_of(d)
+    res = solve_ga(inst, config=OTHER, lower_bound=0, seed=5, time_limit=60.0)
+    assert check_plan(batch, to_plan_doc(inst, res)) == []
+    assert res.makespan <= greedy_makespan(inst)
+
+
+@pytest.mark.parametrize("m", [2, 3, 4, 5])
+def test_graham_lpt_family_reaches_the_optimum(m):
+    # R. L. Graham, "Bounds on multiprocessing timing anomalies", SIAM J. Appl. Math. 17(2),
+    # 1969: hours 2m-1, 2m-1, ..., m+1, m+1, m, m, m on m machines; LPT gives 4m-1, OPT 3m
+    hours = [h for v in range(2 * m - 1, m, -1) for h in (v, v)] + [m, m, m]
+    _, inst = instance_of(identical_whole_node(m, hours))
+    assert greedy_makespan(inst) == (4 * m - 1) * 60
+    res = solve_ga(inst, config=GAConfig(generations=200), lower_bound=lower_bound(inst).value,
+                   seed=1, time_limit=600.0)
+    assert res.makespan == 3 * m * 60
+
+
+@pytest.mark.slow
+def test_same_batch_seed_and_config_give_the_same_plan():
+    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 2)))
+    cfg = GAConfig(generations=25, mutation="asymmetric")
+    runs = [solve_ga(inst, config=cfg, lower_bound=0, seed=7, time_limit=600.0)
+            for _ in range(2)]
+    assert np.array_equal(runs[0].assign, runs[1].assign)
+    assert np.array_equal(runs[0].start, runs[1].start)
+    docs = [json.dumps([a.model_dump() for a in to_plan_doc(inst, r).assignments])
+            for r in runs]
+    assert docs[0] == docs[1]
+    assert [h.model_dump() for h in runs[0].history] == [h.model_dump() for h in runs[1].history]
+    other = solve_ga(inst, config=cfg, lower_bound=0, seed=8, time_limit=600.0)
+    assert [h.evaluations for h in other.history] != [h.evaluations for h in runs[0].history]
+
+
+def test_history_hook_and_stopping_rules():
+    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 1)))
+    rows = []
+    res = solve_ga(inst, config=GAConfig(generations=12, stagnation=1000), lower_bound=0,
+                   seed=3, time_limit=600.0, on_generation=rows.append)
+    assert rows == res.history and [r.generation for r in rows] == list(range(13))
+    best = [r.best_makespan_h for r in rows]
+    assert best == sorted(best, reverse=True)  # elitism: the best never gets worse
+    assert all(r.median_makespan_h >= r.best_makespan_h for r in rows)
+    assert all(b.evaluations > a.evaluations for a, b in zip(rows, rows[1:], strict=False))
+    assert res.makespan == round(best[-1] * 60)
+    stalled = solve_ga(inst, config=GAConfig(generations=10_000, stagnation=3), lower_bound=0,
+                       seed=3, time_limit=600.0)
+    assert len(stalled.history) < 10_000
+    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 1, True)))
+    assert not np.any(inst.due != inst.due.max())  # no due times: tardiness is always 0
+    at_bound = solve_ga(inst, config=GAConfig(generations=10_000), seed=3, time_limit=600.0,
+                        lower_bound=greedy_makespan(inst))
+    assert len(at_bound.history) == 1  # greedy already meets the given bound
+
+
+def test_custom_evaluate_is_the_only_scorer_of_the_population():
+    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 4)))
+    calls = []
+
+    def counting(assign2d, order):
+        calls.append(len(assign2d))
+        return evaluate_population(inst, assign2d, order)
+
+    res = solve_ga(inst, config=GAConfig(generations=5), lower_bound=0, seed=0,
+                   time_limit=600.0, evaluate=counting)
+    assert sum(calls) == res.history[-1].evaluations
+
+
+def test_run_island_takes_migrants_and_returns_the_population_best_first():
+    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 6)))
+    assign, _ = greedy_assign(inst)
+    migrants = np.stack([assign, assign])
+    pop, fit, order, history = run_island(
+        inst, GAConfig(mu=6, lam=6, generations=3), rng=np.random.default_rng(0),
+        evaluate=lambda a, o: evaluate_population(inst, a, o), lower_bound=0,
+        deadline=float("inf"), migrants_in=migrants)
+    assert pop.shape == (6, inst.n_jobs) and len(history) == 4
+    assert np.array_equal(fit, evaluate_population(inst, pop, order))
+    assert np.all(np.diff(fit[:, 0]) >= 0)
+
+
+def test_greedy_variant_orders_respect_follows():
+    d = _generate().generate("small", 3)  # pipelines and sweep/gather groups
+    _, inst = instance_of(d)
+    assert len(inst.pred_idx) > 0
+    orders = greedy_variant_orders(inst, 6, 0.5, rng=np.random.default_rng(0))
+    succ = np.repeat(np.arange(inst.n_jobs), np.diff(inst.pred_ptr))
+    for order in orders:
+        pos = np.empty(inst.n_jobs, dtype=np.int64)
+        pos[order] = np.arange(inst.n_jobs)
+        assert np.all(pos[inst.pred_idx] < pos[succ])
+    assert len({o.tobytes() for o in orders}) == 6
+
+
+def test_config_is_validated_and_frozen():
+    with pytest.raises(ValidationError):
+        GAConfig(mu=1)
+    with pytest.raises(ValidationError):
+        GAConfig(crossover="one-point")
+    with pytest.raises(ValidationError):
+        GAConfig(populaton=10)  # a typo is an error, not ignored
+    with pytest.raises(ValidationError):
+        GAConfig(survival="comma", mu=10, lam=5)
+    cfg = GAConfig()
+    with pytest.raises(ValidationError):
+        cfg.mu = 3
+
+
+# ------------------------------------------------------------------ known-optimum batches
+
+
+def _generate():
+    spec = importlib.util.spec_from_file_location("bench_generate",
+                                                  ROOT / "benchmarks" / "generate.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def _known_optimum(seed: int):
+    gen = _generate()
+    d = gen.generate("small", seed, known_optimum=True)
+    batch, inst = instance_of(gen.batch_doc(d))
+    return batch, inst, round(d["_known_optimum_h"] * 60)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_known_optimum_small_batches(seed):
+    # optimum known by construction (benchmarks/generate.py: each node's cores x [0, H)
+    # rectangle cut into the jobs, so H is both attained and a work bound)
+    batch, inst, opt = _known_optimum(seed)
+    res = solve_ga(inst, config=GAConfig(generations=60), lower_bound=lower_bound(inst).value,
+                   seed=0, time_limit=600.0)
+    assert check_plan(batch, to_plan_doc(inst, res)) == []
+    # measured (seed 0, 60 generations): 3002 / 4196 / 4052 against optima 2802 / 3852 / 3777
+    # and greedy 3010 / 4205 / 4052: better than greedy on two of the three, never worse
+    assert opt <= res.makespan <= greedy_makespan(inst)
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(strict=True, reason="target missed: ga ends ~7 % above the known optimum "
+                   "(decoder packs each node by a fixed longest-first order; see RESULTS.md)")
+def test_known_optimum_small_batch_within_one_percent():
+    batch, inst, opt = _known_optimum(1)
+    res = solve_ga(inst, config=GAConfig(generations=150), lower_bound=opt, seed=0,
+                   time_limit=600.0)
+    assert res.makespan <= 1.01 * opt, (res.makespan, opt)
