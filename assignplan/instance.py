@@ -13,7 +13,6 @@ import numpy as np
 
 from assignplan.model import (
     ExpandedBatch,
-    can_hold,
     ceil_minutes,
     duration_minutes,
     floor_minutes,
@@ -182,10 +181,3 @@ def _eligibility(batch: ExpandedBatch, capacity: np.ndarray, demand: np.ndarray)
             by_needs[job.needs] = np.array([job.needs <= n.tags for n in batch.nodes])
         eligible[jj] &= by_needs[job.needs]
     return eligible
-
-
-def check_consistent(batch: ExpandedBatch, inst: Instance) -> None:
-    """Debug aid for tests: the vectorised eligibility agrees with the model's `can_hold`."""
-    for jj, job in enumerate(batch.jobs):
-        for ii, node in enumerate(batch.nodes):
-            assert inst.eligible[jj, ii] == can_hold(node, job)
