@@ -18,6 +18,7 @@ from assignplan.instance import Instance
 from assignplan.methods.exact import horizon, solve_exact
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import PlanResult, make_result, objective, to_plan_doc
+from benchmarks.reductions import bin_packing_batch, read_bpp
 from tests.strategies import instance_of, random_batch_doc
 
 DATA = Path(__file__).parent / "data"
@@ -363,3 +364,18 @@ def test_result_bound_is_the_larger_one_and_seed_is_recorded():
     res = solve_exact(inst, lower_bound=60, time_limit=5.0, workers=1, seed=7)
     assert (res.makespan, res.solver_bound, res.lower_bound) == (120, 120, 120)
     assert (res.gap_pct, res.seed, res.method) == (0.0, 7, "exact")
+
+
+def test_exact_never_worse_than_its_hint_even_when_out_of_time():
+    """Falkenauer u120_00 on 48 nodes of 150 cores (E. Falkenauer, J. Heuristics 2, 1996, via
+    BPPLIB): CP-SAT finds no plan of its own in a split second, so the greedy hint's plan
+    stands, decoded by the builder; it is feasible and never worse than greedy."""
+    data = Path(__file__).parent / "data" / "reference" / "binpacking"
+    batch, inst = instance_of(bin_packing_batch(read_bpp(data / "Falkenauer_u120_00.txt"), 48))
+    bound = lower_bound(inst).value
+    greedy = solve_greedy(inst, lower_bound=bound)
+    res = solve_exact(inst, lower_bound=bound, time_limit=0.05, hint=greedy_assign(inst),
+                      workers=1)
+    assert res.method == "exact" and res.status == "feasible"
+    assert res.makespan <= greedy.makespan
+    assert check_plan(batch, to_plan_doc(inst, res)) == []

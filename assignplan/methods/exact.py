@@ -4,14 +4,15 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from ortools.sat.python import cp_model
 
 from assignplan.errors import InputError, SolveError
 from assignplan.instance import NO_DUE, Instance
-from assignplan.plan import PlanResult, make_result
+from assignplan.plan import PlanResult, make_result, objective
+from assignplan.schedule import schedule_result
 
 # CP-SAT objectives are integers: float job weights are scaled by this and rounded, so weights
 # are honoured to 1/1000 (the plan's reported objective is recomputed from the float weights).
@@ -256,11 +257,18 @@ def solve_exact(
         )
     t0 = time.perf_counter()
     mdl = _build_model(inst, hint)
+    # Our bound is provable for every plan, so it is a valid cut; it lets the solver stop as
+    # soon as it meets the bound instead of proving it again.
+    mdl.model.add(mdl.makespan >= int(lower_bound))
 
     mdl.model.minimize(mdl.makespan)
     solver, status = _run(mdl, STAGE1_SHARE * time_limit, workers, seed)
     if status == cp_model.INFEASIBLE:
         raise SolveError("exact: internal error, the model is infeasible despite a safe horizon")
+    fallback = _hint_result(inst, hint, lower_bound, seed)
+    if status not in _FOUND and fallback is not None:
+        # CP-SAT may not complete even a good hint in a short limit; the hint's plan stands.
+        return replace(fallback, seconds=time.perf_counter() - t0)
     if status not in _FOUND:
         raise SolveError(
             f"exact: no plan found within {time_limit:g} s (status {solver.status_name(status)});"
@@ -294,4 +302,22 @@ def solve_exact(
     )
     if not np.array_equal(result.end, end):
         raise SolveError("exact: internal error, solver end times disagree with the durations")
+    if fallback is not None and (objective(inst, fallback.end)[:2]
+                                 < objective(inst, result.end)[:2]):
+        return replace(fallback, lower_bound=result.lower_bound, seconds=result.seconds,
+                       solver_bound=solver_bound)
     return result
+
+
+def _hint_result(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None, lower_bound: int,
+                 seed: int) -> PlanResult | None:
+    """The hint's assignment decoded by the schedule builder (a feasible plan by construction),
+    or None when there is no usable hint. Exact falls back to it when the solver returns
+    nothing, or something worse, within its limit: never worse than the plan it was given."""
+    if hint is None:
+        return None
+    try:
+        return schedule_result(inst, hint[0], "exact", int(lower_bound), status="feasible",
+                               seed=seed)
+    except ValueError:  # a job on a node that cannot hold it: not a plan, only a hint
+        return None
