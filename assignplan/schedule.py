@@ -13,18 +13,27 @@ from assignplan.instance import Instance
 from assignplan.plan import PlanResult, make_result
 
 
+JUSTIFY_ROUNDS = 3  # forward-backward rounds at most; most of the gain comes in the first
+# Below this many job placements (individuals x jobs) a call runs on one thread: waking numba's
+# pool costs milliseconds on a busy machine, more than building a few hundred-job plans.
+SERIAL_BELOW = 20_000
+
+
 def check_order(inst: Instance, order: np.ndarray | None) -> np.ndarray:
-    """`order` (default inst.order) as int64[J], checked to be a permutation respecting follows."""
+    """`order` (default inst.order) as int64[J] (or int64[P, J], one order per individual),
+    checked: each row a permutation of the jobs that respects follows."""
     if order is None:
         return inst.order
     order = np.ascontiguousarray(order, dtype=np.int64)
     n = inst.n_jobs
-    if order.shape != (n,) or not np.array_equal(np.sort(order), np.arange(n)):
+    rows = order.reshape(-1, n) if order.ndim in (1, 2) and order.shape[-1] == n else None
+    if rows is None or not np.array_equal(np.sort(rows, axis=1),
+                                          np.broadcast_to(np.arange(n), rows.shape)):
         raise ValueError(f"order must be a permutation of the {n} job indices")
-    pos = np.empty(n, dtype=np.int64)
-    pos[order] = np.arange(n)
+    pos = np.empty_like(rows)
+    np.put_along_axis(pos, rows, np.arange(n)[None, :], axis=1)
     succ = np.repeat(np.arange(n), np.diff(inst.pred_ptr))
-    if np.any(pos[inst.pred_idx] >= pos[succ]):
+    if np.any(pos[:, inst.pred_idx] >= pos[:, succ]):
         raise ValueError("order puts a job before a job it follows")
     return order
 
@@ -41,49 +50,77 @@ def check_assign(inst: Instance, assign: np.ndarray) -> np.ndarray:
     return assign
 
 
-def _run(inst: Instance, assign2d: np.ndarray, order: np.ndarray,
-         keep_starts: bool) -> tuple[np.ndarray, np.ndarray]:
+def _run(inst: Instance, assign2d: np.ndarray, order: np.ndarray, keep_starts: bool,
+         justify: bool, spread: bool = False) -> tuple[np.ndarray, np.ndarray]:
     n_pop = assign2d.shape[0]
     start = np.empty((n_pop, inst.n_jobs if keep_starts else 0), dtype=np.int64)
-    fitness = np.empty((n_pop, 3), dtype=np.float64)
-    kernels.sgs_population(
-        assign2d, order, inst.demand, inst.duration, inst.ready, inst.due, inst.weight,
-        inst.pred_ptr, inst.pred_idx, inst.capacity, inst.maint_ptr, inst.maint_start,
-        inst.maint_end, start, fitness,
+    fitness = np.empty((n_pop, 4 if spread else 3), dtype=np.float64)
+    serial = n_pop * inst.n_jobs < SERIAL_BELOW
+    if order.ndim == 1 and not justify and not spread:  # the plain path, without the extras
+        kernel = kernels.sgs_population_serial if serial else kernels.sgs_population
+        kernel(
+            assign2d, order, inst.demand, inst.duration, inst.ready, inst.due, inst.weight,
+            inst.pred_ptr, inst.pred_idx, inst.capacity, inst.maint_ptr, inst.maint_start,
+            inst.maint_end, start, fitness,
+        )
+        return start, fitness
+    if order.ndim == 2 and order.shape[0] != n_pop:
+        raise ValueError(f"order has {order.shape[0]} rows, the population {n_pop}")
+    kernel = (kernels.sgs_population_justified_serial if serial
+              else kernels.sgs_population_justified)
+    kernel(
+        assign2d, order.reshape(-1, inst.n_jobs), inst.demand, inst.duration, inst.ready,
+        inst.due, inst.weight, inst.pred_ptr, inst.pred_idx, inst.succ_ptr, inst.succ_idx,
+        inst.capacity, inst.maint_ptr, inst.maint_start, inst.maint_end,
+        JUSTIFY_ROUNDS if justify else 0, start, fitness,
     )
     return start, fitness
 
 
-def build_schedule(inst: Instance, assign: np.ndarray,
-                   order: np.ndarray | None = None) -> np.ndarray:
+def build_schedule(inst: Instance, assign: np.ndarray, order: np.ndarray | None = None, *,
+                   justify: bool = False) -> np.ndarray:
     """Start minute int64[J] of every job for node assignment int64[J] (serial SGS).
 
     Jobs go in `order` (default inst.order); each starts at the earliest minute
     s >= max(ready_j, max end of its predecessors) at which its node has the job's cores,
     memory and GPUs free throughout [s, s + duration) and no maintenance window meets it.
+    With `justify`, the schedule then goes through up to JUSTIFY_ROUNDS rounds of
+    forward-backward improvement (`kernels._justify`): makespan never higher, and the
+    lexicographically best schedule seen is returned.
     """
     assign = check_assign(inst, assign)
-    start, _ = _run(inst, assign[None, :], check_order(inst, order), keep_starts=True)
+    order = check_order(inst, order)
+    if order.ndim != 1:
+        raise ValueError("build_schedule takes one order int64[J]")
+    start, _ = _run(inst, assign[None, :], order, keep_starts=True, justify=justify)
     return start[0]
 
 
 def evaluate_population(inst: Instance, assign2d: np.ndarray,
-                        order: np.ndarray | None = None) -> np.ndarray:
+                        order: np.ndarray | None = None, *, justify: bool = False,
+                        spread: bool = False) -> np.ndarray:
     """Fitness float64[P, 3] of assignments int64[P, J], in minutes (see `plan.objective`).
 
     Columns: makespan max_j C_j, weighted tardiness sum_j w_j max(0, C_j - d_j) (jobs with a
     due time), weighted completion sum_j w_j C_j; lower is better, lexicographically.
+    `order`: int64[J] shared, or int64[P, J] one decoding order per individual.
+    `justify`: score the forward-backward improved schedule (see `build_schedule`).
+    `spread`: add a fourth column, sum_i F_i^2 over the nodes' finish times F_i (minutes^2),
+    a tie-break for plans of equal makespan (not part of the objective).
     Individuals are built in parallel (numba threads).
     """
     assign2d = check_assign(inst, assign2d)
     if assign2d.ndim != 2:
         raise ValueError("population must be a 2-D array [pop_size, n_jobs]")
-    _, fitness = _run(inst, assign2d, check_order(inst, order), keep_starts=False)
+    _, fitness = _run(inst, assign2d, check_order(inst, order), keep_starts=False,
+                      justify=justify, spread=spread)
     return fitness
 
 
 def schedule_result(inst: Instance, assign: np.ndarray, method: str, lower_bound: int,
-                    order: np.ndarray | None = None, **kw) -> PlanResult:
-    """The PlanResult of an assignment: its SGS start times, end times and the given bound."""
-    start = build_schedule(inst, assign, order)
+                    order: np.ndarray | None = None, *, justify: bool = False,
+                    **kw) -> PlanResult:
+    """The PlanResult of an assignment: its SGS start times (forward-backward improved with
+    `justify`, exactly as `evaluate_population` scored them), end times and the given bound."""
+    start = build_schedule(inst, assign, order, justify=justify)
     return make_result(inst, method, assign, start, lower_bound, **kw)

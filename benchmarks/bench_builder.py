@@ -110,10 +110,11 @@ def machine_note() -> str:
             f"numba {numba.__version__} (threading layer {numba.threading_layer()})")
 
 
-def write_section(text: str, path: Path) -> None:
-    """Replace (or append) our section of RESULTS.md, leaving every other section untouched."""
+def write_section(text: str, path: Path, section: str = SECTION) -> None:
+    """Replace (or append) the section headed `section` of RESULTS.md, leaving every other
+    section untouched."""
     old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
-    head, found, tail = old.partition(SECTION)
+    head, found, tail = old.partition(section)
     if found:
         nxt = tail.find("\n## ")
         tail = tail[nxt + 1:] if nxt >= 0 else ""

@@ -6,6 +6,8 @@ Each case runs in its own child process, so its peak resident memory (getrusage 
 its own. Prints a markdown table and writes it as the section "## Genetic algorithm" of
 benchmarks/RESULTS.md (that section only). Numbers, not asserts: they depend on the machine.
 A case name is <scale>-<seed> (heterogeneous batch) or <scale>-<seed>-opt (known optimum).
+While exploring, BENCH_LIMITS="15,25,60" (small, medium, large seconds) shortens the runs;
+use it with --no-write, the written table states the default limits.
 """
 
 from __future__ import annotations
@@ -34,6 +36,8 @@ COMMAND = ".venv/bin/python benchmarks/bench_ga.py"
 CASES = ("small-1,small-2,small-3,small-1-opt,small-2-opt,medium-1,medium-2,medium-3,"
          "medium-1-opt,medium-2-opt,large-1")
 LIMITS = {"small": 20.0, "medium": 60.0, "large": 120.0}  # seconds per ga run
+if os.environ.get("BENCH_LIMITS"):  # exploring: "small,medium,large" seconds
+    LIMITS = dict(zip(LIMITS, map(float, os.environ["BENCH_LIMITS"].split(",")), strict=True))
 
 
 def run_case(name: str, seed: int, config_json: str) -> dict:
@@ -117,7 +121,7 @@ def main(argv: list[str] | None = None) -> int:
         f"(load average {load}); Python {platform.python_version()}, numpy {np.__version__}.",
         "",
     ])
-    write_section(text, HERE / "RESULTS.md")
+    write_section(text, HERE / "RESULTS.md", SECTION)
     return 0
 
 

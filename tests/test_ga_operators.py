@@ -14,6 +14,9 @@ from assignplan.methods.ga.encoding import (
     random_population,
     to_matrix,
 )
+from assignplan.instance import priority_order
+from assignplan.methods.ga.engine import plateau_key
+from assignplan.methods.ga.order_keys import cross_keys, orders_from_keys, perturb_keys
 from assignplan.methods.ga.repair import available_minutes, repair, resource_work, shed_overload
 from assignplan.methods.ga.selection import lex_less, lex_rank, tournament
 from tests.strategies import instance_of, random_batch_doc
@@ -269,3 +272,61 @@ def test_comma_survival_replaces_parents_but_keeps_the_elite():
     better[2, 0] = 4
     new_pop, _ = survival.comma(pop, fit, off, better, 2)
     assert new_pop.tolist() == [[4], [2]]  # no parent survives when an offspring is better
+
+
+def test_lex_rank_takes_any_number_of_columns():
+    fit = np.array([[1.0, 5.0, 2.0, 0.0], [1.0, 5.0, 1.0, 9.0], [0.0, 9.0, 9.0, 9.0]])
+    assert list(lex_rank(fit)) == [2, 1, 0]
+    assert list(lex_less(fit, np.array([1.0, 5.0, 2.0, 0.0]))) == [False, True, True]
+
+
+# ----------------------------------------------------------------------------- order keys
+
+
+def test_orders_from_keys_are_priority_orders_respecting_follows():
+    rng = np.random.default_rng(4)
+    _, inst = instance_of(random_batch_doc(rng, max_jobs=20, p_follows=0.5))
+    keys = rng.lognormal(0.0, 1.0, size=(6, inst.n_jobs))
+    keys[0] = 1.0
+    orders = orders_from_keys(inst, keys)
+    np.testing.assert_array_equal(orders[0], inst.order)
+    succ = np.repeat(np.arange(inst.n_jobs), np.diff(inst.pred_ptr))
+    for k, order in zip(keys, orders, strict=True):
+        np.testing.assert_array_equal(order, priority_order(
+            inst.hours * k, inst.pred_ptr, inst.pred_idx, inst.succ_ptr, inst.succ_idx))
+        pos = np.empty(inst.n_jobs, dtype=np.int64)
+        pos[order] = np.arange(inst.n_jobs)
+        assert np.all(pos[inst.pred_idx] < pos[succ])
+
+
+def test_keys_follow_the_crossover_and_perturbation_is_small_and_positive():
+    rng = np.random.default_rng(2)
+    a, b = rng.integers(0, 4, size=(2, 50, 30))
+    ka, kb = rng.uniform(0.5, 2.0, size=(2, 50, 30))
+    child = crossover.uniform(a, b, 0.5, rng=rng)
+    ck = cross_keys(child, a, b, ka, kb)
+    assert np.all(ck[child == a] == ka[child == a])
+    assert np.all(ck[child != a] == kb[child != a])
+    before = ck.copy()
+    pk = perturb_keys(ck, 0.1, 0.3, rng=rng)
+    np.testing.assert_array_equal(ck, before)  # input untouched
+    changed = (pk != ck).mean()
+    assert 0.05 < changed < 0.15 and np.all(pk > 0)
+
+
+def test_plateau_key_prefers_balanced_nodes_and_keeps_the_objective():
+    inst = hetero_instance(3)
+    pop = random_population(inst, 5, EligibleIndex.of(inst), rng=np.random.default_rng(0))
+    fit = np.arange(15, dtype=np.float64).reshape(5, 3)
+    key = plateau_key(inst, pop, fit)
+    np.testing.assert_array_equal(key[:, [0, 1, 3]], fit)
+    load = node_load(inst, pop)
+    np.testing.assert_allclose(key[:, 2], (load**2).sum(axis=1) / load.sum(axis=1))
+    # two equal whole-node jobs on two equal nodes: the even split scores lower than piling
+    # both on one node, at the same (makespan, tardiness)
+    _, two = instance_of({"window": {"start": "2026-12-07T00:00:00", "hours": 168.0},
+                          "nodes": [{"name": "m", "count": 2, "cores": 4, "memory_gib": 8.0}],
+                          "jobs": [{"name": "j", "count": 2, "cores": 4, "memory_gib": 1.0,
+                                    "hours": 1.0}]})
+    key = plateau_key(two, np.array([[0, 0], [0, 1]]), np.zeros((2, 3)))
+    assert key[1, 2] < key[0, 2]

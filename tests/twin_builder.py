@@ -13,9 +13,11 @@ at s and at every placed start inside (s, s + dur) checks every minute.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
-from assignplan.instance import Instance
+from assignplan.instance import NO_DUE, Instance
 
 
 def _fits(placed: list[tuple[int, int, int, int, int]], windows: list[tuple[int, int]],
@@ -95,3 +97,55 @@ def twin_greedy(inst: Instance, order: np.ndarray | None = None) -> tuple[np.nda
         placed[i].append((s, e, *map(int, inst.demand[j])))
         assign[j], start[j], end[j] = i, s, e
     return assign, start
+
+
+def twin_fitness(inst: Instance, assign: np.ndarray, start: np.ndarray
+                 ) -> tuple[float, float, float]:
+    """(makespan, weighted tardiness, weighted completion), summed over jobs by index like the
+    kernel, so equal schedules give bit-equal floats."""
+    mk, tard, compl = 0, 0.0, 0.0
+    for j in range(inst.n_jobs):
+        c = int(start[j]) + int(inst.duration[j, assign[j]])
+        mk = max(mk, c)
+        if inst.due[j] != NO_DUE and c > inst.due[j]:
+            tard += inst.weight[j] * (c - int(inst.due[j]))
+        compl += inst.weight[j] * c
+    return float(mk), tard, compl
+
+
+def _mirrored(inst: Instance, horizon: int) -> Instance:
+    """The batch seen backwards from `horizon` (t' = horizon - t): windows mirrored and cut at
+    0 (empty ones dropped), successors as predecessors, no ready times."""
+    windows = [sorted((max(horizon - b, 0), horizon - a) for a, b in ws if horizon - a > 0
+                      and horizon - a > max(horizon - b, 0))
+               for ws in _windows(inst)]
+    ptr = np.zeros(inst.n_nodes + 1, dtype=np.int64)
+    ptr[1:] = np.cumsum([len(w) for w in windows])
+    return replace(inst, ready=np.zeros(inst.n_jobs, dtype=np.int64),
+                   pred_ptr=inst.succ_ptr, pred_idx=inst.succ_idx, maint_ptr=ptr,
+                   maint_start=np.array([a for w in windows for a, _ in w], dtype=np.int64),
+                   maint_end=np.array([b for w in windows for _, b in w], dtype=np.int64))
+
+
+def twin_justify(inst: Instance, assign: np.ndarray, order: np.ndarray | None = None,
+                 rounds: int = 3) -> np.ndarray:
+    """Forward-backward improvement: backward SGS on the mirrored batch (jobs by latest end
+    first), forward SGS by earliest backward start; ties by job index; keep the
+    lexicographically best schedule; stop once the makespan stops falling."""
+    dur = inst.duration[np.arange(inst.n_jobs), assign].astype(np.int64)
+    best = cur = twin_build(inst, assign, order)
+    best_fit = twin_fitness(inst, assign, best)
+    horizon = int(best_fit[0])
+    for _ in range(rounds):
+        end = cur + dur
+        back_order = np.array(sorted(range(inst.n_jobs), key=lambda j: (-end[j], j)))
+        back = horizon - twin_build(_mirrored(inst, horizon), assign, back_order) - dur
+        fwd_order = np.array(sorted(range(inst.n_jobs), key=lambda j: (back[j], j)))
+        cur = twin_build(inst, assign, fwd_order)
+        fit = twin_fitness(inst, assign, cur)
+        if fit < best_fit:
+            best, best_fit = cur, fit
+        if fit[0] >= horizon:
+            break
+        horizon = int(fit[0])
+    return best

@@ -41,6 +41,25 @@ class GAConfig(BaseModel):
                                  description="Greedy plans from perturbed priority orders.")
     order_noise: float = Field(default=0.3, ge=0.0, lt=1.0,
                                description="Relative noise on hours for the greedy variants.")
+    tiebreak: Literal["none", "balance", "spread"] = Field(
+        default="spread",
+        description="Selection and local search only: among equal (makespan, tardiness) "
+                    "prefer the lower sum of squared node finishes: built ('spread', needs "
+                    "a scorer giving a fourth column) or estimated from loads ('balance').")
+    evolve_order: bool = Field(
+        default=True,
+        description="Evolve a random key per job that sets each plan's decoding order.")
+    key_rate: float = Field(default=0.02, ge=0.0, le=1.0,
+                            description="Share of a child's keys perturbed.")
+    key_sigma: float = Field(default=0.3, gt=0.0, le=10.0,
+                             description="Log-normal spread of a key perturbation.")
+    order_evaluations: int = Field(
+        default=32, ge=0, le=10_000,
+        description="Trial decoding orders the local step may score per generation "
+                    "(evolved orders only; 0: none).")
+    justify: bool = Field(
+        default=True,
+        description="Score and report the forward-backward improved schedule of each plan.")
 
     @model_validator(mode="after")
     def _comma_needs_enough_offspring(self) -> GAConfig:

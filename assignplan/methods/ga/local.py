@@ -1,4 +1,5 @@
-"""Local improvement: move or swap jobs off the node that sets the makespan while it helps."""
+"""Local improvement on the node that sets the makespan: move or swap its jobs away, or swap
+two of its jobs in the decoding order, while it helps."""
 
 from __future__ import annotations
 
@@ -8,10 +9,12 @@ import numpy as np
 
 from assignplan.instance import Instance
 from assignplan.methods.ga.encoding import EligibleIndex, job_share, node_load
+from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
 
 Evaluate = Callable[[np.ndarray, np.ndarray], np.ndarray]
+Key = Callable[[np.ndarray, np.ndarray], np.ndarray]  # (assign [P, J], fit [P, 3]) -> [P, C]
 TARGETS = 3  # least-loaded destinations tried per job: wider scans rarely pay off per trial
 BATCH = 8  # trial plans scored per compiled call (a few per thread, little wasted work)
 
@@ -34,7 +37,7 @@ def critical_node(inst: Instance, assign: np.ndarray, start: np.ndarray,
 
 
 def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
-                order: np.ndarray) -> Iterator[np.ndarray]:
+                order: np.ndarray, justify: bool) -> Iterator[np.ndarray]:
     """Trial assignments int64[J], most promising first.
 
     c is the critical node (`critical_node`). Each job j on c is scored by the estimated
@@ -43,7 +46,7 @@ def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
     heterogeneous cluster these are the plain jobs crowding a special node). Per job: a move
     to each of its TARGETS lightest nodes k, each followed by swaps (`_swaps`).
     """
-    start = build_schedule(inst, assign, order)
+    start = build_schedule(inst, assign, order, justify=justify)
     end = start + inst.duration[np.arange(inst.n_jobs), assign]
     crit = critical_node(inst, assign, start, end)
     load = node_load(inst, assign[None])[0]
@@ -80,27 +83,87 @@ def _swaps(inst: Instance, assign: np.ndarray, moved: np.ndarray, j: int, k: int
 
 
 def improve(assign: np.ndarray, fit: np.ndarray, inst: Instance, index: EligibleIndex,
-            order: np.ndarray, evaluate: Evaluate,
-            budget: int) -> tuple[np.ndarray, np.ndarray, int]:
+            order: np.ndarray, evaluate: Evaluate, budget: int, *,
+            justify: bool = False, key: Key | None = None
+            ) -> tuple[np.ndarray, np.ndarray, int]:
     """First-improvement descent from assign: int64[J] with fitness float64[3] (decoded in
     `order`: int64[J]).
 
     Trials are scored BATCH at a time through `evaluate`; the first one (in neighbour order)
-    lexicographically better than the current plan is taken and the neighbourhood rebuilt
+    better than the current plan under `key` (default: the fitness itself, lexicographic; the
+    engine passes its plateau tie-break, so a move that relieves one of several nodes ending
+    at the makespan counts as progress) is taken and the neighbourhood rebuilt
     around it. Stops when `budget` trials are spent or no neighbour improves.
+    `justify`: the critical node is read off the forward-backward improved schedule (the one
+    the default scorer grades when `GAConfig.justify` is on).
     Returns new arrays (assign, fitness) and the number of trials scored.
     """
     best, best_fit, spent = assign.copy(), fit.copy(), 0
-    trials = _neighbours(inst, index, best, order)
+    best_key = best_fit if key is None else key(best[None], best_fit[None])[0]
+    trials = _neighbours(inst, index, best, order, justify)
     while spent < budget:
         batch = [t for _, t in zip(range(min(BATCH, budget - spent)), trials, strict=False)]
         if not batch:
             break
         scores = evaluate(np.stack(batch), order)
         spent += len(batch)
-        better = np.flatnonzero(lex_less(scores, best_fit))
+        keys = scores if key is None else key(np.stack(batch), scores)
+        better = np.flatnonzero(lex_less(keys, best_key))
         if len(better):
             k = int(better[0])
-            best, best_fit = batch[k], scores[k].copy()
-            trials = _neighbours(inst, index, best, order)
+            best, best_fit, best_key = batch[k], scores[k].copy(), keys[k].copy()
+            trials = _neighbours(inst, index, best, order, justify)
     return best, best_fit, spent
+
+
+def _order_neighbours(inst: Instance, assign: np.ndarray, keys: np.ndarray, order: np.ndarray,
+                      justify: bool) -> Iterator[np.ndarray]:
+    """Trial keys float64[J]: swap the priorities of two jobs on the critical node.
+
+    Pseudo-hours q = hours * keys set the decoding order; trading q_a and q_b between jobs a
+    and b (key_a = q_b / h_a, key_b = q_a / h_b) swaps their places among that node's jobs
+    when they do not follow others. Pairs close in the current order come first (adjacent
+    ones, then two apart, ...): small changes of the node's packing.
+    """
+    start = build_schedule(inst, assign, order, justify=justify)
+    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    crit = critical_node(inst, assign, start, end)
+    pos = np.empty(inst.n_jobs, dtype=np.int64)
+    pos[order] = np.arange(inst.n_jobs)
+    on = np.flatnonzero(assign == crit)
+    on = on[np.argsort(pos[on], kind="stable")].tolist()
+    q = inst.hours * keys
+    for gap in range(1, len(on)):
+        for x in range(len(on) - gap):
+            a, b = on[x], on[x + gap]
+            trial = keys.copy()
+            trial[a], trial[b] = q[b] / inst.hours[a], q[a] / inst.hours[b]
+            yield trial
+
+
+def improve_order(assign: np.ndarray, keys: np.ndarray, fit: np.ndarray, inst: Instance,
+                  evaluate: Evaluate, budget: int, *, justify: bool,
+                  key: Key | None = None) -> tuple[np.ndarray, np.ndarray, int]:
+    """First-improvement descent over the decoding order of the critical node, assignment
+    fixed: keys float64[J] (see `order_keys`) with fitness `fit`; neighbours from
+    `_order_neighbours`, scored BATCH at a time, accepted when better under `key` (default:
+    the fitness, lexicographic). Returns new (keys, fitness) and the trials scored."""
+    best_keys, best_fit, spent = keys.copy(), fit.copy(), 0
+    best_key = best_fit if key is None else key(assign[None], best_fit[None])[0]
+    order = orders_from_keys(inst, best_keys[None])[0]
+    trials = _order_neighbours(inst, assign, best_keys, order, justify)
+    while spent < budget:
+        batch = [t for _, t in zip(range(min(BATCH, budget - spent)), trials, strict=False)]
+        if not batch:
+            break
+        pop = np.broadcast_to(assign, (len(batch), inst.n_jobs))
+        scores = evaluate(pop, orders_from_keys(inst, np.stack(batch)))
+        spent += len(batch)
+        keyed = scores if key is None else key(pop, scores)
+        better = np.flatnonzero(lex_less(keyed, best_key))
+        if len(better):
+            k = int(better[0])
+            best_keys, best_fit, best_key = batch[k], scores[k].copy(), keyed[k].copy()
+            order = orders_from_keys(inst, best_keys[None])[0]
+            trials = _order_neighbours(inst, assign, best_keys, order, justify)
+    return best_keys, best_fit, spent

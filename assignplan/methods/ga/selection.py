@@ -6,11 +6,12 @@ import numpy as np
 
 
 def lex_rank(fitness: np.ndarray) -> np.ndarray:
-    """int64[P]: 0 for the best row of fitness float64[P, 3], lexicographic (makespan first).
+    """int64[P]: 0 for the best row of fitness float64[P, C], lexicographic (column 0 first;
+    C = 3 for the objective, 4 for the engine's keys with a plateau tie-break).
 
     Ties keep the lower index first, so ranks are a permutation of 0..P-1.
     """
-    order = np.lexsort((np.arange(len(fitness)), fitness[:, 2], fitness[:, 1], fitness[:, 0]))
+    order = np.lexsort((np.arange(len(fitness)), *fitness.T[::-1]))
     rank = np.empty(len(fitness), dtype=np.int64)
     rank[order] = np.arange(len(fitness))
     return rank
@@ -26,7 +27,7 @@ def tournament(fitness: np.ndarray, n_select: int, size: int, *,
 
 
 def lex_less(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """bool[n]: row k of a (float64[n, 3]) is lexicographically strictly below b (float64[3])."""
+    """bool[n]: row k of a (float64[n, C]) is lexicographically strictly below b (float64[C])."""
     a = np.atleast_2d(a)
     less = np.zeros(len(a), dtype=bool)
     tied = np.ones(len(a), dtype=bool)
