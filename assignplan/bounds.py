@@ -10,6 +10,7 @@ import numpy as np
 from assignplan.instance import RESOURCES, Instance
 
 MAX_CLASSES = 300  # node-set classes examined beyond the whole cluster (largest load first)
+MAX_CLIQUE_CLASSES = 40  # of those, the ones also searched for a clique of conflicting jobs
 _CHUNK_CELLS = 2_000_000  # job x node cells per vectorised block: bounds memory at ~16 MB/array
 _BIG = np.iinfo(np.int64).max // 4
 # Work and supply are float sums of up to ~1e14; a relative slack far below one minute of any
@@ -37,6 +38,9 @@ def lower_bound(inst: Instance) -> LowerBound:
       node set S can hold, on S alone.
     - ``conflict``: jobs that can never share a node, counted by pigeonhole (see
       `conflict_bound`).
+    - ``clique``: a set of pairwise-conflicting jobs (any two overflow some resource on every
+      node that can hold them, e.g. whole-node jobs, or a memory-heavy job and a core-heavy
+      one) shares its host nodes like P||Cmax machines: average load (see `clique_bound`).
     - ``grid``: the largest of the above rounded up to a multiple of g (see `time_grid`).
     """
     est, fin = head_times(inst)
@@ -212,6 +216,44 @@ def conflict_bound(p: np.ndarray, est: np.ndarray, n_hosts: int) -> int:
     return int(np.max(first[top - 1] + cs[top] - cs[top - q - 1]))
 
 
+def greedy_clique(demand: np.ndarray, p: np.ndarray, capmax: np.ndarray) -> np.ndarray:
+    """Indices of a set of jobs no two of which fit on one node together (greedy, longest first).
+
+    Job k joins the set B when, for some resource r, d_kr > capmax_r - min_{j in B} d_jr: then
+    d_kr + d_jr > capmax_r >= cap_ir for every member j and every node i (capmax is the largest
+    capacity among the nodes concerned), so k conflicts with all of B on r. Keeping the running
+    minimum per resource makes each test O(R). Any such set is valid; the candidates are
+    limited to the jobs needing more than half of some resource (two of those always conflict
+    on it) only to keep the search short.
+    """
+    candidates = np.flatnonzero((2 * demand > capmax).any(axis=1))
+    candidates = candidates[np.argsort(-p[candidates], kind="stable")]
+    members: list[int] = []
+    low = [None] * demand.shape[1]
+    cap = capmax.tolist()
+    for k in candidates.tolist():
+        d = demand[k].tolist()
+        if members and not any(d[r] > cap[r] - low[r] for r in range(len(d))):
+            continue
+        members.append(k)
+        low = [d[r] if low[r] is None else min(low[r], d[r]) for r in range(len(d))]
+    return np.array(members, dtype=np.int64)
+
+
+def clique_bound(p: np.ndarray, est: np.ndarray, n_hosts: int) -> int:
+    """Average-load bound for pairwise-conflicting jobs on their K = `n_hosts` host nodes.
+
+    No two of them ever run at once on one node, so each node runs its share one after
+    another, the first not before min est; the node loads add up to at least sum p (p: each
+    job's fastest duration), so the largest is at least ceil(sum p / K):
+        T >= min_j est_j + ceil(sum_j p_j / K)
+    (the P||Cmax bound sum p / m, here over the jobs' own hosts; maintenance only adds).
+    """
+    if n_hosts <= 0 or len(p) == 0:
+        return 0
+    return int(est.min()) + int(-(-int(p.sum()) // n_hosts))
+
+
 def _unique_node_sets(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
     """Distinct eligibility rows as packed uint64 words, and each job's row index."""
     packed = np.packbits(inst.eligible, axis=1)
@@ -242,6 +284,7 @@ def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
     out = {name: 0 for name in RESOURCES}
     out.update({f"class_{name}": 0 for name in RESOURCES})
     out["conflict"] = 0
+    out["clique"] = 0
     all_nodes = np.arange(inst.n_nodes)
     for label, c in [("", None)] + [("class_", c) for c in classes]:
         if c is None:
@@ -258,4 +301,21 @@ def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
                 hosts = int(row_nodes[np.unique(inverse[chosen])].any(axis=0).sum())
                 b = conflict_bound(mindur[chosen], est[chosen], hosts)
                 out["conflict"] = max(out["conflict"], b)
+        if c is None or c in classes[:MAX_CLIQUE_CLASSES]:
+            out["clique"] = max(out["clique"], _clique_part(inst, np.flatnonzero(jobs), nodes,
+                                                            mindur, est, inverse, row_nodes))
     return out
+
+
+def _clique_part(inst: Instance, jobs: np.ndarray, nodes: np.ndarray, mindur: np.ndarray,
+                 est: np.ndarray, inverse: np.ndarray, row_nodes: np.ndarray) -> int:
+    """`clique_bound` and `conflict_bound` over a greedy clique of `jobs` (hosted in `nodes`)."""
+    if len(jobs) < 2:
+        return 0
+    capmax = inst.capacity[nodes].max(axis=0)
+    clique = jobs[greedy_clique(inst.demand[jobs], mindur[jobs], capmax)]
+    if len(clique) < 2:
+        return 0
+    hosts = int(row_nodes[np.unique(inverse[clique])].any(axis=0).sum())
+    return max(clique_bound(mindur[clique], est[clique], hosts),
+               conflict_bound(mindur[clique], est[clique], hosts))
