@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import importlib.util
 import itertools
 import json
 from pathlib import Path
@@ -16,6 +15,7 @@ from assignplan.check import check_plan  # idem: the test must fail loudly, neve
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import to_plan_doc
 from assignplan.schedule import build_schedule
+from benchmarks.generate import batch_doc, generate
 from tests.strategies import batches, instance_of
 
 DATA = Path(__file__).parent / "data" / "examples" / "worked_examples.json"
@@ -166,19 +166,10 @@ def test_every_greedy_plan_passes_the_checker(d):
 # ----------------------------------------------------------------- generated benchmark batches
 
 
-def _generate_module():
-    spec = importlib.util.spec_from_file_location("bench_generate",
-                                                  ROOT / "benchmarks" / "generate.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
-
-
 def test_known_optimum_generator_and_greedy():
-    gen = _generate_module()
-    d = gen.generate("small", 5, known_optimum=True)
+    d = generate("small", 5, known_optimum=True)
     opt_min = round(d["_known_optimum_h"] * 60)
-    batch, inst = instance_of(gen.batch_doc(d))
+    batch, inst = instance_of(batch_doc(d))
     assert inst.n_jobs == 200 and inst.n_nodes == 20
     # by construction the pieces tile every node's cores x [0, H) rectangle exactly
     assert int((inst.demand[:, 0] * inst.duration[:, 0]).sum()) == 20 * 64 * opt_min
@@ -189,9 +180,8 @@ def test_known_optimum_generator_and_greedy():
 
 
 def test_heterogeneous_generator_is_seeded_and_greedy_plan_checks():
-    gen = _generate_module()
-    d = gen.generate("small", 3)
-    assert d == gen.generate("small", 3) and d != gen.generate("small", 4)
+    d = generate("small", 3)
+    assert d == generate("small", 3) and d != generate("small", 4)
     batch, inst = instance_of(d)
     assert inst.n_jobs == 200 and inst.n_nodes == 20
     assert inst.demand[:, 2].any() and len(inst.pred_idx) > 0
