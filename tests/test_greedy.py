@@ -19,7 +19,6 @@ from benchmarks.generate import batch_doc, generate
 from tests.strategies import batches, instance_of
 
 DATA = Path(__file__).parent / "data" / "examples" / "worked_examples.json"
-ROOT = Path(__file__).resolve().parents[1]
 
 
 def identical_whole_node(m: int, hours: list[float]) -> dict:
