@@ -359,6 +359,32 @@ def _node_spread(start, assign, duration, n_nodes):
     return total
 
 
+@njit(cache=True)
+def _tail_area(start, assign, duration, demand, capacity):
+    """sum over the jobs j ending at the makespan of p_j * max_r d_jr / cap_ir (minutes).
+
+    On a packing-like batch (equal durations) this is the work left over the first layer
+    of nodes: lower = fuller nodes below it, so it falls with every exchange that packs a
+    node tighter even while the makespan and the node finishes stay put.
+    """
+    ms = np.int64(0)
+    for j in range(start.shape[0]):
+        e = start[j] + np.int64(duration[j, assign[j]])
+        if e > ms:
+            ms = e
+    total = 0.0
+    for j in range(start.shape[0]):
+        i = assign[j]
+        dur = np.int64(duration[j, i])
+        if start[j] + dur == ms:
+            share = 0.0
+            for r in range(3):
+                if demand[j, r] > 0:
+                    share = max(share, float(demand[j, r]) / float(capacity[i, r]))
+            total += float(dur) * share
+    return total
+
+
 def _sgs_population_justified(assign, order, demand, duration, ready, due, weight, pred_ptr,
                              pred_idx, succ_ptr, succ_idx, capacity, maint_ptr, maint_start,
                              maint_end, rounds, start_out, fitness_out):
@@ -367,7 +393,8 @@ def _sgs_population_justified(assign, order, demand, duration, ready, due, weigh
     order: int64[P, J] or int64[1, J] (one order for all); rounds: int, 0 = plain SGS;
     other arrays as in `sgs_population`. Each schedule is built in its individual's order,
     then justified (`_justify`); fitness and starts are those of the justified schedule.
-    fitness_out may be float64[P, 4]: column 3 then gets `_node_spread` of that schedule.
+    fitness_out may be float64[P, 4]: column 3 then gets `_node_spread` of that schedule;
+    float64[P, 5]: column 4 also gets `_tail_area`.
     """
     n_pop = assign.shape[0]
     n_jobs = assign.shape[1]
@@ -384,8 +411,10 @@ def _sgs_population_justified(assign, order, demand, duration, ready, due, weigh
                 _justify(assign[p], demand, duration, ready, zeros, pred_ptr, pred_idx,
                          succ_ptr, succ_idx, capacity, maint_ptr, maint_start, maint_end, due,
                          weight, rounds, start, fitness_out[p, :3])
-            if fitness_out.shape[1] == 4:
+            if fitness_out.shape[1] >= 4:
                 fitness_out[p, 3] = _node_spread(start, assign[p], duration, capacity.shape[0])
+            if fitness_out.shape[1] >= 5:
+                fitness_out[p, 4] = _tail_area(start, assign[p], duration, demand, capacity)
         else:
             fitness_out[p, :] = np.inf
         if keep:

@@ -51,12 +51,13 @@ def check_assign(inst: Instance, assign: np.ndarray) -> np.ndarray:
 
 
 def _run(inst: Instance, assign2d: np.ndarray, order: np.ndarray, keep_starts: bool,
-         justify: bool, spread: bool = False) -> tuple[np.ndarray, np.ndarray]:
+         justify: bool, spread: bool = False, tail: bool = False
+         ) -> tuple[np.ndarray, np.ndarray]:
     n_pop = assign2d.shape[0]
     start = np.empty((n_pop, inst.n_jobs if keep_starts else 0), dtype=np.int64)
-    fitness = np.empty((n_pop, 4 if spread else 3), dtype=np.float64)
+    fitness = np.empty((n_pop, 5 if tail else 4 if spread else 3), dtype=np.float64)
     serial = n_pop * inst.n_jobs < SERIAL_BELOW
-    if order.ndim == 1 and not justify and not spread:  # the plain path, without the extras
+    if order.ndim == 1 and not justify and not spread and not tail:  # the plain path, without the extras
         kernel = kernels.sgs_population_serial if serial else kernels.sgs_population
         kernel(
             assign2d, order, inst.demand, inst.duration, inst.ready, inst.due, inst.weight,
@@ -98,7 +99,7 @@ def build_schedule(inst: Instance, assign: np.ndarray, order: np.ndarray | None 
 
 def evaluate_population(inst: Instance, assign2d: np.ndarray,
                         order: np.ndarray | None = None, *, justify: bool = False,
-                        spread: bool = False) -> np.ndarray:
+                        spread: bool = False, tail: bool = False) -> np.ndarray:
     """Fitness float64[P, 3] of assignments int64[P, J], in minutes (see `plan.objective`).
 
     Columns: makespan max_j C_j, weighted tardiness sum_j w_j max(0, C_j - d_j) (jobs with a
@@ -107,13 +108,15 @@ def evaluate_population(inst: Instance, assign2d: np.ndarray,
     `justify`: score the forward-backward improved schedule (see `build_schedule`).
     `spread`: add a fourth column, sum_i F_i^2 over the nodes' finish times F_i (minutes^2),
     a tie-break for plans of equal makespan (not part of the objective).
+    `tail`: add `spread`'s column and a fifth, the area sum_j p_j * share_j of the jobs
+    ending at the makespan (`kernels._tail_area`), another such tie-break.
     Individuals are built in parallel (numba threads).
     """
     assign2d = check_assign(inst, assign2d)
     if assign2d.ndim != 2:
         raise ValueError("population must be a 2-D array [pop_size, n_jobs]")
     _, fitness = _run(inst, assign2d, check_order(inst, order), keep_starts=False,
-                      justify=justify, spread=spread)
+                      justify=justify, spread=spread, tail=tail)
     return fitness
 
 

@@ -146,10 +146,10 @@ def test_reported_plan_is_the_evaluated_one():
     # `evaluate` here is solve_ga's default scorer, so both runs take the same path
     _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 3)))
     cfg = GAConfig(generations=8, mu=8, lam=8, local_evaluations=8)
-    assert cfg.justify and cfg.evolve_order and cfg.tiebreak == "spread"
+    assert cfg.justify and cfg.evolve_order and cfg.tiebreak == "tail"
 
     def evaluate(a, o):
-        return evaluate_population(inst, a, o, justify=True, spread=True)
+        return evaluate_population(inst, a, o, justify=True, tail=True)
 
     pop, fit, orders, _ = run_island(inst, cfg, rng=np.random.default_rng(4), evaluate=evaluate,
                                      lower_bound=0, deadline=float("inf"))

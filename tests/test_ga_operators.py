@@ -330,3 +330,25 @@ def test_plateau_key_prefers_balanced_nodes_and_keeps_the_objective():
                                     "hours": 1.0}]})
     key = plateau_key(two, np.array([[0, 0], [0, 1]]), np.zeros((2, 3)))
     assert key[1, 2] < key[0, 2]
+
+
+def test_packing_exchange_fills_a_node_the_plain_moves_cannot():
+    # bins of 10 cores: {6, 5 | 4, 5} overflows node 0 and no single move fits; exchanging
+    # the late 5 for the 4 gives {6, 4 | 5, 5}, the 1-hour packing (Falkenauer-style exchange)
+    from assignplan.methods.ga.local import improve
+    from assignplan.schedule import evaluate_population
+    from benchmarks.reductions import BinPacking, bin_packing_batch
+
+    _, inst = instance_of(bin_packing_batch(BinPacking("t", 10, (6, 5, 4, 5)), 2))
+    assign = np.array([0, 0, 1, 1])
+
+    def evaluate(a, o):
+        return evaluate_population(inst, a, o, justify=True, tail=True)
+
+    fit = evaluate(assign[None], inst.order)[0]
+    assert fit[0] == 120
+    index = EligibleIndex.of(inst)
+    new, new_fit, spent = improve(assign, fit, inst, index, inst.order, evaluate, 8,
+                                  justify=True, target=60)
+    assert new_fit[0] == 60 and spent <= 8
+    np.testing.assert_array_equal(assign, [0, 0, 1, 1])  # input untouched

@@ -187,8 +187,8 @@ def test_u120_ga_never_worse_than_greedy(u120_runs):
 
 @pytest.mark.slow
 @pytest.mark.xfail(strict=True, reason=(
-    "target missed: ga reaches 1 h on 7 of 20 u120 instances (greedy 6) with GA_TEST_CONFIG,"
-    " seed 0; 3000-generation runs (also mu 60, lam 120) solved none of six unsolved ones"))
+    "target missed: ga reaches 1 h on 10 of 20 u120 instances (greedy 6) with GA_TEST_CONFIG,"
+    " seed 0, with the packing exchanges and the tail-area tie-break (6 at 41a954f)"))
 def test_u120_ga_finds_the_one_hour_plan(u120_runs):
     # Falkenauer's grouping GA solved all 20 u120 instances (J. Heuristics 2, 1996). Our target
     # is at least 15 of 20 with z* nodes (optima.csv) and GA_TEST_CONFIG, seed 0.
@@ -310,8 +310,7 @@ def test_pcmax_published_optima(name):
 # Measured with GA_TEST_CONFIG, seed 0 (reported to the lead; the ga, not the target, is what
 # has to change). strict: once the ga meets the target the marker fails and must go.
 GA_SHORT_OF_ONE_PERCENT = {
-    "U_1_0050_25_8": "ga ends at 100 h against C* = 97 h (+3.1 %)",
-    "U_2_0050_25_8": "ga ends at 1008 h against C* = 995 h (+1.3 %)",
+    "U_2_0050_25_8": "ga ends at 1011 h against C* = 995 h (+1.6 %)",
 }
 
 

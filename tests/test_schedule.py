@@ -212,6 +212,26 @@ def test_spread_column_is_the_sum_of_squared_node_finishes():
             assert fit[p, 3] == (finish**2).sum()
 
 
+def test_tail_column_is_the_area_of_the_jobs_ending_at_the_makespan():
+    rng = np.random.default_rng(13)
+    _, inst = instance_of(random_batch_doc(rng, max_jobs=14, p_maintenance=0.5))
+    pop = random_assign(inst, rng=rng, size=4)
+    for justify in (False, True):
+        fit = evaluate_population(inst, pop, justify=justify, tail=True)
+        np.testing.assert_array_equal(fit[:, :4],
+                                      evaluate_population(inst, pop, justify=justify,
+                                                          spread=True))
+        for p in range(len(pop)):
+            jobs = np.arange(inst.n_jobs)
+            dur = inst.duration[jobs, pop[p]]
+            end = build_schedule(inst, pop[p], justify=justify) + dur
+            d = inst.demand.astype(float)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                share = np.where(d > 0, d / inst.capacity[pop[p]], 0.0).max(axis=1)
+            last = end == end.max()
+            assert fit[p, 4] == pytest.approx((dur[last] * share[last]).sum())
+
+
 def test_threaded_and_serial_kernels_agree(monkeypatch):
     rng = np.random.default_rng(9)
     _, inst = instance_of(random_batch_doc(rng, max_jobs=14, p_maintenance=0.6))

@@ -41,11 +41,14 @@ class GAConfig(BaseModel):
                                  description="Greedy plans from perturbed priority orders.")
     order_noise: float = Field(default=0.3, ge=0.0, lt=1.0,
                                description="Relative noise on hours for the greedy variants.")
-    tiebreak: Literal["none", "balance", "spread"] = Field(
-        default="spread",
+    tiebreak: Literal["none", "balance", "spread", "tail"] = Field(
+        default="tail",
         description="Selection and local search only: among equal (makespan, tardiness) "
                     "prefer the lower sum of squared node finishes: built ('spread', needs "
-                    "a scorer giving a fourth column) or estimated from loads ('balance').")
+                    "a scorer giving a fourth column) or estimated from loads ('balance'); "
+                    "'tail' first prefers the smaller area of the jobs ending at the "
+                    "makespan (a fifth column), then the spread, and counts a smaller tail "
+                    "as progress against stagnation.")
     evolve_order: bool = Field(
         default=True,
         description="Evolve a random key per job that sets each plan's decoding order.")

@@ -120,7 +120,14 @@ def plateau_key(inst: Instance, assign2d: np.ndarray, fit: np.ndarray) -> np.nda
     visible. A lower sum of squares means the latest nodes end earlier: a step towards the
     next makespan drop. Used for tournaments, survival and local search only; the reported
     objective stays (makespan, tardiness, completion).
+    With five scorer columns (`evaluate_population(tail=True)`) the key is float64[P, 5]:
+    (makespan, tardiness, T, B, completion), T = fit[:, 4] the area of the jobs ending at the
+    makespan: on packing-like batches a tighter first layer shows in T before anywhere else
+    (the work Falkenauer's fill-based fitness pushes out of the critical bins, J.
+    Heuristics 2, 1996, from memory).
     """
+    if fit.shape[1] == 5:  # the tail area first, then the spread
+        return np.column_stack([fit[:, 0], fit[:, 1], fit[:, 4], fit[:, 3], fit[:, 2]])
     if fit.shape[1] == 4:
         spread = fit[:, 3]
     else:
@@ -214,7 +221,7 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
     def score_genomes(g: np.ndarray) -> np.ndarray:
         assign, k = genomes.split(g)
         full = evaluate(assign, decode_orders(k))
-        return full if config.tiebreak == "spread" else full[:, :3]
+        return full if config.tiebreak in ("spread", "tail") else full[:, :3]
 
     score = CachedEvaluate(score_genomes)
     keys = keys if config.evolve_order else None
@@ -226,7 +233,7 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
     best_fit, since_better = fit[np.argmin(lex_rank(fit))], 0
     if config.tiebreak != "none":
         def key(a: np.ndarray, f: np.ndarray) -> np.ndarray:
-            return plateau_key(inst, a, f if config.tiebreak == "spread" else f[:, :3])
+            return plateau_key(inst, a, f if config.tiebreak in ("spread", "tail") else f[:, :3])
     else:
         def key(a: np.ndarray, f: np.ndarray) -> np.ndarray:
             return f
@@ -234,7 +241,11 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
     back = ([0, 1, 3] if config.tiebreak != "none" else [0, 1, 2])
     if full.shape[1] == 4:  # "spread" with a scorer that gave it
         back = back + [2]
+    if full.shape[1] == 5:  # "tail": key (ms, tardiness, tail, spread, completion)
+        back = [0, 1, 4, 3, 2]
     pop_key = key(pop, full)
+    plateau = 3 if full.shape[1] == 5 else 2  # key columns stagnation watches
+    best_key = pop_key[int(np.argmin(lex_rank(pop_key)))]
     for gen in range(1, config.generations + 1):
         if _done(best_fit, lower_bound, since_better, config, deadline):
             break
@@ -247,7 +258,8 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
             order_k = order if off_keys is None else decode_orders(off_keys[[k]])[0]
             off[k], off_full[k], spent = improve(
                 off[k], off_full[k], inst, index, order_k, evaluate, config.local_evaluations,
-                justify=config.justify, key=key if config.tiebreak != "none" else None)
+                justify=config.justify, key=key if config.tiebreak != "none" else None,
+                target=lower_bound)
             if off_keys is not None and config.order_evaluations:
                 score.evaluations += spent
                 off_keys[k], off_full[k], spent = improve_order(
@@ -264,10 +276,13 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
         full = pop_key[:, back]
         fit = full[:, :3]
         score.keep_only(np.concatenate([kept, genomes.join(off, off_keys)]))
-        # stagnation counts (makespan, tardiness) only: the weighted completion time keeps
-        # improving by crumbs long after the plan has stopped getting better where it matters
-        best = int(np.argmin(lex_rank(fit)))
-        since_better = 0 if lex_less(fit[best, :2], best_fit[:2])[0] else since_better + 1
+        # stagnation counts (makespan, tardiness) only, and the tail area of the "tail"
+        # tie-break (a packing getting tighter is progress): the weighted completion time
+        # keeps improving by crumbs long after the plan has stopped getting better
+        best = int(np.argmin(lex_rank(pop_key)))
+        since_better = (0 if lex_less(pop_key[best, :plateau], best_key[:plateau])[0]
+                        else since_better + 1)
+        best_key = pop_key[best]
         best_fit = fit[best]
         history.append(_row(gen, score.evaluations, fit))
         if on_generation is not None:
@@ -306,7 +321,8 @@ def solve_ga(inst: Instance, *, config: GAConfig, lower_bound: int, seed: int,
     if evaluate is None:
         def evaluate(assign2d: np.ndarray, order: np.ndarray) -> np.ndarray:
             return evaluate_population(inst, assign2d, order, justify=config.justify,
-                                       spread=config.tiebreak == "spread")
+                                       spread=config.tiebreak == "spread",
+                                       tail=config.tiebreak == "tail")
     pop, _fit, order, history = run_island(inst, config, rng=rng, evaluate=evaluate,
                                     lower_bound=lower_bound, deadline=t0 + time_limit,
                                     on_generation=on_generation)

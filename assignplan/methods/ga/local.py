@@ -17,6 +17,7 @@ Evaluate = Callable[[np.ndarray, np.ndarray], np.ndarray]
 Key = Callable[[np.ndarray, np.ndarray], np.ndarray]  # (assign [P, J], fit [P, 3]) -> [P, C]
 TARGETS = 3  # least-loaded destinations tried per job: wider scans rarely pay off per trial
 BATCH = 8  # trial plans scored per compiled call (a few per thread, little wasted work)
+EXCHANGES = 24  # packing exchanges tried first after each rebuild of the neighbourhood
 
 
 def critical_node(inst: Instance, assign: np.ndarray, start: np.ndarray,
@@ -37,7 +38,8 @@ def critical_node(inst: Instance, assign: np.ndarray, start: np.ndarray,
 
 
 def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
-                order: np.ndarray, justify: bool) -> Iterator[np.ndarray]:
+                order: np.ndarray, justify: bool, target: int | None = None
+                ) -> Iterator[np.ndarray]:
     """Trial assignments int64[J], most promising first.
 
     c is the critical node (`critical_node`). Each job j on c is scored by the estimated
@@ -45,11 +47,15 @@ def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
     (`encoding.node_load`): jobs that can go to a much lighter node come first (on a
     heterogeneous cluster these are the plain jobs crowding a special node). Per job: a move
     to each of its TARGETS lightest nodes k, each followed by swaps (`_swaps`).
+    With a `target` finish (minutes, e.g. the lower bound), the packing exchanges of
+    `_exchanges` come first.
     """
     start = build_schedule(inst, assign, order, justify=justify)
     end = start + inst.duration[np.arange(inst.n_jobs), assign]
     crit = critical_node(inst, assign, start, end)
     load = node_load(inst, assign[None])[0]
+    if target is not None:
+        yield from _exchanges(inst, index, assign, end, crit, load, target)
     moves = []
     for j in np.flatnonzero(assign == crit).tolist():
         nodes = index.nodes(j).astype(np.int64)
@@ -67,24 +73,95 @@ def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
             yield from _swaps(inst, assign, trial, j, k, crit)
 
 
+def _area(inst: Instance, jobs: np.ndarray, nodes: np.ndarray) -> np.ndarray:
+    """float64[...]: p_ji * share_ji, job j's estimated use of node i (minutes of the node)."""
+    return inst.duration[jobs, nodes] * job_share(inst, jobs, nodes)
+
+
+def _exchanges(inst: Instance, index: EligibleIndex, assign: np.ndarray, end: np.ndarray,
+               crit: int, load: np.ndarray, target: int) -> list[np.ndarray]:
+    """Up to EXCHANGES trial assignments int64[J] that take a job j ending at the makespan
+    off the critical node c into another node k's room, tightest fit first.
+
+    Room is estimated from the loads L (`encoding.node_load`): j moves to k alone when
+    L_k + a_jk <= target, or in exchange for one or two jobs o of k with smaller area
+    (a = duration x share), which go to c, when L_k + a_jk - sum a_ok <= target. Ranked by
+    the slack left on k, least first: fuller nodes leave less work over the first layer.
+    Falkenauer's dominance-based local step of the grouping GA (replace items of a bin by
+    fewer, larger ones that fill it better; J. Heuristics 2, 1996, from memory), after
+    Martello & Toth's reduction (Knapsack Problems, Wiley 1990, from memory).
+    """
+    late = np.flatnonzero((assign == crit) & (end == end.max()))
+    owners = np.flatnonzero((assign != crit) & inst.eligible[:, crit])
+    back = _area(inst, owners, np.full(len(owners), crit))
+    own = _area(inst, owners, assign[owners])
+    by_node: dict[int, list[int]] = {}
+    for r, i in enumerate(assign[owners].tolist()):
+        by_node.setdefault(i, []).append(r)
+    found: list[tuple[float, int, int, tuple[int, ...]]] = []
+    for j in late.tolist():
+        nodes = index.nodes(j).astype(np.int64)
+        nodes = nodes[nodes != crit]
+        room = target - load[nodes] - _area(inst, np.full(len(nodes), j), nodes)
+        for k, slack in zip(nodes.tolist(), room.tolist(), strict=True):
+            a_j = target - load[k] - slack
+            if slack >= 0:
+                found.append((slack, j, k, ()))
+            rows = by_node.get(k, [])
+            for x, r in enumerate(rows):
+                if own[r] < a_j and back[r] < a_j and slack + own[r] >= 0:
+                    found.append((slack + own[r], j, k, (int(owners[r]),)))
+                for r2 in rows[x + 1 :]:
+                    two = own[r] + own[r2]
+                    if two < a_j and back[r] + back[r2] < a_j and slack + two >= 0:
+                        found.append((slack + two, j, k, (int(owners[r]), int(owners[r2]))))
+    trials = []
+    for _, j, k, group in sorted(found)[:EXCHANGES]:
+        trial = assign.copy()
+        trial[j] = k
+        trial[list(group)] = crit
+        trials.append(trial)
+    return trials
+
+
 def _swaps(inst: Instance, assign: np.ndarray, moved: np.ndarray, j: int, k: int,
            crit: int) -> Iterator[np.ndarray]:
-    """After job j moved from crit to k: bring back to crit the job of k that is shortest on
-    crit, and the one closest below j's duration there (the smallest change of both loads)."""
+    """After job j moved from crit to k: bring back to crit one or two jobs of k whose area
+    on crit (duration x `job_share`) is below j's: the smallest one, the one closest below
+    j's area, and the pair closest below it (the smallest change of both loads).
+
+    Area, not duration, because on a packing-like node (equal durations, different core
+    counts) a smaller job is a narrower one. A Martello & Toth style item exchange (from
+    memory: S. Martello, P. Toth, Knapsack Problems, Wiley 1990, the dominance-based
+    reduction), as Falkenauer's grouping GA uses it (J. Heuristics 2, 1996).
+    """
     others = np.flatnonzero((assign == k) & inst.eligible[:, crit])
-    others = others[inst.duration[others, crit] < inst.duration[j, crit]]
     if len(others) == 0:
         return
-    dur = inst.duration[others, crit]
-    for o in dict.fromkeys([int(others[np.argmin(dur)]), int(others[np.argmax(dur)])]):
+    area = inst.duration[others, crit] * job_share(inst, others, np.full(len(others), crit))
+    limit = inst.duration[j, crit] * job_share(inst, np.array([j]), np.array([crit]))[0]
+    below = area < limit
+    others, area = others[below], area[below]
+    picks: list[tuple[int, ...]] = []
+    if len(others):
+        picks += [(int(others[np.argmin(area)]),), (int(others[np.argmax(area)]),)]
+    if len(others) >= 2:
+        pair = area[:, None] + area[None, :]
+        pair[np.tril_indices(len(others))] = np.inf
+        pair[pair >= limit] = np.inf
+        a, b = np.unravel_index(np.argmin(np.where(np.isinf(pair), np.inf, limit - pair)),
+                                pair.shape)
+        if np.isfinite(pair[a, b]):
+            picks.append((int(others[a]), int(others[b])))
+    for group in dict.fromkeys(picks):
         trial = moved.copy()
-        trial[o] = crit
+        trial[list(group)] = crit
         yield trial
 
 
 def improve(assign: np.ndarray, fit: np.ndarray, inst: Instance, index: EligibleIndex,
             order: np.ndarray, evaluate: Evaluate, budget: int, *,
-            justify: bool = False, key: Key | None = None
+            justify: bool = False, key: Key | None = None, target: int | None = None
             ) -> tuple[np.ndarray, np.ndarray, int]:
     """First-improvement descent from assign: int64[J] with fitness float64[3] (decoded in
     `order`: int64[J]).
@@ -96,11 +173,12 @@ def improve(assign: np.ndarray, fit: np.ndarray, inst: Instance, index: Eligible
     around it. Stops when `budget` trials are spent or no neighbour improves.
     `justify`: the critical node is read off the forward-backward improved schedule (the one
     the default scorer grades when `GAConfig.justify` is on).
+    `target`: a finish no node needs to beat (the lower bound); turns on `_exchanges`.
     Returns new arrays (assign, fitness) and the number of trials scored.
     """
     best, best_fit, spent = assign.copy(), fit.copy(), 0
     best_key = best_fit if key is None else key(best[None], best_fit[None])[0]
-    trials = _neighbours(inst, index, best, order, justify)
+    trials = _neighbours(inst, index, best, order, justify, target)
     while spent < budget:
         batch = [t for _, t in zip(range(min(BATCH, budget - spent)), trials, strict=False)]
         if not batch:
@@ -112,7 +190,7 @@ def improve(assign: np.ndarray, fit: np.ndarray, inst: Instance, index: Eligible
         if len(better):
             k = int(better[0])
             best, best_fit, best_key = batch[k], scores[k].copy(), keys[k].copy()
-            trials = _neighbours(inst, index, best, order, justify)
+            trials = _neighbours(inst, index, best, order, justify, target)
     return best, best_fit, spent
 
 
