@@ -281,7 +281,7 @@ def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
     partial = ~row_nodes.all(axis=1)
     classes = [c for c in np.argsort(-score, kind="stable") if partial[c]][:MAX_CLASSES]
 
-    out = {name: 0 for name in RESOURCES}
+    out = dict.fromkeys(RESOURCES, 0)
     out.update({f"class_{name}": 0 for name in RESOURCES})
     out["conflict"] = 0
     out["clique"] = 0

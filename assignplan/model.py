@@ -299,7 +299,7 @@ def _expand_nodes(batch: Batch, problems: list[str]) -> list[Node]:
                     f"nodes[{gi}].maintenance[{k}]: ends at {m.end_h} h, not after it starts"
                     f" ({m.start_h} h)"
                 )
-        for (s0, e0, k0), (s1, _e1, k1) in zip(windows, windows[1:], strict=False):
+        for (_s0, e0, k0), (s1, _e1, k1) in zip(windows, windows[1:], strict=False):
             if s1 < e0:
                 problems.append(
                     f"nodes[{gi}].maintenance[{k1}]: overlaps maintenance[{k0}]"

@@ -131,7 +131,8 @@ def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:
             problems.append(f"assignments[{k}].node: no node named '{a.node}' in the batch")
         else:
             j = job_index[a.job]
-            assign[j], start[j], end[j] = node_index[a.node], round(a.start_h * 60), round(a.end_h * 60)
+            assign[j] = node_index[a.node]
+            start[j], end[j] = round(a.start_h * 60), round(a.end_h * 60)
     missing = [inst.job_names[j] for j in np.flatnonzero(assign < 0)]
     if missing:
         problems.append(f"assignments: {len(missing)} jobs have no row, e.g. '{missing[0]}'")

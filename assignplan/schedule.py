@@ -12,7 +12,6 @@ from assignplan import kernels
 from assignplan.instance import Instance
 from assignplan.plan import PlanResult, make_result
 
-
 JUSTIFY_ROUNDS = 3  # forward-backward rounds at most; most of the gain comes in the first
 # Below this many job placements (individuals x jobs) a call runs on one thread: waking numba's
 # pool costs milliseconds on a busy machine, more than building a few hundred-job plans.
@@ -57,7 +56,7 @@ def _run(inst: Instance, assign2d: np.ndarray, order: np.ndarray, keep_starts: b
     start = np.empty((n_pop, inst.n_jobs if keep_starts else 0), dtype=np.int64)
     fitness = np.empty((n_pop, 5 if tail else 4 if spread else 3), dtype=np.float64)
     serial = n_pop * inst.n_jobs < SERIAL_BELOW
-    if order.ndim == 1 and not justify and not spread and not tail:  # the plain path, without the extras
+    if order.ndim == 1 and not justify and not spread and not tail:  # the plain path
         kernel = kernels.sgs_population_serial if serial else kernels.sgs_population
         kernel(
             assign2d, order, inst.demand, inst.duration, inst.ready, inst.due, inst.weight,

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from assignplan.instance import priority_order
 from assignplan.methods.ga import crossover, mutation, survival
 from assignplan.methods.ga.encoding import (
     EligibleIndex,
@@ -14,7 +15,6 @@ from assignplan.methods.ga.encoding import (
     random_population,
     to_matrix,
 )
-from assignplan.instance import priority_order
 from assignplan.methods.ga.engine import plateau_key
 from assignplan.methods.ga.order_keys import cross_keys, orders_from_keys, perturb_keys
 from assignplan.methods.ga.repair import available_minutes, repair, resource_work, shed_overload

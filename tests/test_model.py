@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 
-from assignplan.instance import NO_DUE, build_instance
+from assignplan.instance import NO_DUE
 from assignplan.model import (
     can_hold,
     ceil_minutes,

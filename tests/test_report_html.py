@@ -216,7 +216,7 @@ def test_late_jobs_are_marked():
     inst, result = week()
     late = {int(b.get("data-job")) for b in _bars(svg.timeline_svg(inst, result))
             if "late" in b.get("class").split()}
-    expected = np.flatnonzero((result.end > inst.due))
+    expected = np.flatnonzero(result.end > inst.due)
     assert late == set(expected.tolist())
     assert len(late) == summary(inst, result)["late_jobs"]
 
@@ -284,7 +284,7 @@ def test_convergence_is_drawn_when_there_is_history(tmp_path):
                        median_makespan_h=75 - g / 2) for g in range(6)]
     with_history = replace(result, history=rows)
     chart = svg.convergence_svg(with_history)
-    lines = [e for e in ET.fromstring(chart).iter("polyline")]
+    lines = list(ET.fromstring(chart).iter("polyline"))
     assert [len(e.get("points").split()) for e in lines] == [6, 6]
     assert 'id="convergence"' in render_html_report(inst, with_history)
     files = write_png_charts(tmp_path, inst, with_history)

@@ -30,14 +30,17 @@ def summary_table(s: dict) -> Table:
         ("lower bound", f"{_num(s['lower_bound_h'], 2)} h (gap {_num(s['gap_pct'], 2)} %)"),
         ("utilisation over makespan",
          f"cores {_num(s['core_utilisation_pct'], 1, ' %')}, memory "
-         f"{_num(s['memory_utilisation_pct'], 1, ' %')}, GPUs {_num(s['gpu_utilisation_pct'], 1, ' %')}"),
+         f"{_num(s['memory_utilisation_pct'], 1, ' %')}, "
+         f"GPUs {_num(s['gpu_utilisation_pct'], 1, ' %')}"),
         ("utilisation over window",
          f"cores {_num(s['core_utilisation_window_pct'], 1, ' %')}, memory "
          f"{_num(s['memory_utilisation_window_pct'], 1, ' %')}, GPUs "
          f"{_num(s['gpu_utilisation_window_pct'], 1, ' %')}"),
         ("jobs ending past window", f"{s['jobs_past_window']:,}"),
-        ("late jobs", f"{s['late_jobs']:,} (weighted tardiness {_num(s['weighted_tardiness_h'], 2)} h)"),
-        ("solve time", f"{s['seconds']:.2f} s" + (f", seed {s['seed']}" if s["seed"] is not None else "")),
+        ("late jobs", f"{s['late_jobs']:,} "
+                      f"(weighted tardiness {_num(s['weighted_tardiness_h'], 2)} h)"),
+        ("solve time", f"{s['seconds']:.2f} s"
+                       + (f", seed {s['seed']}" if s["seed"] is not None else "")),
     ]
     for k, v in rows:
         t.add_row(k, v)
