@@ -248,7 +248,8 @@ def summary_line(violations: list[Violation], plan: PlanDoc) -> str:
     n_jobs = len({a.job for a in plan.assignments})
     n_nodes = len({a.node for a in plan.assignments})
     makespan = max((a.end_h for a in plan.assignments), default=0.0)
-    scope = f"{n_jobs} jobs on {n_nodes} nodes, makespan {round(makespan, 2):g} h"
+    scope = (f"{n_jobs} job{'s' * (n_jobs != 1)} on {n_nodes} node{'s' * (n_nodes != 1)},"
+             f" makespan {round(makespan, 2):g} h")
     if not violations:
         return f"plan OK: {scope}, no violations"
     counts = Counter(v.kind for v in violations)

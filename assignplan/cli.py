@@ -234,7 +234,11 @@ def report(
     check_output_file(out, "--out")
     check_output_dir(png, "--png")
     inst = build_instance(load_batch(batch))
-    result = result_from_doc(inst, load_plan(plan))
+    try:
+        result = result_from_doc(inst, load_plan(plan))
+    except InputError as err:
+        raise InputError([p if p.startswith(str(plan)) else f"{plan}: {p}"
+                          for p in err.problems]) from None
     _write_report(inst, result, out, png)
 
 

@@ -139,3 +139,17 @@ def test_compare_small_has_three_rows_and_week_explains_skipped_exact():
     assert week.exit_code == 0, week.output
     assert "greedy" in week.stdout and "ga" in week.stdout
     assert "exact: skipped: 482 jobs is above the exact method's limit of 300" in week.stdout
+
+
+def test_report_of_an_incomplete_plan_names_the_plan_file(tmp_path):
+    plan = tmp_path / "plan.json"
+    plan.write_text(json.dumps({"method": "hand", "makespan_h": 1, "lower_bound_h": 1,
+                                "gap_pct": 0, "assignments": [
+                                    {"job": "ghost", "node": "cpu-1", "start_h": 0, "end_h": 1}]}))
+    result = runner.invoke(app, ["report", str(SMALL), str(plan), "--out",
+                                 str(tmp_path / "r.html")])
+    assert result.exit_code == 2
+    assert f"{plan}: assignments[0].job: no job named 'ghost'" in result.stderr
+    assert not (tmp_path / "r.html").exists()
+    check = runner.invoke(app, ["check", str(SMALL), str(plan)])
+    assert check.exit_code == 1 and "1 job on 1 node" in check.stdout
