@@ -62,16 +62,15 @@ def initial_population(inst: Instance, config: GAConfig, index: EligibleIndex, *
     Members: the greedy plan of inst.order (keys 1), greedy plans of the orders of
     `greedy_variant_keys` (each with its keys), then random eligible plans. The fixed
     decoding order (when orders do not evolve) is the best seed's; random members get its
-    keys. The builder
-    replays a greedy plan exactly under its own order, so with evolved orders every seed
-    decodes to its greedy plan, and with one fixed order the run starts from the best greedy
-    plan: either way the run never ends worse than greedy.
+    keys. The builder replays a greedy plan exactly under its own order, so with evolved
+    orders every seed decodes to its greedy plan, and with one fixed order the run starts from
+    the best greedy plan: either way the run never ends worse than greedy.
     """
     keys = [np.ones(inst.n_jobs)]
     keys += greedy_variant_keys(inst, min(config.greedy_variants, config.mu - 1),
                                 config.order_noise, rng=rng)
-    orders = [inst.order] + [check_order(inst, o) for o in orders_from_keys(inst,
-                                                                           np.stack(keys[1:]))]
+    variants = orders_from_keys(inst, np.stack(keys[1:])) if len(keys) > 1 else []
+    orders = [inst.order] + [check_order(inst, o) for o in variants]
     plans = [greedy_assign(inst, order) for order in orders]
     jobs = np.arange(inst.n_jobs)
     scores = np.array([objective(inst, start + inst.duration[jobs, assign])
