@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import importlib.util
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -18,9 +16,9 @@ from assignplan.methods.ga.engine import greedy_variant_orders
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import objective, to_plan_doc
 from assignplan.schedule import evaluate_population
+from benchmarks.generate import batch_doc, generate
 from tests.strategies import batches, instance_of, random_batch_doc
 
-ROOT = Path(__file__).resolve().parents[1]
 SMALL = GAConfig(mu=8, lam=8, generations=15, local_evaluations=8, greedy_variants=2)
 
 
@@ -79,7 +77,7 @@ def test_graham_lpt_family_reaches_the_optimum(m):
 
 @pytest.mark.slow
 def test_same_batch_seed_and_config_give_the_same_plan():
-    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 2)))
+    _, inst = instance_of(batch_doc(generate("small", 2)))
     cfg = GAConfig(generations=25, mutation="asymmetric")
     runs = [solve_ga(inst, config=cfg, lower_bound=0, seed=7, time_limit=600.0)
             for _ in range(2)]
@@ -94,7 +92,7 @@ def test_same_batch_seed_and_config_give_the_same_plan():
 
 
 def test_history_hook_and_stopping_rules():
-    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 1)))
+    _, inst = instance_of(batch_doc(generate("small", 1)))
     rows = []
     res = solve_ga(inst, config=GAConfig(generations=12, stagnation=1000), lower_bound=0,
                    seed=3, time_limit=600.0, on_generation=rows.append)
@@ -107,7 +105,7 @@ def test_history_hook_and_stopping_rules():
     stalled = solve_ga(inst, config=GAConfig(generations=10_000, stagnation=3), lower_bound=0,
                        seed=3, time_limit=600.0)
     assert len(stalled.history) < 10_000
-    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 1, True)))
+    _, inst = instance_of(batch_doc(generate("small", 1, True)))
     assert not np.any(inst.due != inst.due.max())  # no due times: tardiness is always 0
     at_bound = solve_ga(inst, config=GAConfig(generations=10_000), seed=3, time_limit=600.0,
                         lower_bound=greedy_makespan(inst))
@@ -115,7 +113,7 @@ def test_history_hook_and_stopping_rules():
 
 
 def test_custom_evaluate_is_the_only_scorer_of_the_population():
-    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 4)))
+    _, inst = instance_of(batch_doc(generate("small", 4)))
     calls = []
 
     def counting(assign2d, order):
@@ -128,7 +126,7 @@ def test_custom_evaluate_is_the_only_scorer_of_the_population():
 
 
 def test_run_island_takes_migrants_and_returns_the_population_best_first():
-    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 6)))
+    _, inst = instance_of(batch_doc(generate("small", 6)))
     assign, _ = greedy_assign(inst)
     migrants = np.stack([assign, assign])
     pop, fit, order, history = run_island(
@@ -144,7 +142,7 @@ def test_reported_plan_is_the_evaluated_one():
     # justified fitness, evolved orders: the plan solve_ga returns has exactly the objective
     # the run scored for its best individual (schedule_result rebuilds the same schedule);
     # `evaluate` here is solve_ga's default scorer, so both runs take the same path
-    _, inst = instance_of(_generate().batch_doc(_generate().generate("small", 3)))
+    _, inst = instance_of(batch_doc(generate("small", 3)))
     cfg = GAConfig(generations=8, mu=8, lam=8, local_evaluations=8)
     assert cfg.justify and cfg.evolve_order and cfg.tiebreak == "tail"
 
@@ -165,7 +163,7 @@ def test_reported_plan_is_the_evaluated_one():
 
 
 def test_greedy_variant_orders_respect_follows():
-    d = _generate().generate("small", 3)  # pipelines and sweep/gather groups
+    d = generate("small", 3)  # pipelines and sweep/gather groups
     _, inst = instance_of(d)
     assert len(inst.pred_idx) > 0
     orders = greedy_variant_orders(inst, 6, 0.5, rng=np.random.default_rng(0))
@@ -194,18 +192,9 @@ def test_config_is_validated_and_frozen():
 # ------------------------------------------------------------------ known-optimum batches
 
 
-def _generate():
-    spec = importlib.util.spec_from_file_location("bench_generate",
-                                                  ROOT / "benchmarks" / "generate.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
-
-
 def _known_optimum(seed: int):
-    gen = _generate()
-    d = gen.generate("small", seed, known_optimum=True)
-    batch, inst = instance_of(gen.batch_doc(d))
+    d = generate("small", seed, known_optimum=True)
+    batch, inst = instance_of(batch_doc(d))
     return batch, inst, round(d["_known_optimum_h"] * 60)
 
 
