@@ -76,6 +76,9 @@ SurvivalOpt = Annotated[str, typer.Option(help="ga: plus = (μ+λ), comma = (μ,
 LocalOpt = Annotated[bool, typer.Option(
     help="ga: sharpen the best offspring by moves off the makespan node.",
     rich_help_panel="ga")]
+RepackOpt = Annotated[int, typer.Option(
+    help="ga: nodes re-packed exactly (CP-SAT) around the makespan node each generation; "
+         "0: off.", min=0, max=64, rich_help_panel="ga")]
 
 
 def ga_config(**fields) -> GAConfig:
@@ -145,6 +148,7 @@ def solve(
     tournament_size: TournamentOpt = GA_DEFAULTS.tournament_size,
     survival: SurvivalOpt = GA_DEFAULTS.survival,
     local_search: LocalOpt = GA_DEFAULTS.local_search,
+    repack_nodes: RepackOpt = GA_DEFAULTS.repack_nodes,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.instance import build_instance
@@ -166,7 +170,7 @@ def solve(
                        crossover=crossover, crossover_bias=crossover_bias, kpoints=kpoints,
                        mutation=mutation, mutation_flips=mutation_flips,
                        tournament_size=tournament_size, survival=survival,
-                       local_search=local_search)
+                       local_search=local_search, repack_nodes=repack_nodes)
     inst = build_instance(expanded)
     bound = lower_bound(inst).value
     with progress_bar(method == "ga" and not quiet and not as_json, config.generations,

@@ -123,6 +123,14 @@ def test_ga_options_are_validated():
     assert "--crossover" in result.stderr and "Traceback" not in result.output
     result = runner.invoke(app, ["solve", str(SMALL), "--crossover-bias", "1.5"])
     assert result.exit_code == 2 and "--crossover-bias" in result.stderr
+    result = runner.invoke(app, ["solve", str(SMALL), "--repack-nodes", "65"])
+    assert result.exit_code == 2 and "--repack-nodes" in result.stderr
+
+
+def test_repack_off_still_plans(tmp_path):
+    out = tmp_path / "plan.json"
+    solve(str(SMALL), "--generations", "10", "--repack-nodes", "0", "--quiet", "--out", str(out))
+    assert runner.invoke(app, ["check", str(SMALL), str(out)]).exit_code == 0
 
 
 def test_compare_small_has_three_rows_and_week_explains_skipped_exact():

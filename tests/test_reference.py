@@ -37,6 +37,9 @@ PCMAX_VERIFIED = read_column(DATA / "pcmax" / "optima.csv", "verified")
 # Bounded by generations and stagnation only (the time limit is a far-off safety net), so every
 # run is deterministic: same instance, seed and config, same plan.
 GA_TEST_CONFIG = GAConfig(generations=100, stagnation=40)
+# t60: no setting we measured solves any of the 20 to 1 h (see RESULTS.md), and every ga
+# generation spends its full repacking effort there, so the suite runs them short.
+T60_GA_CONFIG = GAConfig(generations=30, stagnation=15)
 GA_SEED = 0
 GA_SAFETY_SECONDS = 900.0
 # CP-SAT limits: the 10-job P||Cmax instances prove optimal within a few seconds; the bin
@@ -71,14 +74,15 @@ def checked(eb: ExpandedBatch, inst: Instance, result: PlanResult) -> PlanResult
 
 
 def run(method: str, eb: ExpandedBatch, inst: Instance, *,
-        time_limit: float = EXACT_COUNT_LIMIT) -> PlanResult | None:
+        time_limit: float = EXACT_COUNT_LIMIT,
+        ga_config: GAConfig = GA_TEST_CONFIG) -> PlanResult | None:
     """Plan through the planner and check it; None when exact finds no plan within its limit."""
     if method == "ga":
         # generations and stagnation stop the run; the time limit is only a safety net
         time_limit = GA_SAFETY_SECONDS
     try:
         result = solve(inst, method, seed=GA_SEED, time_limit=time_limit,
-                       ga_config=GA_TEST_CONFIG)
+                       ga_config=ga_config)
     except SolveError:
         if method != "exact":
             raise
@@ -96,14 +100,15 @@ class Tally:
         return len(self.solved[method])
 
 
-def bin_packing_runs(names: list[str], methods: tuple[str, ...]) -> tuple[Tally, dict]:
+def bin_packing_runs(names: list[str], methods: tuple[str, ...],
+                     ga_config: GAConfig = GA_TEST_CONFIG) -> tuple[Tally, dict]:
     """Run `methods` with z* nodes on each instance; 'solved' = a 1-hour plan."""
     tally = Tally({m: [] for m in methods})
     results: dict[str, dict[str, PlanResult | None]] = {}
     for name in names:
         bpp = read_bpp(DATA / "binpacking" / f"{name}.txt")
         eb, inst = batch_of(bin_packing_batch(bpp, BPP_OPT[name]))
-        results[name] = {m: run(m, eb, inst) for m in methods}
+        results[name] = {m: run(m, eb, inst, ga_config=ga_config) for m in methods}
         for m, r in results[name].items():
             if r is not None and r.makespan == HOUR:
                 tally.solved[m].append(name)
@@ -187,12 +192,10 @@ def test_u120_ga_never_worse_than_greedy(u120_runs):
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(strict=True, reason=(
-    "target missed: ga reaches 1 h on 10 of 20 u120 instances (greedy 6) with GA_TEST_CONFIG,"
-    " seed 0, with the packing exchanges and the tail-area tie-break (6 at 41a954f)"))
 def test_u120_ga_finds_the_one_hour_plan(u120_runs):
     # Falkenauer's grouping GA solved all 20 u120 instances (J. Heuristics 2, 1996). Our target
-    # is at least 15 of 20 with z* nodes (optima.csv) and GA_TEST_CONFIG, seed 0.
+    # is at least 15 of 20 with z* nodes (optima.csv) and GA_TEST_CONFIG, seed 0. Measured:
+    # 16 of 20 (greedy 6), since the ga repacks a few nodes exactly each generation.
     tally, _results = u120_runs
     assert tally.count("ga") >= 15, (
         f"ga reached 1 h on {tally.count('ga')} of 20 u120 instances "
@@ -204,8 +207,9 @@ def test_u120_ga_finds_the_one_hour_plan(u120_runs):
 
 @pytest.fixture(scope="module")
 def t60_runs():
-    # exact on the first five only, to keep the suite's budget; the benchmark runs all 20
-    tally, results = bin_packing_runs(T60, ("greedy", "ga"))
+    # exact on the first five only and short ga runs, to keep the suite's budget; the
+    # benchmark runs all 20 with each method's full budget
+    tally, results = bin_packing_runs(T60, ("greedy", "ga"), T60_GA_CONFIG)
     exact_tally, exact_results = bin_packing_runs(T60[:5], ("exact",))
     tally.solved.update(exact_tally.solved)
     for name, r in exact_results.items():
@@ -298,17 +302,8 @@ def test_pcmax_published_optima(name):
         assert (exact.makespan, exact.status) == (target, "optimal")
 
 
-# Measured with GA_TEST_CONFIG, seed 0 (reported to the lead; the ga, not the target, is what
-# has to change). strict: once the ga meets the target the marker fails and must go.
-GA_SHORT_OF_ONE_PERCENT = {
-    "U_2_0050_25_8": "ga ends at 1011 h against C* = 995 h (+1.6 %)",
-}
-
-
 @pytest.mark.slow
-@pytest.mark.parametrize("name", [
-    pytest.param(n, marks=pytest.mark.xfail(reason=GA_SHORT_OF_ONE_PERCENT[n], strict=True))
-    if n in GA_SHORT_OF_ONE_PERCENT else n for n in PCMAX])
+@pytest.mark.parametrize("name", PCMAX)
 def test_pcmax_ga_within_one_percent(name):
     # Same instances and OPT lines as above: the ga's target is C* + 1 %.
     target, _inst, _eb, plans = pcmax_plans(name)

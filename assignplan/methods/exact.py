@@ -76,7 +76,7 @@ def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> 
     x_ji in {0,1} for eligible (j, i), sum_i x_ji = 1; an optional interval
     [s_j, s_j + d_ji) present iff x_ji; per node and resource r:
     cumulative(intervals on i, demand_jr, capacity_ir) with each maintenance window as a fixed
-    interval demanding the full capacity (plus an energy cut, see `_add_node_capacity`);
+    interval demanding the full capacity (plus an energy cut, see `add_node_capacity`);
     e_j = s_j + sum_i d_ji x_ji; s_j >= ready_j; e_p <= s_j for p in follows(j); C_max >= e_j.
     """
     # data
@@ -113,13 +113,13 @@ def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> 
             m.add(end[int(p)] <= start[j])
         m.add(makespan >= end[j])
     for i in range(n_nodes):
-        _add_node_capacity(m, inst, i, node_jobs[i], node_iv[i], node_x[i], makespan)
+        add_node_capacity(m, inst, i, node_jobs[i], node_iv[i], node_x[i], makespan)
 
     _add_hint(m, inst, hint, start, end, presence, makespan)
     return _Model(m, start, end, presence, makespan, *_secondary_objectives(m, inst, end, big))
 
 
-def _add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[int],
+def add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[int],
                        intervals: list[cp_model.IntervalVar], x: list[cp_model.IntVar],
                        makespan: cp_model.IntVar) -> None:
     """Capacity of node i over its eligible `jobs` (their `intervals` and presences `x`).

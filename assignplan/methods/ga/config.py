@@ -60,6 +60,13 @@ class GAConfig(BaseModel):
         default=32, ge=0, le=10_000,
         description="Trial decoding orders the local step may score per generation "
                     "(evolved orders only; 0: none).")
+    repack_nodes: int = Field(
+        default=6, ge=0, le=64,
+        description="Nodes the exact repacking step frees each generation (the one setting "
+                    "the makespan and partners, see `repack`); 0 or 1: off.")
+    repack_effort: float = Field(
+        default=0.05, gt=0.0, le=60.0,
+        description="CP-SAT deterministic time limit of one repacking (about seconds).")
     justify: bool = Field(
         default=True,
         description="Score and report the forward-backward improved schedule of each plan.")

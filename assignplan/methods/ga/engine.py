@@ -13,6 +13,7 @@ from assignplan.methods.ga.config import GAConfig
 from assignplan.methods.ga.encoding import EligibleIndex, node_load, random_population
 from assignplan.methods.ga.local import improve, improve_order
 from assignplan.methods.ga.order_keys import cross_keys, orders_from_keys, perturb_keys
+from assignplan.methods.ga.repack import repack_step
 from assignplan.methods.ga.repair import repair
 from assignplan.methods.ga.selection import lex_less, lex_rank, tournament
 from assignplan.methods.greedy import greedy_assign
@@ -243,6 +244,7 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
     if full.shape[1] == 5:  # "tail": key (ms, tardiness, tail, spread, completion)
         back = [0, 1, 4, 3, 2]
     pop_key = key(pop, full)
+    tried: set[bytes] = set()  # repacking sub-problems that gave nothing (`repack_nodes`)
     plateau = 3 if full.shape[1] == 5 else 2  # key columns stagnation watches
     best_key = pop_key[int(np.argmin(lex_rank(pop_key)))]
     for gen in range(1, config.generations + 1):
@@ -272,6 +274,10 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
         kept, pop_key = select(genomes.join(pop, keys), pop_key,
                                genomes.join(off, off_keys), off_key, config.mu)
         pop, keys = genomes.split(kept)
+        if config.repack_nodes >= 2:
+            _repack_best(pop, keys, pop_key, back, inst, config, order, decode_orders,
+                         evaluate, key, score, genomes, lower_bound, tried, rng=rng)
+            kept = genomes.join(pop, keys)
         full = pop_key[:, back]
         fit = full[:, :3]
         score.keep_only(np.concatenate([kept, genomes.join(off, off_keys)]))
@@ -289,6 +295,32 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
     rank = np.argsort(lex_rank(fit), kind="stable")
     orders = order if keys is None else decode_orders(keys[rank])
     return pop[rank], fit[rank], orders, history
+
+
+def _repack_best(pop, keys, pop_key, back, inst, config, order, decode_orders, evaluate,
+                 key, score, genomes, target, tried, *, rng) -> None:
+    """Repack a few nodes of the best member exactly (`repack.repack_step`), in place."""
+    b = int(np.argmin(lex_rank(pop_key)))
+    order_b = order if keys is None else decode_orders(keys[[b]])[0]
+    full_b = pop_key[b, back]
+    if config.tiebreak not in ("spread", "tail"):
+        full_b = full_b[:3]
+    def scorer(a: np.ndarray, o: np.ndarray) -> np.ndarray:
+        score.evaluations += len(a)
+        return evaluate(a, o)[:, : len(full_b)]
+
+    found = repack_step(pop[b], None if keys is None else keys[b], full_b, inst, order_b,
+                        scorer, key, nodes=config.repack_nodes, target=target,
+                        deterministic_time=config.repack_effort, justify=config.justify,
+                        rng=rng, tried=tried)
+    if found is None:
+        return
+    pop[b], new_keys, new_full = found
+    if keys is not None:
+        keys[b] = new_keys
+    pop_key[b] = key(pop[[b]], new_full[None])[0]
+    score.cache[genomes.join(pop[[b]], None if keys is None else keys[[b]])[0].tobytes()] = \
+        new_full
 
 
 def _done(best_fit: np.ndarray, lower_bound: int, since_better: int, config: GAConfig,

@@ -1,0 +1,236 @@
+"""Exact repacking of a few nodes: free every job on the node that sets the makespan and on a
+few partner nodes, and let CP-SAT re-assign and re-time them, the rest of the plan fixed.
+
+This is the step that changes *which jobs share a node*, several at once: the move and swap
+descent of `local` changes one or two jobs and cannot find a regrouping that needs four items
+to trade places. Re-solving a handful of bins exactly is the large neighbourhood search of
+P. Shaw, "Using constraint programming and local search methods to solve vehicle routing
+problems", CP 1998 (from memory); on bin packing it plays the part of Falkenauer's
+dominance-based regrouping (J. Heuristics 2, 1996).
+
+The sub-model is the exact method's (`methods.exact`) restricted to the freed jobs and the
+chosen nodes: every freed job keeps its place in the precedence graph by a release time (its
+fixed predecessors' ends) and a deadline (its fixed successors' starts), and nothing may end
+after the current makespan, so the current plan is a solution (it is given as the hint) and
+whatever CP-SAT returns fits the fixed rest of the plan. CP-SAT runs on one worker with a
+deterministic time limit and a seed drawn from the run's generator: the same run gives the same
+answers on any machine.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from ortools.sat.python import cp_model
+
+from assignplan.instance import Instance
+from assignplan.methods.exact import add_node_capacity
+from assignplan.methods.ga.local import critical_node
+from assignplan.methods.ga.selection import lex_less
+from assignplan.schedule import build_schedule
+
+_FOUND = (cp_model.OPTIMAL, cp_model.FEASIBLE)
+TRIED_LIMIT = 4096  # sub-problems remembered as fruitless (then forgotten all at once)
+
+
+def pick_nodes(inst: Instance, assign: np.ndarray, end: np.ndarray, crit: int, k: int,
+               target: int, *, rng: np.random.Generator) -> np.ndarray:
+    """int64[<= k] nodes to repack: `crit` first, then up to k - 1 distinct partners that can
+    trade jobs with it (a job of one is eligible on the other), drawn at random.
+
+    A partner's weight adds two shares in [0, 1]: its room under `target` (cores x target
+    minus the core-minutes of its jobs, over the largest room), and how early it finishes
+    ((makespan - finish + 1) / (makespan + 1)). On a packing-like batch every node finishes
+    together and only the room tells them apart: a late job needs partners whose spare
+    capacity adds up to its size.
+    """
+    finish = np.zeros(inst.n_nodes, dtype=np.int64)
+    np.maximum.at(finish, assign, end)
+    on_crit = assign == crit
+    reach = inst.eligible[on_crit].any(axis=0)  # nodes the critical node's jobs could use
+    takes = np.zeros(inst.n_nodes, dtype=bool)  # nodes holding a job crit could take
+    takes[assign[inst.eligible[:, crit]]] = True
+    cand = np.flatnonzero((reach | takes) & (np.arange(inst.n_nodes) != crit))
+    if len(cand) == 0 or k <= 1:
+        return np.array([crit], dtype=np.int64)
+    area = np.zeros(inst.n_nodes)
+    np.add.at(area, assign, inst.demand[:, 0] * inst.duration[np.arange(inst.n_jobs), assign])
+    room = np.maximum(inst.capacity[cand, 0] * max(target, 1) - area[cand], 0.0)
+    weight = room / max(room.max(), 1.0) + (finish.max() - finish[cand] + 1) / (finish.max() + 1)
+    pick = rng.choice(cand, size=min(k - 1, len(cand)), replace=False, p=weight / weight.sum())
+    return np.concatenate([[crit], np.sort(pick)]).astype(np.int64)
+
+
+def repack_nodes(inst: Instance, assign: np.ndarray, start: np.ndarray, nodes: np.ndarray, *,
+                 deterministic_time: float, seed: int, tried: set[bytes] | None = None
+                 ) -> tuple[np.ndarray, np.ndarray] | None:
+    """(assign int64[J], start int64[J]) with the jobs of `nodes` re-assigned among `nodes`
+    and re-timed, or None when CP-SAT finds nothing better than the current plan there.
+
+    Objective: the latest end on `nodes` first, then sum_j a_j e_j over the freed jobs with
+    a_j their share of a node's cores in percent: among plans with the same local makespan,
+    the wide jobs start first, which empties the last layer (the tail the ga's tie-break
+    watches). The returned plan is feasible: it satisfies the sub-model, whose constraints
+    hold the fixed jobs where they are.
+
+    `tried` remembers sub-problems (nodes, freed jobs with their places and time windows) that
+    gave nothing; the same one comes back as None without a solve. A plan that stagnates is
+    offered the same neighbourhood again and again on a small cluster.
+    """
+    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    in_set = np.zeros(inst.n_nodes, dtype=bool)
+    in_set[nodes] = True
+    freed = np.flatnonzero(in_set[assign])
+    if len(freed) < 2:
+        return None
+    window = _windows(inst, freed, start, end)
+    key = b"".join(np.ascontiguousarray(a, dtype=np.int64).tobytes()
+                   for a in (nodes, freed, assign[freed], start[freed], window))
+    if tried is not None and key in tried:
+        return None
+    m, s_var, x_of, hint_value = _sub_model(inst, nodes, freed, window, assign, start, end)
+    solver = cp_model.CpSolver()
+    solver.parameters.num_workers = 1
+    solver.parameters.random_seed = int(seed)
+    solver.parameters.max_deterministic_time = float(deterministic_time)
+    status = solver.solve(m)
+    if status not in _FOUND or solver.objective_value >= hint_value:
+        if tried is not None:
+            if len(tried) >= TRIED_LIMIT:
+                tried.clear()
+            tried.add(key)
+        return None
+    new_assign, new_start = assign.copy(), start.copy()
+    for r, j in enumerate(freed.tolist()):
+        new_assign[j] = next(i for i, x in x_of[r].items() if solver.boolean_value(x))
+        new_start[j] = solver.value(s_var[r])
+    return new_assign, new_start
+
+
+def _windows(inst: Instance, freed: np.ndarray, start: np.ndarray, end: np.ndarray
+             ) -> np.ndarray:
+    """int64[F, 2] (release, deadline) of each freed job: its ready time and fixed
+    predecessors' ends; its fixed successors' starts and the makespan."""
+    local = set(freed.tolist())
+    makespan = int(end.max())
+    window = np.empty((len(freed), 2), dtype=np.int64)
+    for r, j in enumerate(freed.tolist()):
+        fixed_pred = [p for p in inst.predecessors(j).tolist() if p not in local]
+        fixed_succ = [q for q in inst.successors(j).tolist() if q not in local]
+        window[r, 0] = max([int(inst.ready[j])] + [int(end[p]) for p in fixed_pred])
+        window[r, 1] = min([makespan] + [int(start[q]) for q in fixed_succ])
+    return window
+
+
+def _sub_model(inst: Instance, nodes: np.ndarray, freed: np.ndarray, window: np.ndarray,
+               assign: np.ndarray, start: np.ndarray, end: np.ndarray):
+    """(model, start vars, per freed job {node: presence}, objective value of the hint): the
+    exact method's constraints over the freed jobs and `nodes` (see `repack_nodes`)."""
+    local = {int(j): r for r, j in enumerate(freed)}
+    m = cp_model.CpModel()
+    s_var, e_var, x_of = [], [], []
+    node_jobs: dict[int, list[int]] = {int(i): [] for i in nodes}
+    node_iv: dict[int, list] = {int(i): [] for i in nodes}
+    node_x: dict[int, list] = {int(i): [] for i in nodes}
+    for r, j in enumerate(freed.tolist()):
+        release, deadline = int(window[r, 0]), int(window[r, 1])
+        s = m.new_int_var(release, deadline, f"s{j}")
+        e = m.new_int_var(release, deadline, f"e{j}")
+        xs = {}
+        for i in nodes[inst.eligible[j, nodes]].tolist():
+            x = m.new_bool_var(f"x{j}_{i}")
+            xs[i] = x
+            node_jobs[i].append(j)
+            node_x[i].append(x)
+            node_iv[i].append(m.new_optional_fixed_size_interval_var(
+                s, int(inst.duration[j, i]), x, f"iv{j}_{i}"))
+            m.add_hint(x, bool(assign[j] == i))
+        m.add_exactly_one(xs.values())
+        m.add(e == s + cp_model.LinearExpr.weighted_sum(
+            list(xs.values()), [int(inst.duration[j, i]) for i in xs]))
+        m.add_hint(s, int(start[j]))
+        m.add_hint(e, int(end[j]))
+        s_var.append(s)
+        e_var.append(e)
+        x_of.append(xs)
+    for j in freed.tolist():
+        for p in inst.predecessors(j).tolist():
+            if p in local:
+                m.add(e_var[local[p]] <= s_var[local[j]])
+    makespan = int(end.max())
+    local_ms = m.new_int_var(0, makespan, "local_makespan")
+    for e in e_var:
+        m.add(local_ms >= e)
+    for i in nodes.tolist():
+        add_node_capacity(m, inst, i, node_jobs[i], node_iv[i], node_x[i], local_ms)
+    share = np.rint(100 * inst.demand[freed, 0] / inst.capacity[nodes, 0].max()).astype(np.int64)
+    share = np.maximum(share, 1)
+    big = int(share.sum()) * (makespan + 1) + 1
+    m.minimize(big * local_ms + cp_model.LinearExpr.weighted_sum(e_var, share.tolist()))
+    m.add_hint(local_ms, int(end[freed].max()))
+    hint_value = big * int(end[freed].max()) + int(share @ end[freed])
+    return m, s_var, x_of, hint_value
+
+
+def start_order(start: np.ndarray, order: np.ndarray) -> np.ndarray:
+    """int64[J] decoding order: the jobs by `start` of a feasible plan, ties by their place in
+    `order`.
+
+    It respects follows (a predecessor ends, so starts, strictly before its successor), and a
+    serial schedule generation scheme fed the jobs of a feasible schedule by start time starts
+    no job later than that schedule does (by induction: the jobs placed before job j started
+    no later than they did there, so they use no more of j's window; the argument behind
+    Kolisch's result that the serial scheme reaches every active schedule, EJOR 90, 1996,
+    from memory). So the repacked plan decodes at least as well as CP-SAT packed it, and
+    every other job starts no later than before."""
+    pos = np.empty(len(order), dtype=np.int64)
+    pos[order] = np.arange(len(order))
+    return np.lexsort((pos, start)).astype(np.int64)
+
+
+def keys_for_order(inst: Instance, order: np.ndarray) -> np.ndarray:
+    """float64[J] order keys that `order_keys.orders_from_keys` decodes to `order` (a
+    topological order of follows): bottom levels J - position, pseudo-hours the difference to
+    the largest successor's, keys = pseudo-hours / hours."""
+    n = inst.n_jobs
+    bottom = np.empty(n, dtype=np.float64)
+    bottom[order] = np.arange(n, 0, -1, dtype=np.float64)
+    h = bottom.copy()
+    for j in np.flatnonzero(np.diff(inst.succ_ptr) > 0).tolist():
+        h[j] = bottom[j] - bottom[inst.successors(j)].max()
+    return h / inst.hours
+
+
+def repack_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
+                inst: Instance, order: np.ndarray, evaluate, key, *, nodes: int, target: int,
+                deterministic_time: float, justify: bool, rng: np.random.Generator,
+                tried: set[bytes] | None = None
+                ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
+    """One repacking of the plan (assign int64[J], its order keys or None, its scorer row
+    `full`, decoded in `order` int64[J]): the nodes are one of the nodes ending at the
+    makespan (or the one `local.critical_node` blames) and partners from `pick_nodes`.
+
+    Returns the new (assign, keys, scorer row) when the rebuilt plan is no worse under `key`
+    (equal counts: a sideways step on a plateau), else None. With evolved orders the new
+    keys decode the plan in start order (`start_order`), so it is never worse than before;
+    with one fixed order the rebuilt plan is scored in that order and may not be.
+    """
+    start = build_schedule(inst, assign, order, justify=justify)
+    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    late = np.unique(assign[end == end.max()])
+    cands = np.union1d(late, [critical_node(inst, assign, start, end)])
+    crit = int(rng.choice(cands))
+    chosen = pick_nodes(inst, assign, end, crit, nodes, target, rng=rng)
+    seed = int(rng.integers(2**31 - 1))
+    found = repack_nodes(inst, assign, start, chosen, deterministic_time=deterministic_time,
+                         seed=seed, tried=tried)
+    if found is None:
+        return None
+    new_assign, new_start = found
+    new_keys, new_order = None, order
+    if keys is not None:
+        new_order = start_order(new_start, order)
+        new_keys = keys_for_order(inst, new_order)
+    new_full = evaluate(new_assign[None], new_order)[0]
+    if lex_less(key(assign[None], full[None]), key(new_assign[None], new_full[None])[0])[0]:
+        return None
+    return new_assign, new_keys, new_full
