@@ -24,7 +24,7 @@ from ortools.sat.python import cp_model
 
 from assignplan.instance import Instance
 from assignplan.methods.exact import add_node_capacity
-from assignplan.methods.ga.local import critical_node
+from assignplan.methods.ga.local import Evaluate, Key, critical_node
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
 
@@ -201,9 +201,9 @@ def keys_for_order(inst: Instance, order: np.ndarray) -> np.ndarray:
 
 
 def repack_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
-                inst: Instance, order: np.ndarray, evaluate, key, *, nodes: int, target: int,
-                deterministic_time: float, justify: bool, rng: np.random.Generator,
-                tried: set[bytes] | None = None
+                inst: Instance, order: np.ndarray, evaluate: Evaluate, key: Key, *, nodes: int,
+                target: int, deterministic_time: float, justify: bool,
+                rng: np.random.Generator, tried: set[bytes] | None = None
                 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
     """One repacking of the plan (assign int64[J], its order keys or None, its scorer row
     `full`, decoded in `order` int64[J]): the nodes are one of the nodes ending at the
