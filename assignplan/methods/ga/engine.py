@@ -299,12 +299,14 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
 
 def _repack_best(pop, keys, pop_key, back, inst, config, order, decode_orders, evaluate,
                  key, score, genomes, target, tried, *, rng) -> None:
-    """Repack a few nodes of the best member exactly (`repack.repack_step`), in place."""
+    """Repack a few nodes of the best member exactly (`repack.repack_step`), in place: its
+    genome, key row and cache entry change together, and the trial counts as an evaluation."""
     b = int(np.argmin(lex_rank(pop_key)))
     order_b = order if keys is None else decode_orders(keys[[b]])[0]
     full_b = pop_key[b, back]
     if config.tiebreak not in ("spread", "tail"):
         full_b = full_b[:3]
+
     def scorer(a: np.ndarray, o: np.ndarray) -> np.ndarray:
         score.evaluations += len(a)
         return evaluate(a, o)[:, : len(full_b)]
