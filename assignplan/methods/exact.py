@@ -84,39 +84,62 @@ def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> 
     big = horizon(inst)
     m = cp_model.CpModel()
 
-    # variables
-    start = [m.new_int_var(int(inst.ready[j]), big, f"s{j}") for j in range(n_jobs)]
-    end = [m.new_int_var(int(inst.ready[j]) + 1, big, f"e{j}") for j in range(n_jobs)]
-    presence: list[dict[int, cp_model.IntVar]] = [{} for _ in range(n_jobs)]
-    # per node: its eligible jobs, their optional intervals and presence literals
-    node_jobs: list[list[int]] = [[] for _ in range(n_nodes)]
-    node_iv: list[list[cp_model.IntervalVar]] = [[] for _ in range(n_nodes)]
-    node_x: list[list[cp_model.IntVar]] = [[] for _ in range(n_nodes)]
+    # variables and each job's own constraints
+    slots = NodeSlots(n_nodes)
+    start, end, presence = [], [], []
     for j in range(n_jobs):
-        for i in np.flatnonzero(inst.eligible[j]):
-            i = int(i)
-            x = m.new_bool_var(f"x{j}_{i}")
-            presence[j][i] = x
-            node_jobs[i].append(j)
-            node_x[i].append(x)
-            node_iv[i].append(m.new_optional_fixed_size_interval_var(
-                start[j], int(inst.duration[j, i]), x, f"iv{j}_{i}"))
+        s, e, x = add_job(m, inst, j, np.flatnonzero(inst.eligible[j]), int(inst.ready[j]),
+                          big, slots)
+        start.append(s)
+        end.append(e)
+        presence.append(x)
     makespan = m.new_int_var(0, big, "makespan")
 
-    # constraints
+    # constraints between jobs, and per node
     for j in range(n_jobs):
-        m.add_exactly_one(presence[j].values())
-        nodes = list(presence[j])
-        m.add(end[j] == start[j] + cp_model.LinearExpr.weighted_sum(
-            [presence[j][i] for i in nodes], [int(inst.duration[j, i]) for i in nodes]))
         for p in inst.predecessors(j):
             m.add(end[int(p)] <= start[j])
         m.add(makespan >= end[j])
     for i in range(n_nodes):
-        add_node_capacity(m, inst, i, node_jobs[i], node_iv[i], node_x[i], makespan)
+        add_node_capacity(m, inst, i, slots.jobs[i], slots.intervals[i], slots.presence[i],
+                          makespan)
 
     _add_hint(m, inst, hint, start, end, presence, makespan)
     return _Model(m, start, end, presence, makespan, *_secondary_objectives(m, inst, end, big))
+
+
+class NodeSlots:
+    """Per node: the jobs that may run there, their optional intervals and presence literals
+    (filled by `add_job`, read by `add_node_capacity`)."""
+
+    def __init__(self, n_nodes: int):
+        self.jobs: dict[int, list[int]] = {i: [] for i in range(n_nodes)}
+        self.intervals: dict[int, list[cp_model.IntervalVar]] = {i: [] for i in range(n_nodes)}
+        self.presence: dict[int, list[cp_model.IntVar]] = {i: [] for i in range(n_nodes)}
+
+
+def add_job(m: cp_model.CpModel, inst: Instance, j: int, nodes: np.ndarray, lo: int, hi: int,
+            slots: NodeSlots) -> tuple[cp_model.IntVar, cp_model.IntVar,
+                                       dict[int, cp_model.IntVar]]:
+    """Job j on one of `nodes` (each able to hold it) within [lo, hi]: (s_j, e_j, {i: x_ji}).
+
+    x_ji in {0,1}, sum_i x_ji = 1, an optional interval [s_j, s_j + d_ji) present iff x_ji
+    (recorded in `slots`), e_j = s_j + sum_i d_ji x_ji, lo <= s_j, e_j <= hi.
+    """
+    s = m.new_int_var(lo, hi, f"s{j}")
+    e = m.new_int_var(lo + 1, hi, f"e{j}")
+    presence: dict[int, cp_model.IntVar] = {}
+    for i in np.asarray(nodes).tolist():
+        x = m.new_bool_var(f"x{j}_{i}")
+        presence[i] = x
+        slots.jobs[i].append(j)
+        slots.presence[i].append(x)
+        slots.intervals[i].append(m.new_optional_fixed_size_interval_var(
+            s, int(inst.duration[j, i]), x, f"iv{j}_{i}"))
+    m.add_exactly_one(presence.values())
+    m.add(e == s + cp_model.LinearExpr.weighted_sum(
+        list(presence.values()), [int(inst.duration[j, i]) for i in presence]))
+    return s, e, presence
 
 
 def add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[int],

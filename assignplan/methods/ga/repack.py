@@ -23,7 +23,7 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from assignplan.instance import Instance
-from assignplan.methods.exact import add_node_capacity
+from assignplan.methods.exact import NodeSlots, add_job, add_node_capacity
 from assignplan.methods.ga.local import Evaluate, Key, critical_node
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
@@ -128,25 +128,12 @@ def _sub_model(inst: Instance, nodes: np.ndarray, freed: np.ndarray, window: np.
     local = {int(j): r for r, j in enumerate(freed)}
     m = cp_model.CpModel()
     s_var, e_var, x_of = [], [], []
-    node_jobs: dict[int, list[int]] = {int(i): [] for i in nodes}
-    node_iv: dict[int, list] = {int(i): [] for i in nodes}
-    node_x: dict[int, list] = {int(i): [] for i in nodes}
+    slots = NodeSlots(inst.n_nodes)
     for r, j in enumerate(freed.tolist()):
-        release, deadline = int(window[r, 0]), int(window[r, 1])
-        s = m.new_int_var(release, deadline, f"s{j}")
-        e = m.new_int_var(release, deadline, f"e{j}")
-        xs = {}
-        for i in nodes[inst.eligible[j, nodes]].tolist():
-            x = m.new_bool_var(f"x{j}_{i}")
-            xs[i] = x
-            node_jobs[i].append(j)
-            node_x[i].append(x)
-            node_iv[i].append(m.new_optional_fixed_size_interval_var(
-                s, int(inst.duration[j, i]), x, f"iv{j}_{i}"))
+        s, e, xs = add_job(m, inst, j, nodes[inst.eligible[j, nodes]], int(window[r, 0]),
+                           int(window[r, 1]), slots)
+        for i, x in xs.items():
             m.add_hint(x, bool(assign[j] == i))
-        m.add_exactly_one(xs.values())
-        m.add(e == s + cp_model.LinearExpr.weighted_sum(
-            list(xs.values()), [int(inst.duration[j, i]) for i in xs]))
         m.add_hint(s, int(start[j]))
         m.add_hint(e, int(end[j]))
         s_var.append(s)
@@ -161,7 +148,8 @@ def _sub_model(inst: Instance, nodes: np.ndarray, freed: np.ndarray, window: np.
     for e in e_var:
         m.add(local_ms >= e)
     for i in nodes.tolist():
-        add_node_capacity(m, inst, i, node_jobs[i], node_iv[i], node_x[i], local_ms)
+        add_node_capacity(m, inst, i, slots.jobs[i], slots.intervals[i], slots.presence[i],
+                          local_ms)
     share = np.rint(100 * inst.demand[freed, 0] / inst.capacity[nodes, 0].max()).astype(np.int64)
     share = np.maximum(share, 1)
     big = int(share.sum()) * (makespan + 1) + 1
