@@ -29,6 +29,7 @@ from assignplan.instance import Instance, build_instance  # noqa: E402
 from assignplan.model import ExpandedBatch, expand_batch, parse_batch_text  # noqa: E402
 from assignplan.plan import PlanResult, to_plan_doc  # noqa: E402
 from assignplan.planner import solve  # noqa: E402
+from benchmarks.bench_builder import write_section  # noqa: E402
 from benchmarks.reductions import (  # noqa: E402
     HOUR,
     bin_packing_batch,
@@ -216,20 +217,6 @@ def table(rows: list[Row], args: argparse.Namespace, bugs: list[str], total: flo
     return "\n".join(lines) + "\n"
 
 
-def write_section(text: str) -> None:
-    """Replace only this script's section of RESULTS.md (append it when missing)."""
-    old = RESULTS.read_text(encoding="utf-8") if RESULTS.exists() else "# Benchmark results\n"
-    start = old.find(SECTION + "\n")
-    if start < 0:
-        new = old.rstrip("\n") + "\n\n" + text
-    else:
-        nxt = old.find("\n## ", start + len(SECTION))
-        new = old[:start] + text + ("" if nxt < 0 else old[nxt:])
-    tmp = RESULTS.with_suffix(".md.tmp")
-    tmp.write_text(new, encoding="utf-8")
-    tmp.replace(RESULTS)
-
-
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--exact-seconds", type=float, default=3.0)
@@ -252,7 +239,7 @@ def main(argv: list[str] | None = None) -> int:
     text = table(rows, args, bugs, time.perf_counter() - t0)
     print(text)
     if not args.no_write:
-        write_section(text)
+        write_section(text, RESULTS, SECTION)
     return 1 if bugs else 0
 
 
