@@ -15,7 +15,6 @@ from __future__ import annotations
 import argparse
 import importlib.util
 import itertools
-import re
 import sys
 import time
 from pathlib import Path
@@ -32,8 +31,8 @@ from assignplan.importers.swf import REQ_TIME, RUN, STATUS, Trace, read_swf, wee
 from assignplan.instance import build_instance  # noqa: E402
 from assignplan.methods.greedy import solve_greedy  # noqa: E402
 from assignplan.model import Batch, expand_batch  # noqa: E402
-from assignplan.report.exports import atomic_write_text  # noqa: E402
 from assignplan.report.stats import summary  # noqa: E402
+from benchmarks.bench_builder import write_section  # noqa: E402
 
 SECTION = "## Real weeks from the KTH-SP2 trace"
 DEFAULT_TRACE = REPO.parent / "shared" / "data" / "swf" / "KTH-SP2-1996-2.1-cln.swf"
@@ -218,17 +217,6 @@ def markdown(args, trace: Trace, weeks: pd.DataFrame, ratios: pd.DataFrame, fact
     return "\n".join(lines)
 
 
-def write_section(path: Path, text: str) -> None:
-    """Replace this script's section of RESULTS.md (or append it), leaving others untouched."""
-    old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
-    pattern = re.compile(rf"^{re.escape(SECTION)}\n.*?(?=^## |\Z)", re.S | re.M)
-    if pattern.search(old):
-        new = pattern.sub(lambda _m: text.rstrip("\n") + "\n\n", old, count=1)
-    else:
-        new = old.rstrip("\n") + "\n\n" + text
-    atomic_write_text(path, new.rstrip("\n") + "\n")
-
-
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("trace", nargs="?", default=str(DEFAULT_TRACE))
@@ -253,7 +241,7 @@ def main(argv: list[str] | None = None) -> None:
     text = markdown(args, trace, weeks, ratios, facts, methods)
     print(text)
     if not args.no_write:
-        write_section(Path(args.results), text)
+        write_section(text, Path(args.results), SECTION)
 
 
 if __name__ == "__main__":
