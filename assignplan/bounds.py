@@ -11,6 +11,8 @@ from assignplan.instance import RESOURCES, Instance
 
 MAX_CLASSES = 300  # node-set classes examined beyond the whole cluster (largest load first)
 MAX_CLIQUE_CLASSES = 40  # of those, the ones also searched for a clique of conflicting jobs
+DFF_K = 16  # u^(k) of `dff_work` for k = 1 .. DFF_K
+DFF_THRESHOLDS = 12  # thresholds e of U^(e) tried by `dff_work`
 _CHUNK_CELLS = 2_000_000  # job x node cells per vectorised block: bounds memory at ~16 MB/array
 _BIG = np.iinfo(np.int64).max // 4
 # Work and supply are float sums of up to ~1e14; a relative slack far below one minute of any
@@ -38,6 +40,8 @@ def lower_bound(inst: Instance) -> LowerBound:
       node set S can hold, on S alone.
     - ``conflict``: jobs that can never share a node, counted by pigeonhole (see
       `conflict_bound`).
+    - ``dff``: the work bounds again, each job's demand first mapped by a dual feasible
+      function (see `dff_work`), which counts jobs that cannot share a node as larger.
     - ``clique``: a set of pairwise-conflicting jobs (any two overflow some resource on every
       node that can hold them, e.g. whole-node jobs, or a memory-heavy job and a core-heavy
       one) shares its host nodes like P||Cmax machines: average load (see `clique_bound`).
@@ -154,7 +158,8 @@ def _max_capacity(inst: Instance) -> np.ndarray:
     return out
 
 
-def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance) -> np.ndarray:
+def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance,
+               capacity: np.ndarray | None = None) -> np.ndarray:
     """int64[R]: the smallest T with sum_{i in nodes} cap_ir * speed_i * avail_i(T) >= W_r.
 
     A job j on node i occupies d_jr resource units for dur_ji minutes, all inside
@@ -164,14 +169,16 @@ def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance) 
     using dur_ji * speed_i >= ref_j = min_{i' eligible} dur_ji' * speed_i' (>= hours_j * 60):
         W_r = sum_j d_jr * ref_j <= sum_i cap_ir * speed_i * avail_i(T).
     The right side is non-decreasing in T, so the smallest such integer T is found by
-    bisection. A resource without work gives 0.
+    bisection. A resource without work gives 0. `capacity` (int64[N, R], default
+    inst.capacity) replaces cap_ir in the supply, for work measured in other units (`dff_work`).
     """
-    rate = (inst.capacity[nodes] * inst.speed[nodes, None]).astype(np.float64)  # [n, R]
+    cap = inst.capacity if capacity is None else capacity
+    rate = (cap[nodes] * inst.speed[nodes, None]).astype(np.float64)  # [n, R]
     win_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
     keep = np.isin(win_node, nodes) & (inst.maint_end > start)
     w_start = np.maximum(inst.maint_start[keep], start)
     w_end = inst.maint_end[keep]
-    w_rate = (inst.capacity[win_node[keep]] * inst.speed[win_node[keep], None]).astype(float)
+    w_rate = (cap[win_node[keep]] * inst.speed[win_node[keep], None]).astype(float)
     total_rate = rate.sum(axis=0)
 
     def supply(t: np.ndarray) -> np.ndarray:
@@ -190,6 +197,40 @@ def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance) 
         hi = np.where(active & ok, mid, hi)
         lo = np.where(active & ~ok, mid, lo)
     return np.where(active, hi, 0)
+
+
+def dff_work(demand: np.ndarray, ref: np.ndarray, cap: int) -> float:
+    """max over a family of dual feasible functions f of sum_j f(d_j / cap) * cap * ref_j.
+
+    A dual feasible function f: [0, 1] -> [0, 1] keeps sizes that add up to at most 1 adding
+    up to at most 1. The jobs running at any minute on a node whose capacity is at most
+    `cap` use at most cap, so their transformed demands f(d / cap) * cap add up to at most
+    cap: the transformed work obeys the supply inequality of `work_bound` with cap on every
+    node that has any of the resource, and it can be larger than the plain work (3-GPU jobs
+    on 4-GPU nodes never run two at once, and u^(1) counts each as a whole node).
+    Family (S. P. Fekete and J. Schepers, "New classes of fast lower bounds for bin packing
+    problems", Math. Programming 91, 2001): the identity;
+        u^(k)(x) = x if (k+1)x is an integer, else floor((k+1)x) / k,   k = 1 .. DFF_K;
+        U^(e)(x) = 1 if x > 1 - e;  x if e <= x <= 1 - e;  0 if x < e,  0 < e <= 1/2;
+    and u^(k) o U^(e) (a composition of dual feasible functions is one). Thresholds e are
+    demands of the batch (at most DFF_THRESHOLDS of them, spread over their range); all in
+    integer demand units, so (k+1)x is tested exactly.
+    """
+    d = np.asarray(demand, dtype=np.int64)
+    if cap <= 0 or len(d) == 0:
+        return 0.0
+    small = np.unique(d[(d > 0) & (2 * d <= cap)])
+    if len(small) > DFF_THRESHOLDS:
+        small = small[np.linspace(0, len(small) - 1, DFF_THRESHOLDS).astype(np.int64)]
+    t = np.concatenate(([0], small))[:, None]  # threshold 0: no U^(e) first
+    y = np.where(d[None, :] > cap - t, cap, np.where(d[None, :] < t, 0, d[None, :]))
+    ref = np.asarray(ref, dtype=np.float64)
+    best = float((y @ ref).max())
+    for k in range(1, DFF_K + 1):
+        up = (k + 1) * y
+        val = np.where(up % cap == 0, y, (up // cap) * (cap / k))
+        best = max(best, float((val @ ref).max()))
+    return best
 
 
 def conflict_bound(p: np.ndarray, est: np.ndarray, n_hosts: int) -> int:
@@ -285,6 +326,7 @@ def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
     out.update({f"class_{name}": 0 for name in RESOURCES})
     out["conflict"] = 0
     out["clique"] = 0
+    out["dff"] = 0
     all_nodes = np.arange(inst.n_nodes)
     for label, c in [("", None)] + [("class_", c) for c in classes]:
         if c is None:
@@ -302,9 +344,26 @@ def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
                 b = conflict_bound(mindur[chosen], est[chosen], hosts)
                 out["conflict"] = max(out["conflict"], b)
         if c is None or c in classes[:MAX_CLIQUE_CLASSES]:
+            out["dff"] = max(out["dff"], _dff_part(inst, jobs, nodes, ref, int(est[jobs].min())))
             out["clique"] = max(out["clique"], _clique_part(inst, np.flatnonzero(jobs), nodes,
                                                             mindur, est, inverse, row_nodes))
     return out
+
+
+def _dff_part(inst: Instance, jobs: np.ndarray, nodes: np.ndarray, ref: np.ndarray,
+              start: int) -> int:
+    """`work_bound` of the `dff_work` of the jobs (bool[J]) on `nodes`, best resource."""
+    best = 0
+    for r in range(len(RESOURCES)):
+        cap = int(inst.capacity[nodes, r].max())
+        use = jobs & (inst.demand[:, r] > 0)
+        if cap <= 0 or not use.any():
+            continue
+        work = np.zeros(len(RESOURCES))
+        work[r] = dff_work(inst.demand[use, r], ref[use], cap)
+        level = np.where(inst.capacity > 0, cap, 0)  # cap on every node that has any of r
+        best = max(best, int(work_bound(work, nodes, start, inst, capacity=level)[r]))
+    return best
 
 
 def _clique_part(inst: Instance, jobs: np.ndarray, nodes: np.ndarray, mindur: np.ndarray,
