@@ -20,18 +20,20 @@ from assignplan.plan import PlanResult, make_result
 from assignplan.schedule import check_order
 
 
-def greedy_assign(inst: Instance, order: np.ndarray | None = None
-                  ) -> tuple[np.ndarray, np.ndarray]:
+def greedy_assign(inst: Instance, order: np.ndarray | None = None,
+                  eligible: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(assign, start), both int64[J]: list scheduling of jobs in `order` (default inst.order).
 
     Each job goes to the eligible node with the earliest finish s_i + p_ji, s_i being its
     earliest feasible start there; ties to the earlier start, then the lower node index.
+    `eligible` (bool[J, N], inside inst.eligible with a node per job) narrows the choice.
     """
     order = check_order(inst, order)
     assign = np.empty(inst.n_jobs, dtype=np.int64)
     start = np.empty(inst.n_jobs, dtype=np.int64)
     ok = kernels.greedy_list(
-        order, inst.eligible, inst.demand, inst.duration, inst.ready, inst.pred_ptr,
+        order, inst.eligible if eligible is None else eligible, inst.demand, inst.duration,
+        inst.ready, inst.pred_ptr,
         inst.pred_idx, inst.capacity, inst.maint_ptr, inst.maint_start, inst.maint_end,
         assign, start,
     )

@@ -39,6 +39,10 @@ class GAConfig(BaseModel):
                             description="Stop after this many generations without a better best.")
     greedy_variants: int = Field(default=8, ge=0, le=10_000,
                                  description="Greedy plans from perturbed priority orders.")
+    balanced_seeds: int = Field(
+        default=4, ge=0, le=10_000,
+        description="Greedy seeds restricted to the node groups the class-split relaxation "
+                    "gives each job's class (`balance`), from the first greedy orders.")
     order_noise: float = Field(default=0.3, ge=0.0, lt=1.0,
                                description="Relative noise on hours for the greedy variants.")
     tiebreak: Literal["none", "balance", "spread", "tail"] = Field(

@@ -9,6 +9,7 @@ import numpy as np
 
 from assignplan.instance import Instance, priority_order
 from assignplan.methods.ga import crossover, mutation, survival
+from assignplan.methods.ga.balance import balanced_eligibility
 from assignplan.methods.ga.config import GAConfig
 from assignplan.methods.ga.encoding import EligibleIndex, node_load, random_population
 from assignplan.methods.ga.local import improve, improve_order
@@ -61,11 +62,13 @@ def initial_population(inst: Instance, config: GAConfig, index: EligibleIndex, *
     """(int64[mu, J] population, float64[mu, J] order keys, index of the best seed).
 
     Members: the greedy plan of inst.order (keys 1), greedy plans of the orders of
-    `greedy_variant_keys` (each with its keys), then random eligible plans. The fixed
-    decoding order (when orders do not evolve) is the best seed's; random members get its
-    keys. The builder replays a greedy plan exactly under its own order, so with evolved
-    orders every seed decodes to its greedy plan, and with one fixed order the run starts from
-    the best greedy plan: either way the run never ends worse than greedy.
+    `greedy_variant_keys` (each with its keys), greedy plans of the first of those orders
+    restricted to the node groups `balance.balanced_eligibility` gives each job (with those
+    orders' keys), then random eligible plans. The fixed decoding order (when orders do not
+    evolve) is the best seed's; random members get its keys. The builder replays a greedy
+    plan exactly under its own order, so with evolved orders every seed decodes to its greedy
+    plan, and with one fixed order the run starts from the best greedy plan: either way the
+    run never ends worse than greedy.
     """
     keys = [np.ones(inst.n_jobs)]
     keys += greedy_variant_keys(inst, min(config.greedy_variants, config.mu - 1),
@@ -73,6 +76,11 @@ def initial_population(inst: Instance, config: GAConfig, index: EligibleIndex, *
     variants = orders_from_keys(inst, np.stack(keys[1:])) if len(keys) > 1 else []
     orders = [inst.order] + [check_order(inst, o) for o in variants]
     plans = [greedy_assign(inst, order) for order in orders]
+    n_balanced = min(config.balanced_seeds, len(orders), config.mu - len(orders))
+    allowed = balanced_eligibility(inst) if n_balanced > 0 else None
+    if allowed is not None:
+        plans += [greedy_assign(inst, order, allowed) for order in orders[:n_balanced]]
+        keys += keys[:n_balanced]
     jobs = np.arange(inst.n_jobs)
     scores = np.array([objective(inst, start + inst.duration[jobs, assign])
                        for assign, start in plans], dtype=np.float64)

@@ -1,0 +1,72 @@
+"""Which node groups each class of jobs should use: a linear relaxation that spreads every
+eligibility class's work over the node groups so that the most loaded group ends earliest.
+
+Plain jobs can run anywhere, so earliest-finish list scheduling puts them on the fast and the
+special nodes as well (they finish earliest there), and the jobs only those nodes can hold
+queue behind them while plain nodes sit idle. The relaxation is the fractional assignment
+LP of Lenstra, Shmoys and Tardos (Math. Programming 46, 1990, from memory) over classes of
+jobs instead of single jobs: it says how much of each class each group should take. Greedy
+restricted to the groups the relaxation uses gives seeds that leave the special nodes to the
+jobs that need them. It is guidance only, not a bound: a job's use of a node is estimated by
+its largest resource share, and ready times, follows and maintenance are left out.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from ortools.linear_solver import pywraplp
+
+USED = 1e-6  # share of a class's work above which a group counts as used by the relaxation
+
+
+def node_groups(inst) -> np.ndarray:
+    """int64[N]: nodes with the same capacity, speed and eligible jobs share a group."""
+    cols = np.concatenate([inst.eligible.T, inst.capacity,
+                           np.round(inst.speed * 1e6).astype(np.int64)[:, None]], axis=1)
+    return np.unique(cols, axis=0, return_inverse=True)[1].reshape(-1).astype(np.int64)
+
+
+def class_split(inst) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """(class int64[J], group int64[N], share float64[C, G], T): the relaxation's optimum.
+
+    share[c, g] is the part of class c's work that group g takes; T the load (minutes per
+    node) of the most loaded group. Minimise T subject to sum_g share[c, g] = 1 and, per
+    group, sum_c share[c, g] * a[c, g] <= n_g * T, where a[c, g] is the node-minutes all of
+    class c would take on g: sum over its jobs of duration on g x largest resource share.
+    """
+    group = node_groups(inst)
+    cls = np.unique(inst.eligible, axis=0, return_inverse=True)[1].reshape(-1)
+    n_cls, n_grp = int(cls.max()) + 1, int(group.max()) + 1
+    rep = np.array([np.flatnonzero(group == g)[0] for g in range(n_grp)])
+    frac = (inst.demand[:, None, :] / np.maximum(inst.capacity[rep][None, :, :], 1)).max(axis=2)
+    area = np.zeros((n_cls, n_grp))
+    np.add.at(area, cls, frac * inst.duration[:, rep])
+    can = np.zeros((n_cls, n_grp), dtype=bool)
+    np.logical_or.at(can, cls, inst.eligible[:, rep])
+    size = np.bincount(group, minlength=n_grp)
+    lp = pywraplp.Solver.CreateSolver("GLOP")
+    t = lp.NumVar(0.0, lp.infinity(), "T")
+    var = {(c, g): lp.NumVar(0.0, 1.0, f"s{c}_{g}")
+           for c, g in zip(*np.nonzero(can), strict=True)}
+    for c in range(n_cls):
+        lp.Add(sum(var[c, g] for g in np.flatnonzero(can[c])) == 1)
+    for g in range(n_grp):
+        lp.Add(sum(float(area[c, g]) * var[c, g] for c in np.flatnonzero(can[:, g]))
+               <= float(size[g]) * t)
+    lp.Minimize(t)
+    share = np.zeros((n_cls, n_grp))
+    if lp.Solve() != pywraplp.Solver.OPTIMAL:
+        share[can] = 1.0  # no guidance: every eligible group stays open
+        return cls, group, share, float("nan")
+    for (c, g), v in var.items():
+        share[c, g] = v.solution_value()
+    return cls, group, share, t.solution_value()
+
+
+def balanced_eligibility(inst) -> np.ndarray | None:
+    """bool[J, N]: each job's eligible nodes in the groups the relaxation gives its class
+    work in (`class_split`), or None when that changes nothing (one class, or every class
+    spread over all its groups)."""
+    cls, group, share, _ = class_split(inst)
+    allowed = inst.eligible & (share[cls][:, group] > USED)
+    return None if np.array_equal(allowed, inst.eligible) else allowed
