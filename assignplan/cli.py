@@ -79,6 +79,9 @@ LocalOpt = Annotated[bool, typer.Option(
 RepackOpt = Annotated[int, typer.Option(
     help="ga: nodes re-packed exactly (CP-SAT) around the makespan node each generation; "
          "0: off.", min=0, max=64, rich_help_panel="ga")]
+BalancedOpt = Annotated[int, typer.Option(
+    help="ga: greedy seeds that keep each class of jobs on the node groups a work-split "
+         "relaxation gives it; 0: off.", min=0, max=10_000, rich_help_panel="ga")]
 
 
 def ga_config(**fields) -> GAConfig:
@@ -149,6 +152,7 @@ def solve(
     survival: SurvivalOpt = GA_DEFAULTS.survival,
     local_search: LocalOpt = GA_DEFAULTS.local_search,
     repack_nodes: RepackOpt = GA_DEFAULTS.repack_nodes,
+    balanced_seeds: BalancedOpt = GA_DEFAULTS.balanced_seeds,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.instance import build_instance
@@ -170,7 +174,8 @@ def solve(
                        crossover=crossover, crossover_bias=crossover_bias, kpoints=kpoints,
                        mutation=mutation, mutation_flips=mutation_flips,
                        tournament_size=tournament_size, survival=survival,
-                       local_search=local_search, repack_nodes=repack_nodes)
+                       local_search=local_search, repack_nodes=repack_nodes,
+                       balanced_seeds=balanced_seeds)
     inst = build_instance(expanded)
     bound = lower_bound(inst).value
     with progress_bar(method == "ga" and not quiet and not as_json, config.generations,
