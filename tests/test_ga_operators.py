@@ -352,3 +352,42 @@ def test_packing_exchange_fills_a_node_the_plain_moves_cannot():
                                   justify=True, target=60)
     assert new_fit[0] == 60 and spent <= 8
     np.testing.assert_array_equal(assign, [0, 0, 1, 1])  # input untouched
+
+
+def test_promotion_moves_every_waiting_sweep_ahead_at_once():
+    # Three one-core nodes. a: L1 (5 h) then S1 (2 h); b: L2 (5 h) then S2 (2 h); c: G (4 h,
+    # follows S1 and S2) and X (3 h). With the sweeps decoded after L1 and L2, G waits for
+    # both until 7 h and ends at 11 h. Decoding both sweeps first (S 0-2, L 2-7; G 2-6, X 6-9
+    # on c) ends at 9 h. Moving one sweep alone gains nothing (G still waits for the other),
+    # so the single trial has to promote both.
+    from assignplan.methods.ga.local import improve_order
+    from assignplan.schedule import evaluate_population
+
+    week = {"start": "2026-12-07T00:00:00", "hours": 168.0}
+    one = {"cores": 1, "memory_gib": 1.0}
+    _, inst = instance_of({"window": week,
+                           "nodes": [{"name": n, **one} for n in "abc"],
+                           "jobs": [{"name": "L1", **one, "hours": 5.0},
+                                    {"name": "S1", **one, "hours": 2.0},
+                                    {"name": "L2", **one, "hours": 5.0},
+                                    {"name": "S2", **one, "hours": 2.0},
+                                    {"name": "G", **one, "hours": 4.0, "follows": ["S1", "S2"]},
+                                    {"name": "X", **one, "hours": 3.0}]})
+    names = list(inst.job_names)
+    node = {"L1": 0, "S1": 0, "L2": 1, "S2": 1, "G": 2, "X": 2}
+    assign = np.array([node[n] for n in names])
+    keys = np.ones(inst.n_jobs)
+    for n in ("S1", "S2"):
+        keys[names.index(n)] = 0.01  # the sweeps (and so G) decoded last
+
+    def evaluate(a, o):
+        return evaluate_population(inst, a, o, justify=False)
+
+    fit = evaluate(assign[None], orders_from_keys(inst, keys[None]))[0]
+    assert fit[0] == 11 * 60
+    new_keys, new_fit, spent = improve_order(assign, keys, fit, inst, evaluate, 1,
+                                             justify=False)
+    assert new_fit[0] == 9 * 60 and spent == 1
+    order = orders_from_keys(inst, new_keys[None])[0].tolist()
+    for s, long in (("S1", "L1"), ("S2", "L2")):
+        assert order.index(names.index(s)) < order.index(names.index(long))

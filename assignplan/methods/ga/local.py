@@ -206,6 +206,7 @@ def _order_neighbours(inst: Instance, assign: np.ndarray, keys: np.ndarray, orde
     start = build_schedule(inst, assign, order, justify=justify)
     end = start + inst.duration[np.arange(inst.n_jobs), assign]
     crit = critical_node(inst, assign, start, end)
+    yield from _promotions(inst, assign, start, end, keys)
     pos = np.empty(inst.n_jobs, dtype=np.int64)
     pos[order] = np.arange(inst.n_jobs)
     on = np.flatnonzero(assign == crit)
@@ -216,6 +217,65 @@ def _order_neighbours(inst: Instance, assign: np.ndarray, keys: np.ndarray, orde
             a, b = on[x], on[x + gap]
             trial = keys.copy()
             trial[a], trial[b] = q[b] / inst.hours[a], q[a] / inst.hours[b]
+            yield trial
+
+
+def _critical_waiters(inst: Instance, start: np.ndarray, end: np.ndarray,
+                      limit: int = 64) -> list[int]:
+    """Jobs of the critical chains that waited for their node: from every job ending at the
+    makespan, back through each predecessor whose end is the job's start (ties included:
+    a gather waits for all its sweeps that end last), stopping at a job that started after
+    max(ready, predecessor ends) (see `critical_node`). At most `limit` jobs are visited."""
+    todo = np.flatnonzero(end == end.max()).tolist()
+    seen, waiters = set(todo), []
+    while todo and len(seen) <= limit:
+        j = todo.pop()
+        preds = inst.predecessors(j)
+        free = max(int(inst.ready[j]), int(end[preds].max()) if len(preds) else 0)
+        if start[j] > free:
+            waiters.append(j)
+            continue
+        for p in preds[end[preds] == start[j]].tolist():
+            if p not in seen:
+                seen.add(p)
+                todo.append(p)
+    return sorted(waiters)
+
+
+def _promotions(inst: Instance, assign: np.ndarray, start: np.ndarray, end: np.ndarray,
+                keys: np.ndarray) -> Iterator[np.ndarray]:
+    """Trial keys float64[J] that decode each waiting job a of the critical chains
+    (`_critical_waiters`) ahead of the jobs of its node that start before it: all of them,
+    then the later half.
+
+    A chain waits at a: a gathering job that needs a whole node, after sweeps placed late in
+    the order, ends the plan hours after its inputs could have been done, and when several
+    sweeps end last together every one of them has to move. Swaps of neighbours in the order
+    (below) move one job one place at a time; this moves them all at once. Pseudo-hours
+    q = hours * keys give bottom levels B; raising q_a by (max B over the jobs ahead of it)
+    - B_a + a little puts B_a above them all, so a decodes first among them.
+    """
+    waiters = _critical_waiters(inst, start, end)
+    if not waiters:
+        return
+    q = inst.hours * keys
+    bottom = q.copy()
+    for j in inst.order[::-1].tolist():
+        succ = inst.successors(j)
+        if len(succ):
+            bottom[j] = q[j] + bottom[succ].max()
+    for part in (0, 2):  # ahead of all earlier jobs on the node, then of the later half
+        trial, moved = keys.copy(), False
+        for a in waiters:
+            ahead = np.flatnonzero((assign == assign[a]) & (start < start[a]))
+            ahead = ahead[np.argsort(start[ahead], kind="stable")][len(ahead) // 2 if part else 0:]
+            if not len(ahead):
+                continue
+            top = bottom[ahead].max()
+            if top >= bottom[a]:
+                trial[a] = (q[a] + top - bottom[a] + 1e-6 * max(1.0, top)) / inst.hours[a]
+                moved = True
+        if moved:
             yield trial
 
 
