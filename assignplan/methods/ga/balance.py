@@ -68,5 +68,6 @@ def balanced_eligibility(inst) -> np.ndarray | None:
     work in (`class_split`), or None when that changes nothing (one class, or every class
     spread over all its groups)."""
     cls, group, share, _ = class_split(inst)
-    allowed = inst.eligible & (share[cls][:, group] > USED)
+    used = share > USED  # [C, G]: bool, so the [J, N] mask is bytes, not floats
+    allowed = inst.eligible & used[cls][:, group]
     return None if np.array_equal(allowed, inst.eligible) else allowed

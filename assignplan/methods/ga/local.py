@@ -225,15 +225,18 @@ def _critical_waiters(inst: Instance, start: np.ndarray, end: np.ndarray,
     """Jobs of the critical chains that waited for their node: from every job ending at the
     makespan, back through each predecessor whose end is the job's start (ties included:
     a gather waits for all its sweeps that end last), stopping at a job that started after
-    max(ready, predecessor ends) (see `critical_node`). At most `limit` jobs are visited."""
-    todo = np.flatnonzero(end == end.max()).tolist()
-    seen, waiters = set(todo), []
+    max(ready, predecessor ends) (see `critical_node`). A last job that waited itself is
+    not one: on its own node, putting it first only reorders that node (the swaps' work).
+    At most `limit` jobs are visited."""
+    last = np.flatnonzero(end == end.max()).tolist()
+    todo, seen, waiters = list(last), set(last), []
     while todo and len(seen) <= limit:
         j = todo.pop()
         preds = inst.predecessors(j)
         free = max(int(inst.ready[j]), int(end[preds].max()) if len(preds) else 0)
         if start[j] > free:
-            waiters.append(j)
+            if j not in last:
+                waiters.append(j)
             continue
         for p in preds[end[preds] == start[j]].tolist():
             if p not in seen:
