@@ -19,11 +19,21 @@ from ortools.linear_solver import pywraplp
 USED = 1e-6  # share of a class's work above which a group counts as used by the relaxation
 
 
+def _row_ids(rows: np.ndarray) -> np.ndarray:
+    """int64[n]: equal uint8 rows share an id; ids follow the rows' lexicographic order."""
+    return np.unique(rows, axis=0, return_inverse=True)[1].reshape(-1).astype(np.int64)
+
+
 def node_groups(inst) -> np.ndarray:
-    """int64[N]: nodes with the same capacity, speed and eligible jobs share a group."""
-    cols = np.concatenate([inst.eligible.T, inst.capacity,
-                           np.round(inst.speed * 1e6).astype(np.int64)[:, None]], axis=1)
-    return np.unique(cols, axis=0, return_inverse=True)[1].reshape(-1).astype(np.int64)
+    """int64[N]: nodes with the same capacity, speed and eligible jobs share a group.
+
+    Compared as bytes (eligibility packed 8 to a byte, numbers big-endian, so the order is
+    the numeric one): on 10,000 x 1,000 that is 1.3 MB, not an 80 MB int64 table."""
+    speed = np.round(inst.speed * 1e6).astype(">i8")[:, None]
+    key = np.concatenate([np.packbits(inst.eligible.T, axis=1),
+                          inst.capacity.astype(">i8").view(np.uint8),
+                          speed.view(np.uint8)], axis=1)
+    return _row_ids(key)
 
 
 def class_split(inst) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
@@ -35,7 +45,7 @@ def class_split(inst) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     class c would take on g: sum over its jobs of duration on g x largest resource share.
     """
     group = node_groups(inst)
-    cls = np.unique(inst.eligible, axis=0, return_inverse=True)[1].reshape(-1)
+    cls = _row_ids(np.packbits(inst.eligible, axis=1))
     n_cls, n_grp = int(cls.max()) + 1, int(group.max()) + 1
     rep = np.array([np.flatnonzero(group == g)[0] for g in range(n_grp)])
     frac = (inst.demand[:, None, :] / np.maximum(inst.capacity[rep][None, :, :], 1)).max(axis=2)
