@@ -9,7 +9,7 @@ import numpy as np
 
 from assignplan.instance import Instance
 from assignplan.methods.ga.encoding import EligibleIndex, job_share, node_load
-from assignplan.methods.ga.order_keys import orders_from_keys
+from assignplan.methods.ga.order_keys import bottom_levels, orders_from_keys
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
 
@@ -262,11 +262,7 @@ def _promotions(inst: Instance, assign: np.ndarray, start: np.ndarray, end: np.n
     if not waiters:
         return
     q = inst.hours * keys
-    bottom = q.copy()
-    for j in inst.order[::-1].tolist():
-        succ = inst.successors(j)
-        if len(succ):
-            bottom[j] = q[j] + bottom[succ].max()
+    bottom = bottom_levels(inst, q[None])[0]
     for part in (0, 2):  # ahead of all earlier jobs on the node, then of the later half
         trial, moved = keys.copy(), False
         for a in waiters:

@@ -15,15 +15,22 @@ import numpy as np
 from assignplan.instance import Instance
 
 
-def orders_from_keys(inst: Instance, keys: np.ndarray) -> np.ndarray:
-    """int64[P, J] decoding orders of keys float64[P, J] (> 0): row p equals
-    `priority_order(inst.hours * keys[p], ...)`, computed for the whole population at once."""
-    h = inst.hours[None, :] * keys
+def bottom_levels(inst: Instance, h: np.ndarray) -> np.ndarray:
+    """float64[P, J] bottom levels of pseudo-hours h float64[P, J]: h_j plus the largest
+    bottom level among j's successors (h_j for a job without any)."""
     bottom = h.copy()
     has_succ = np.diff(inst.succ_ptr) > 0
     for j in inst.order[::-1][has_succ[inst.order[::-1]]].tolist():  # successors first
         succ = inst.successors(j)
         bottom[:, j] = np.max(h[:, [j]] + bottom[:, succ], axis=1)
+    return bottom
+
+
+def orders_from_keys(inst: Instance, keys: np.ndarray) -> np.ndarray:
+    """int64[P, J] decoding orders of keys float64[P, J] (> 0): row p equals
+    `priority_order(inst.hours * keys[p], ...)`, computed for the whole population at once."""
+    h = inst.hours[None, :] * keys
+    bottom = bottom_levels(inst, h)
     index = np.broadcast_to(np.arange(inst.n_jobs), keys.shape)
     return np.lexsort((index, -h, -bottom), axis=-1).astype(np.int64)
 
