@@ -10,7 +10,7 @@ import numpy as np
 from assignplan.instance import RESOURCES, Instance
 
 MAX_CLASSES = 300  # node-set classes examined beyond the whole cluster (largest load first)
-MAX_CLIQUE_CLASSES = 40  # of those, the ones also searched for a clique of conflicting jobs
+MAX_CLIQUE_CLASSES = 40  # of those, the ones also searched for a clique and given `dff_work`
 DFF_K = 16  # u^(k) of `dff_work` for k = 1 .. DFF_K
 DFF_THRESHOLDS = 12  # thresholds e of U^(e) tried by `dff_work`
 _CHUNK_CELLS = 2_000_000  # job x node cells per vectorised block: bounds memory at ~16 MB/array

@@ -20,6 +20,12 @@ BATCH = 8  # trial plans scored per compiled call (a few per thread, little wast
 EXCHANGES = 24  # packing exchanges tried first after each rebuild of the neighbourhood
 
 
+def _released(inst: Instance, j: int, end: np.ndarray) -> int:
+    """The earliest start job j's ready time and its predecessors' ends allow."""
+    preds = inst.predecessors(j)
+    return max(int(inst.ready[j]), int(end[preds].max()) if len(preds) else 0)
+
+
 def critical_node(inst: Instance, assign: np.ndarray, start: np.ndarray,
                   end: np.ndarray) -> int:
     """The node whose capacity delays the critical path: from the job that ends last, step
@@ -30,7 +36,7 @@ def critical_node(inst: Instance, assign: np.ndarray, start: np.ndarray,
     first = j
     while True:
         preds = inst.predecessors(j)
-        free = max(int(inst.ready[j]), int(end[preds].max()) if len(preds) else 0)
+        free = _released(inst, j, end)
         if start[j] > free or not len(preds) or start[j] > int(end[preds].max()):
             break
         j = int(preds[np.argmax(end[preds])])
@@ -232,12 +238,11 @@ def _critical_waiters(inst: Instance, start: np.ndarray, end: np.ndarray,
     todo, seen, waiters = list(last), set(last), []
     while todo and len(seen) <= limit:
         j = todo.pop()
-        preds = inst.predecessors(j)
-        free = max(int(inst.ready[j]), int(end[preds].max()) if len(preds) else 0)
-        if start[j] > free:
+        if start[j] > _released(inst, j, end):
             if j not in last:
                 waiters.append(j)
             continue
+        preds = inst.predecessors(j)
         for p in preds[end[preds] == start[j]].tolist():
             if p not in seen:
                 seen.add(p)
