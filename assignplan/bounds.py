@@ -28,6 +28,30 @@ class LowerBound:
     parts: dict[str, int]
 
 
+PART_NAMES = {  # one line each for tables and reports; the docstring below has the detail
+    "job": "the longest single job",
+    "critical_path": "the longest chain of follows",
+    "cores": "total core work",
+    "memory": "total memory work",
+    "gpus": "total GPU work",
+    "class_cores": "core work of jobs only some nodes can hold",
+    "class_memory": "memory work of jobs only some nodes can hold",
+    "class_gpus": "GPU work of jobs only some nodes can hold",
+    "conflict": "jobs that can never share a node",
+    "dff": "work with dual feasible functions",
+    "clique": "pairwise-conflicting jobs",
+    "grid": "rounding to the batch's time grid",
+}
+
+
+def binding_parts(parts: dict[str, int], value: int) -> list[str]:
+    """The parts equal to `value`; "grid" only when it alone does (it rounds the others up, so
+    it names no argument of its own otherwise); empty when a method proved a bound above
+    every part (e.g. CP-SAT's)."""
+    hit = [k for k, v in parts.items() if v == value]
+    return [k for k in hit if k != "grid"] or hit
+
+
 def lower_bound(inst: Instance) -> LowerBound:
     """The largest of several bounds, each valid for every feasible plan of `inst`.
 

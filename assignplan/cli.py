@@ -177,9 +177,9 @@ def solve(
                        local_search=local_search, repack_nodes=repack_nodes,
                        balanced_seeds=balanced_seeds)
     inst = build_instance(expanded)
-    bound = lower_bound(inst).value
+    bound = lower_bound(inst)
     with progress_bar(method == "ga" and not quiet and not as_json, config.generations,
-                      bound / 60) as tick:
+                      bound.value / 60) as tick:
         result = run(inst, method, seed=seed, time_limit=time_limit, force=force,
                      ga_config=config, on_generation=tick, bound=bound)
     summary = stats.summary(inst, result)

@@ -156,6 +156,10 @@ class PlanDoc(BaseModel):
     window_start: datetime | None = None
     makespan_h: float
     lower_bound_h: float
+    lower_bound_parts_h: dict[str, float] = Field(
+        default_factory=dict,
+        description="Each part of the provable lower bound (hours); the largest is the bound "
+                    "unless the method proved a better one.")
     gap_pct: float
     objective: Objective | None = None
     seconds: float = 0.0

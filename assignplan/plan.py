@@ -42,6 +42,8 @@ class PlanResult:
     ``assign``: int64[J] node index; ``start``/``end``: int64[J] minutes from window start.
     ``lower_bound``: minutes (the provable bound of `bounds.lower_bound`, or a method's own
     better bound such as a proven optimum). ``status``: optimal | feasible | unknown.
+    ``bound_parts``: minutes of each part of `bounds.lower_bound` (empty when not computed),
+    so a reader can see which argument sets the bound.
     """
 
     method: str
@@ -54,6 +56,7 @@ class PlanResult:
     seconds: float = 0.0
     history: list[HistoryRow] = field(default_factory=list)
     solver_bound: int | None = None
+    bound_parts: dict[str, int] = field(default_factory=dict)
 
     @property
     def makespan(self) -> int:
@@ -83,6 +86,7 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
         window_start=inst.window_start,
         makespan_h=mk / 60,
         lower_bound_h=result.lower_bound / 60,
+        lower_bound_parts_h={k: v / 60 for k, v in result.bound_parts.items()},
         gap_pct=round(result.gap_pct, 4),
         objective=Objective(
             makespan_h=mk / 60, weighted_tardiness_h=tard / 60, weighted_completion_h=compl / 60
@@ -140,4 +144,5 @@ def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:
         raise InputError(problems)
     return PlanResult(doc.method, assign, start, end, round(doc.lower_bound_h * 60),
                       status=doc.status, seed=doc.seed, seconds=doc.seconds,
-                      history=list(doc.history))
+                      history=list(doc.history),
+                      bound_parts={k: round(v * 60) for k, v in doc.lower_bound_parts_h.items()})

@@ -6,7 +6,7 @@ import time
 from collections.abc import Callable
 from dataclasses import replace
 
-from assignplan.bounds import lower_bound
+from assignplan.bounds import LowerBound, lower_bound
 from assignplan.errors import InputError
 from assignplan.instance import Instance
 from assignplan.methods.ga.config import GAConfig
@@ -19,14 +19,15 @@ METHODS = ("greedy", "ga", "exact")
 def solve(inst: Instance, method: str, *, seed: int = 0, time_limit: float = 60.0,
           force: bool = False, ga_config: GAConfig | None = None,
           on_generation: Callable[[HistoryRow], None] | None = None,
-          bound: int | None = None) -> PlanResult:
-    """Plan `inst` with `method`; the result carries the provable lower bound and its seconds.
+          bound: LowerBound | None = None) -> PlanResult:
+    """Plan `inst` with `method`; the result carries the provable lower bound, its parts and
+    the seconds taken.
 
-    `bound` is `bounds.lower_bound(inst).value` when the caller already has it.
+    `bound` is `bounds.lower_bound(inst)` when the caller already has it.
     """
     t0 = time.perf_counter()
-    if bound is None:
-        bound = lower_bound(inst).value
+    parts = (bound or lower_bound(inst)).parts
+    bound = max(parts.values())
     if method == "ga":
         from assignplan.methods.ga.engine import solve_ga
 
@@ -45,4 +46,4 @@ def solve(inst: Instance, method: str, *, seed: int = 0, time_limit: float = 60.
                              hint=greedy_assign(inst), seed=seed, force=force)
     else:
         raise InputError(f"--method {method}: unknown method; choose one of {', '.join(METHODS)}")
-    return replace(result, seconds=time.perf_counter() - t0)
+    return replace(result, seconds=time.perf_counter() - t0, bound_parts=dict(parts))

@@ -14,7 +14,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from assignplan.bounds import conflict_bound, dff_work, lower_bound, time_grid
+from assignplan.bounds import (PART_NAMES, binding_parts, conflict_bound, dff_work, lower_bound,
+                               time_grid)
 from assignplan.check import check_plan
 from assignplan.instance import Instance
 from assignplan.methods.exact import solve_exact
@@ -472,3 +473,16 @@ def test_dff_bound_never_exceeds_proven_optima_of_random_gpu_batches():
         assert lb.value <= res.makespan, f"case {case}: {gpus} {minutes}: {lb} > {res.makespan}"
         lifted += lb.parts["dff"] > max(lb.parts["gpus"], lb.parts["cores"])
     assert lifted >= 5  # the check exercises the new part, not only the old ones
+
+
+def test_binding_parts_name_the_argument_not_the_rounding():
+    parts = {"job": 90, "cores": 120, "clique": 120, "grid": 120}
+    assert binding_parts(parts, 120) == ["cores", "clique"]
+    assert binding_parts({"job": 90, "cores": 117, "grid": 120}, 120) == ["grid"]
+    assert binding_parts(parts, 125) == []  # a solver's proof above every part
+
+
+def test_every_part_has_a_name_for_the_reports():
+    """The tables describe the binding part in words: no part of the bound without one."""
+    _, inst = instance_of(random_batch_doc(np.random.default_rng(5), max_jobs=12))
+    assert lower_bound(inst).parts.keys() <= PART_NAMES.keys()

@@ -50,6 +50,31 @@ def test_json_summary_has_the_documented_keys():
     assert data["jobs"] == 13 and data["nodes"] == 4
 
 
+def test_summary_and_plan_name_what_sets_the_bound(tmp_path):
+    """The bound's parts travel to the summary, PLAN.json and summary.csv: the largest part
+    is the bound (greedy proves nothing of its own), and lower_bound_set_by names it."""
+    plan, tables = tmp_path / "plan.json", tmp_path / "tables"
+    data = json.loads(solve(str(SMALL), "--method", "greedy", "--json", "--out", str(plan),
+                            "--csv", str(tables)).stdout)
+    parts = data["lower_bound_parts_h"]
+    assert {"job", "critical_path", "cores", "dff", "clique", "grid"} <= parts.keys()
+    assert max(parts.values()) == data["lower_bound_h"]
+    named = data["lower_bound_set_by"].split(", ")
+    assert named and all(parts[k] == data["lower_bound_h"] for k in named)
+    assert json.loads(plan.read_text())["lower_bound_parts_h"] == parts
+    row = pd.read_csv(tables / "summary.csv").iloc[0]
+    assert row["lower_bound_parts_h.dff"] == pytest.approx(parts["dff"])
+    assert "set by" in solve(str(SMALL), "--method", "greedy").stdout
+
+
+def test_exact_optimum_above_every_part_is_set_by_the_solver():
+    """small.json: CP-SAT proves 15.5 h, above every part of the bound (15.0 h at most)."""
+    data = json.loads(solve(str(SMALL), "--method", "exact", "--json").stdout)
+    assert data["status"] == "optimal"
+    assert data["lower_bound_h"] > max(data["lower_bound_parts_h"].values())
+    assert data["lower_bound_set_by"] == "solver"
+
+
 def test_plan_file_passes_check_and_a_broken_edit_fails(tmp_path):
     plan = tmp_path / "plan.json"
     solve(str(SMALL), "--method", "greedy", "--out", str(plan))

@@ -14,8 +14,8 @@ import pytest
 
 from assignplan import planner
 from assignplan.instance import Instance, build_instance
-from assignplan.model import Batch, HistoryRow, expand_batch, load_batch
-from assignplan.plan import PlanResult, make_result
+from assignplan.model import Batch, HistoryRow, PlanDoc, expand_batch, load_batch
+from assignplan.plan import PlanResult, make_result, result_from_doc, to_plan_doc
 from assignplan.report import svg
 from assignplan.report.charts import (
     NODE_ROW_LIMIT,
@@ -265,6 +265,16 @@ def test_page_shows_the_summary_figures():
     for chart in ("timeline", "utilisation", "node-utilisation"):
         assert f'<svg id="{chart}"' in page
     assert 'id="convergence"' not in page  # greedy has no history
+    assert "set by pairwise-conflicting jobs" in page  # the week's bound: its clique part
+    assert s["lower_bound_set_by"] == "clique"
+
+
+def test_bound_parts_survive_the_plan_file():
+    """`report` reads PLAN.json back: the bound's parts, and so the card's "set by", with it."""
+    inst, result = week()
+    back = result_from_doc(inst, PlanDoc.model_validate_json(
+        to_plan_doc(inst, result).model_dump_json()))
+    assert back.bound_parts == result.bound_parts and back.lower_bound == result.lower_bound
 
 
 def test_every_job_is_in_the_job_table():

@@ -68,7 +68,8 @@ def write_csv_tables(folder: Path | str, summary: dict, nodes: pd.DataFrame,
     """jobs.csv, nodes.csv and summary.csv (one row) in `folder`, each written atomically."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    frames = {"jobs.csv": jobs, "nodes.csv": nodes, "summary.csv": pd.DataFrame([summary])}
+    # nested figures (the bound's parts) become one column each: lower_bound_parts_h.dff, ...
+    frames = {"jobs.csv": jobs, "nodes.csv": nodes, "summary.csv": pd.json_normalize(summary)}
     written = []
     for name, frame in frames.items():
         atomic_write(folder / name, lambda p, f=frame: f.to_csv(p, index=False))

@@ -20,7 +20,7 @@ from assignplan.instance import Instance
 from assignplan.plan import PlanResult
 from assignplan.report.charts import NODE_ROW_LIMIT, PALETTE, group_colours
 from assignplan.report.exports import atomic_write_text
-from assignplan.report.stats import job_frame, node_frame, summary
+from assignplan.report.stats import bound_source_text, job_frame, node_frame, summary
 from assignplan.report.svg import (
     convergence_svg,
     node_utilisation_svg,
@@ -114,7 +114,9 @@ def summary_cards(s: dict) -> str:
               f"ends {escape(s['makespan_at'])}, {'inside' if inside else 'PAST'} the"
               f" {s['window_h']:g} h window", "ok" if inside else "warn"),
         _card("lower bound", f"{_num(s['lower_bound_h'], 1)} h",
-              f"gap {_num(s['gap_pct'], 2)} % above the bound"),
+              f"gap {_num(s['gap_pct'], 2)} % above the bound"
+              + (f"; set by {escape(why)}" if (why := bound_source_text(
+                  s.get("lower_bound_set_by"))) else "")),
         *(
             _card(f"{name} utilisation", _num(s[f"{key}_utilisation_pct"], 1, " %"),
                   f"over the makespan; {_num(s[f'{key}_utilisation_window_pct'], 1, ' %')}"

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from assignplan.bounds import PART_NAMES, binding_parts
 from assignplan.instance import NO_DUE, Instance
 from assignplan.plan import PlanResult, calendar_time, objective
 
@@ -60,6 +61,25 @@ def _pct(num: float, den: float) -> float | None:
     return None if den <= 0 else round(100.0 * num / den, 2)
 
 
+def bound_source_text(source: str | None) -> str:
+    """`summary`'s lower_bound_set_by in words, for tables and reports ("" if unknown)."""
+    if source is None:
+        return ""
+    if source == "solver":
+        return "the exact solver's proof"
+    return "; ".join(PART_NAMES.get(k, k) for k in source.split(", "))
+
+
+def _bound_source(result: PlanResult) -> str | None:
+    """Which argument sets the plan's lower bound: part names of `bounds.lower_bound`, or
+    "solver" when the method proved a better bound, None when the parts are unknown."""
+    if not result.bound_parts:
+        return "solver" if result.solver_bound is not None \
+            and result.solver_bound == result.lower_bound else None
+    hit = binding_parts(result.bound_parts, result.lower_bound)
+    return ", ".join(hit) if hit else "solver"
+
+
 def summary(inst: Instance, result: PlanResult) -> dict:
     """The plan's headline figures (the keys of `solve --json`)."""
     mk, tard, compl = objective(inst, result.end)
@@ -79,6 +99,8 @@ def summary(inst: Instance, result: PlanResult) -> dict:
         "makespan_h": mk / 60,
         "makespan_at": calendar_time(inst, mk),
         "lower_bound_h": result.lower_bound / 60,
+        "lower_bound_set_by": _bound_source(result),
+        "lower_bound_parts_h": {k: v / 60 for k, v in result.bound_parts.items()},
         "gap_pct": round(result.gap_pct, 2),
         "core_utilisation_pct": _pct(used_mk[0], cap_mk[0]),
         "memory_utilisation_pct": _pct(used_mk[1], cap_mk[1]),

@@ -8,6 +8,8 @@ import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
+from assignplan.report.stats import bound_source_text
+
 
 def _num(value, digits: int = 1, suffix: str = "") -> str:
     if value is None or (isinstance(value, float) and math.isnan(value)):
@@ -27,7 +29,9 @@ def summary_table(s: dict) -> Table:
         ("jobs / nodes", f"{s['jobs']:,} jobs on {s['nodes']:,} nodes"),
         ("makespan", f"{_num(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
                      f"({fits} the {window_h:g} h window)"),
-        ("lower bound", f"{_num(s['lower_bound_h'], 2)} h (gap {_num(s['gap_pct'], 2)} %)"),
+        ("lower bound", f"{_num(s['lower_bound_h'], 2)} h (gap {_num(s['gap_pct'], 2)} %)"
+                        + (f", set by {why}" if (why := bound_source_text(
+                            s.get('lower_bound_set_by'))) else "")),
         ("utilisation over makespan",
          f"cores {_num(s['core_utilisation_pct'], 1, ' %')}, memory "
          f"{_num(s['memory_utilisation_pct'], 1, ' %')}, "
