@@ -14,8 +14,14 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from assignplan.bounds import (PART_NAMES, binding_parts, conflict_bound, dff_work, lower_bound,
-                               time_grid)
+from assignplan.bounds import (
+    PART_NAMES,
+    binding_parts,
+    conflict_bound,
+    dff_work,
+    lower_bound,
+    time_grid,
+)
 from assignplan.check import check_plan
 from assignplan.instance import Instance
 from assignplan.methods.exact import solve_exact
