@@ -64,6 +64,11 @@ class GAConfig(BaseModel):
         default=32, ge=0, le=10_000,
         description="Trial decoding orders the local step may score per generation "
                     "(evolved orders only; 0: none).")
+    descent_trials: int = Field(
+        default=20_000, ge=0, le=10_000_000,
+        description="Node rebuilds the node-local descent (moves and swaps off the node "
+                    "that ends last, see `descent`) may spend on the best plan each "
+                    "generation; 0: off.")
     repack_nodes: int = Field(
         default=6, ge=0, le=64,
         description="Nodes the exact repacking step frees each generation (the one setting "

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
+from functools import partial
 
 import numpy as np
 
@@ -11,6 +12,7 @@ from assignplan.instance import Instance, priority_order
 from assignplan.methods.ga import crossover, mutation, survival
 from assignplan.methods.ga.balance import balanced_eligibility
 from assignplan.methods.ga.config import GAConfig
+from assignplan.methods.ga.descent import descent_step
 from assignplan.methods.ga.encoding import EligibleIndex, node_load, random_population
 from assignplan.methods.ga.local import improve, improve_order
 from assignplan.methods.ga.order_keys import cross_keys, orders_from_keys, perturb_keys
@@ -282,9 +284,18 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
         kept, pop_key = select(genomes.join(pop, keys), pop_key,
                                genomes.join(off, off_keys), off_key, config.mu)
         pop, keys = genomes.split(kept)
+        if config.descent_trials:
+            _improve_best(pop, keys, pop_key, back, inst, config, order, decode_orders,
+                          evaluate, key, score, genomes, partial(
+                              descent_step, budget=config.descent_trials,
+                              justify=config.justify))
+            kept = genomes.join(pop, keys)
         if config.repack_nodes >= 2:
-            _repack_best(pop, keys, pop_key, back, inst, config, order, decode_orders,
-                         evaluate, key, score, genomes, lower_bound, tried, rng=rng)
+            _improve_best(pop, keys, pop_key, back, inst, config, order, decode_orders,
+                          evaluate, key, score, genomes, partial(
+                              repack_step, nodes=config.repack_nodes, target=lower_bound,
+                              deterministic_time=config.repack_effort,
+                              justify=config.justify, rng=rng, tried=tried))
             kept = genomes.join(pop, keys)
         full = pop_key[:, back]
         fit = full[:, :3]
@@ -305,10 +316,11 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
     return pop[rank], fit[rank], orders, history
 
 
-def _repack_best(pop, keys, pop_key, back, inst, config, order, decode_orders, evaluate,
-                 key, score, genomes, target, tried, *, rng) -> None:
-    """Repack a few nodes of the best member exactly (`repack.repack_step`), in place: its
-    genome, key row and cache entry change together, and the trial counts as an evaluation."""
+def _improve_best(pop, keys, pop_key, back, inst, config, order, decode_orders, evaluate,
+                  key, score, genomes, step) -> None:
+    """Apply `step` (`descent.descent_step` or `repack.repack_step`, their remaining
+    arguments bound) to the best member, in place: its genome, key row and cache entry change
+    together, and the trial counts as an evaluation."""
     b = int(np.argmin(lex_rank(pop_key)))
     order_b = order if keys is None else decode_orders(keys[[b]])[0]
     full_b = pop_key[b, back]
@@ -319,10 +331,8 @@ def _repack_best(pop, keys, pop_key, back, inst, config, order, decode_orders, e
         score.evaluations += len(a)
         return evaluate(a, o)[:, : len(full_b)]
 
-    found = repack_step(pop[b], None if keys is None else keys[b], full_b, inst, order_b,
-                        scorer, key, nodes=config.repack_nodes, target=target,
-                        deterministic_time=config.repack_effort, justify=config.justify,
-                        rng=rng, tried=tried)
+    found = step(pop[b], None if keys is None else keys[b], full_b, inst, order_b, scorer,
+                 key)
     if found is None:
         return
     pop[b], new_keys, new_full = found

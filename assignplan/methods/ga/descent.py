@@ -1,0 +1,219 @@
+"""Node-local descent: moves and swaps off the node that ends last, each tried by rebuilding
+only the two nodes it touches.
+
+The ga's own local step (`local.improve`) scores every trial by decoding the whole batch,
+which on 2,000 jobs affords a few dozen trials a generation. Here a trial decodes the ~10
+jobs of two nodes, so thousands fit in a millisecond. What keeps that exact: every other
+job stays where it is, each job's earliest start is frozen at its release and its
+predecessors' current ends, and a job with successors must not end later than it does now
+(so nothing on an untouched node has to move). A trial is kept when both rebuilt nodes end
+before the makespan: one node fewer ends at the makespan, or the makespan falls.
+
+On a node, jobs go through the serial SGS in their current start order, a job moved in goes
+last (it still takes the earliest slot that fits, holes included), a job moved out leaves
+the others' starts no later (see `repack.start_order`). The result returns to the ga as
+order keys that decode to it (`repack.keys_for_order`), so it is never worse there either.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from assignplan.instance import Instance
+from assignplan.kernels import _earliest_start, _init_node, _place
+from assignplan.methods.ga.local import Evaluate, Key
+from assignplan.methods.ga.repack import keys_for_order, start_order
+from assignplan.methods.ga.selection import lex_less
+from assignplan.schedule import build_schedule
+
+TOO_LATE = np.int64(1) << 62  # a trial's end when it would delay a job with successors
+
+
+@njit(cache=True)
+def _decode_node(i, seq, n, skip, extra, earliest, latest, demand, duration, capacity,
+                 maint_ptr, maint_start, maint_end, seg_t, seg_f, seg_lo, seg_n, end):
+    """Serial SGS of node i alone: jobs seq[:n] in that order except `skip`, then `extra`
+    (each -1 for none). Writes end[j] of each job placed; returns the node's last end, 0 if
+    it is empty, TOO_LATE if some job would end after latest[j]."""
+    _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+    last = np.int64(0)
+    for q in range(n + 1):
+        if q < n:
+            j = seq[q]
+            if j == skip:
+                continue
+        else:
+            j = extra
+            if j < 0:
+                break
+        dur = np.int64(duration[j, i])
+        s, k = _earliest_start(seg_t, seg_f, 0, seg_n[i], earliest[j], dur, demand[j, 0],
+                               demand[j, 1], demand[j, 2])
+        if s < 0 or s + dur > latest[j]:
+            return TOO_LATE
+        seg_n[i] = _place(seg_t, seg_f, 0, seg_n[i], k, s, dur, demand[j, 0], demand[j, 1],
+                          demand[j, 2])
+        end[j] = s + dur
+        if s + dur > last:
+            last = s + dur
+    return last
+
+
+@njit(cache=True)
+def _take_out(lists, fill, i, j):
+    w = 0
+    for q in range(fill[i]):
+        if lists[i, q] != j:
+            lists[i, w] = lists[i, q]
+            w += 1
+    fill[i] = w
+
+
+@njit(cache=True)
+def _descend(assign, start, eligible, earliest, latest, demand, duration, capacity, maint_ptr,
+             maint_start, maint_end, budget):
+    """The descent in place on assign/start int64[J] (a feasible plan). Returns (moves kept,
+    node decodes spent); stops when no move or swap off the last-ending node helps, or after
+    `budget` decodes."""
+    n_jobs = assign.shape[0]
+    n_nodes = capacity.shape[0]
+    count = np.zeros(n_nodes, np.int64)
+    for j in range(n_jobs):
+        count[assign[j]] += 1
+    width = 2 * count.max() + 2  # a node may gain jobs; a full row stops taking more
+    lists = np.full((n_nodes, width), -1, np.int64)
+    fill = np.zeros(n_nodes, np.int64)
+    ends = np.zeros(n_nodes, np.int64)
+    end = np.empty(n_jobs, np.int64)
+    for j in np.argsort(start, kind="mergesort"):
+        i = assign[j]
+        lists[i, fill[i]] = j
+        fill[i] += 1
+        end[j] = start[j] + np.int64(duration[j, i])
+        ends[i] = max(ends[i], end[j])
+    windows = 0
+    for i in range(n_nodes):
+        windows = max(windows, maint_ptr[i + 1] - maint_ptr[i])
+    size = 2 * windows + 2 + 2 * width
+    seg_t = np.empty(size, np.int64)
+    seg_f = np.empty((size, 3), np.int64)
+    seg_lo = np.zeros(n_nodes, np.int64)  # every node decodes into the same scratch slice
+    seg_n = np.zeros(n_nodes, np.int64)
+    trial = end.copy()
+    spent = 0
+    moves = 0
+    k = -1
+    while spent < budget:
+        crit = np.argmax(ends)
+        ms = ends[crit]
+        by_end = np.argsort(ends, kind="mergesort")
+        found = False
+        for qa in range(fill[crit] - 1, -1, -1):  # the last-starting jobs first
+            j = lists[crit, qa]
+            a_end = _decode_node(crit, lists[crit], fill[crit], j, -1, earliest, latest,
+                                 demand, duration, capacity, maint_ptr, maint_start, maint_end,
+                                 seg_t, seg_f, seg_lo, seg_n, trial)
+            spent += 1
+            if a_end >= ms:
+                continue
+            for qb in range(n_nodes):  # partners by earliest end: the most room first
+                k = by_end[qb]
+                if ends[k] >= ms or spent >= budget:
+                    break
+                if k == crit or not eligible[j, k] or fill[k] + 1 >= width:
+                    continue
+                b_end = _decode_node(k, lists[k], fill[k], -1, j, earliest, latest, demand,
+                                     duration, capacity, maint_ptr, maint_start, maint_end,
+                                     seg_t, seg_f, seg_lo, seg_n, trial)
+                spent += 1
+                if b_end < ms:  # move j to k
+                    _take_out(lists, fill, crit, j)
+                    lists[k, fill[k]] = j
+                    fill[k] += 1
+                    assign[j] = k
+                    ends[crit] = a_end
+                    ends[k] = b_end
+                    found = True
+                    break
+                for qm in range(fill[k]):  # swap j with m of k
+                    m = lists[k, qm]
+                    if not eligible[m, crit]:
+                        continue
+                    a2 = _decode_node(crit, lists[crit], fill[crit], j, m, earliest, latest,
+                                      demand, duration, capacity, maint_ptr, maint_start,
+                                      maint_end, seg_t, seg_f, seg_lo, seg_n, trial)
+                    spent += 1
+                    if a2 >= ms:
+                        continue
+                    b2 = _decode_node(k, lists[k], fill[k], m, j, earliest, latest, demand,
+                                      duration, capacity, maint_ptr, maint_start, maint_end,
+                                      seg_t, seg_f, seg_lo, seg_n, trial)
+                    spent += 1
+                    if b2 < ms:
+                        _take_out(lists, fill, crit, j)
+                        lists[crit, fill[crit]] = m
+                        fill[crit] += 1
+                        _take_out(lists, fill, k, m)
+                        lists[k, fill[k]] = j
+                        fill[k] += 1
+                        assign[j] = k
+                        assign[m] = crit
+                        ends[crit] = a2
+                        ends[k] = b2
+                        found = True
+                        break
+                if found:
+                    break
+            if found or spent >= budget:
+                break
+        if not found:
+            break
+        moves += 1
+        for i in (crit, k):  # the kept rebuild, written out (trials overwrote `trial`)
+            _decode_node(i, lists[i], fill[i], -1, -1, earliest, latest, demand, duration,
+                         capacity, maint_ptr, maint_start, maint_end, seg_t, seg_f, seg_lo,
+                         seg_n, end)
+            for q in range(fill[i]):
+                jj = lists[i, q]
+                start[jj] = end[jj] - np.int64(duration[jj, i])
+    return moves, spent
+
+
+def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
+            ) -> tuple[np.ndarray, np.ndarray, int]:
+    """(assign, start, moves kept) after the descent from a feasible plan; the inputs are not
+    changed. Earliest starts and latest ends are frozen from this plan (module docstring)."""
+    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    earliest = inst.ready.astype(np.int64).copy()
+    for j in np.flatnonzero(np.diff(inst.pred_ptr) > 0).tolist():
+        earliest[j] = max(earliest[j], int(end[inst.predecessors(j)].max()))
+    has_succ = np.diff(inst.succ_ptr) > 0
+    latest = np.where(has_succ, end, TOO_LATE - 1).astype(np.int64)
+    new_assign = np.array(assign, dtype=np.int64)
+    new_start = np.array(start, dtype=np.int64)
+    moves, _spent = _descend(new_assign, new_start, inst.eligible, earliest, latest,
+                             inst.demand, inst.duration, inst.capacity, inst.maint_ptr,
+                             inst.maint_start, inst.maint_end, budget)
+    return new_assign, new_start, int(moves)
+
+
+def descent_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
+                 inst: Instance, order: np.ndarray, evaluate: Evaluate, key: Key, *,
+                 budget: int, justify: bool
+                 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
+    """The descent on one ga plan (assign, its order keys or None, its scorer row `full`,
+    decoded in `order`): the new (assign, keys, scorer row) when it moved something and the
+    result is no worse under `key`, else None (the contract of `repack.repack_step`)."""
+    start = build_schedule(inst, assign, order, justify=justify)
+    new_assign, new_start, moves = descend(inst, assign, start, budget)
+    if moves == 0:
+        return None
+    new_keys, new_order = None, order
+    if keys is not None:
+        new_order = start_order(new_start, order)
+        new_keys = keys_for_order(inst, new_order)
+    new_full = evaluate(new_assign[None], new_order)[0]
+    if lex_less(key(assign[None], full[None]), key(new_assign[None], new_full[None])[0])[0]:
+        return None
+    return new_assign, new_keys, new_full
