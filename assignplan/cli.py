@@ -79,6 +79,10 @@ LocalOpt = Annotated[bool, typer.Option(
 RepackOpt = Annotated[int, typer.Option(
     help="ga: nodes re-packed exactly (CP-SAT) around the makespan node each generation; "
          "0: off.", min=0, max=64, rich_help_panel="ga")]
+DescentOpt = Annotated[int, typer.Option(
+    help="ga: node rebuilds the node-local descent (moves, swaps, ejection chains off the "
+         "last-ending node) may spend on the best plan each generation; 0: off.",
+    min=0, max=10_000_000, rich_help_panel="ga")]
 BalancedOpt = Annotated[int, typer.Option(
     help="ga: greedy seeds that keep each class of jobs on the node groups a work-split "
          "relaxation gives it; 0: off.", min=0, max=10_000, rich_help_panel="ga")]
@@ -152,6 +156,7 @@ def solve(
     survival: SurvivalOpt = GA_DEFAULTS.survival,
     local_search: LocalOpt = GA_DEFAULTS.local_search,
     repack_nodes: RepackOpt = GA_DEFAULTS.repack_nodes,
+    descent_trials: DescentOpt = GA_DEFAULTS.descent_trials,
     balanced_seeds: BalancedOpt = GA_DEFAULTS.balanced_seeds,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
@@ -175,7 +180,7 @@ def solve(
                        mutation=mutation, mutation_flips=mutation_flips,
                        tournament_size=tournament_size, survival=survival,
                        local_search=local_search, repack_nodes=repack_nodes,
-                       balanced_seeds=balanced_seeds)
+                       descent_trials=descent_trials, balanced_seeds=balanced_seeds)
     inst = build_instance(expanded)
     bound = lower_bound(inst)
     with progress_bar(method == "ga" and not quiet and not as_json, config.generations,

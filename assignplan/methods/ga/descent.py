@@ -1,5 +1,10 @@
-"""Node-local descent: moves and swaps off the node that ends last, each tried by rebuilding
-only the two nodes it touches.
+"""Node-local descent: moves, swaps and ejection chains off the node that ends last, each
+tried by rebuilding only the nodes it touches.
+
+Steps, for a job j of the last-ending node (its last-starting jobs first) and a partner node
+k (the earliest-ending first): j moves to k; or j takes the place of a job m of k, and m goes
+to the last-ending node (a swap) or to one of the CHAIN_PARTNERS earliest-ending other nodes
+(an ejection chain of two moves).
 
 The ga's own local step (`local.improve`) scores every trial by decoding the whole batch,
 which on 2,000 jobs affords a few dozen trials a generation. Here a trial decodes the ~10
@@ -27,6 +32,7 @@ from assignplan.methods.ga.repack import keys_for_order, start_order
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
 
+CHAIN_PARTNERS = 8  # third nodes an ejection chain tries for the job it pushes out
 TOO_LATE = np.int64(1) << 62  # a trial's end when it would delay a job with successors
 
 
@@ -104,11 +110,13 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
     spent = 0
     moves = 0
     k = -1
+    third = -1
     while spent < budget:
         crit = np.argmax(ends)
         ms = ends[crit]
         by_end = np.argsort(ends, kind="mergesort")
         found = False
+        third = -1
         for qa in range(fill[crit] - 1, -1, -1):  # the last-starting jobs first
             j = lists[crit, qa]
             a_end = _decode_node(crit, lists[crit], fill[crit], j, -1, earliest, latest,
@@ -136,33 +144,64 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                     ends[k] = b_end
                     found = True
                     break
-                for qm in range(fill[k]):  # swap j with m of k
+                for qm in range(fill[k]):  # j in place of m on k; m to crit or a third node
                     m = lists[k, qm]
-                    if not eligible[m, crit]:
-                        continue
-                    a2 = _decode_node(crit, lists[crit], fill[crit], j, m, earliest, latest,
-                                      demand, duration, capacity, maint_ptr, maint_start,
-                                      maint_end, seg_t, seg_f, seg_lo, seg_n, trial)
-                    spent += 1
-                    if a2 >= ms:
-                        continue
                     b2 = _decode_node(k, lists[k], fill[k], m, j, earliest, latest, demand,
                                       duration, capacity, maint_ptr, maint_start, maint_end,
                                       seg_t, seg_f, seg_lo, seg_n, trial)
                     spent += 1
-                    if b2 < ms:
-                        _take_out(lists, fill, crit, j)
-                        lists[crit, fill[crit]] = m
-                        fill[crit] += 1
-                        _take_out(lists, fill, k, m)
-                        lists[k, fill[k]] = j
-                        fill[k] += 1
-                        assign[j] = k
-                        assign[m] = crit
-                        ends[crit] = a2
-                        ends[k] = b2
-                        found = True
+                    if b2 >= ms:
+                        continue
+                    if eligible[m, crit]:  # a swap
+                        a2 = _decode_node(crit, lists[crit], fill[crit], j, m, earliest,
+                                          latest, demand, duration, capacity, maint_ptr,
+                                          maint_start, maint_end, seg_t, seg_f, seg_lo, seg_n,
+                                          trial)
+                        spent += 1
+                        if a2 < ms:
+                            _take_out(lists, fill, crit, j)
+                            lists[crit, fill[crit]] = m
+                            fill[crit] += 1
+                            _take_out(lists, fill, k, m)
+                            lists[k, fill[k]] = j
+                            fill[k] += 1
+                            assign[j] = k
+                            assign[m] = crit
+                            ends[crit] = a2
+                            ends[k] = b2
+                            found = True
+                            break
+                    tried = 0  # an ejection chain: m to the roomiest third nodes
+                    for ql in range(n_nodes):
+                        third = by_end[ql]
+                        if ends[third] >= ms or tried >= CHAIN_PARTNERS or spent >= budget:
+                            break
+                        if third == crit or third == k or not eligible[m, third] \
+                                or fill[third] + 1 >= width:
+                            continue
+                        tried += 1
+                        c_end = _decode_node(third, lists[third], fill[third], -1, m, earliest,
+                                             latest, demand, duration, capacity, maint_ptr,
+                                             maint_start, maint_end, seg_t, seg_f, seg_lo,
+                                             seg_n, trial)
+                        spent += 1
+                        if c_end < ms:
+                            _take_out(lists, fill, crit, j)
+                            _take_out(lists, fill, k, m)
+                            lists[k, fill[k]] = j
+                            fill[k] += 1
+                            lists[third, fill[third]] = m
+                            fill[third] += 1
+                            assign[j] = k
+                            assign[m] = third
+                            ends[crit] = a_end
+                            ends[k] = b2
+                            ends[third] = c_end
+                            found = True
+                            break
+                    if found or spent >= budget:
                         break
+                    third = -1
                 if found:
                     break
             if found or spent >= budget:
@@ -170,7 +209,9 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
         if not found:
             break
         moves += 1
-        for i in (crit, k):  # the kept rebuild, written out (trials overwrote `trial`)
+        for i in (crit, k, third):  # the kept rebuild, written out (trials overwrote `trial`)
+            if i < 0:
+                continue
             _decode_node(i, lists[i], fill[i], -1, -1, earliest, latest, demand, duration,
                          capacity, maint_ptr, maint_start, maint_end, seg_t, seg_f, seg_lo,
                          seg_n, end)
