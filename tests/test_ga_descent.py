@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from hypothesis import HealthCheck, given, settings
 
+from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
+from assignplan.methods.ga import GAConfig, solve_ga
 from assignplan.methods.ga.descent import descend, descent_step
 from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.greedy import greedy_assign
@@ -107,3 +110,29 @@ def test_descent_moves_jobs_on_random_batches_and_every_plan_checks():
         assert result.end.max() <= _ends(inst, assign, start).max()
         moved += moves > 0
     assert moved >= 10, moved
+
+
+@pytest.mark.parametrize("m", [2, 3, 4, 5, 6])
+def test_descent_takes_graham_lpt_family_to_the_optimum(m):
+    # R. L. Graham, SIAM J. Appl. Math. 17(2), 1969: the family 2m-1, 2m-1, ..., m+1, m+1,
+    # m, m, m on m machines has LPT makespan 4m - 1 and optimum 3m (family quoted from
+    # memory, see benchmarks/reductions.py). From greedy's (LPT) plan the moves, swaps and
+    # ejection chains reach 3m.
+    _, inst = instance_of(pcmax_batch(graham_lpt_family(m), m))
+    assign, start = greedy_assign(inst, inst.order)
+    assert _ends(inst, assign, start).max() == (4 * m - 1) * HOUR
+    new_assign, new_start, _moves = descend(inst, assign, start, budget=10_000)
+    assert _ends(inst, new_assign, new_start).max() == 3 * m * HOUR
+
+
+def test_the_ga_applies_the_descent_to_its_best_plan():
+    """One generation, no other local step: with the descent the ga ends at Graham's optimum
+    for m = 5 (15 h); the same run without it ends at 17 h (seed 0, measured)."""
+    _, inst = instance_of(pcmax_batch(graham_lpt_family(5), 5))
+    base = {"generations": 1, "local_search": False, "repack_nodes": 0, "balanced_seeds": 0,
+            "greedy_variants": 0, "mu": 4, "lam": 4}
+    runs = {d: solve_ga(inst, config=GAConfig(**base, descent_trials=d),
+                        lower_bound=lower_bound(inst).value, seed=0, time_limit=60)
+            for d in (0, 20_000)}
+    assert runs[20_000].makespan == 15 * HOUR
+    assert runs[0].makespan > 15 * HOUR
