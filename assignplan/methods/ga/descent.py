@@ -253,7 +253,7 @@ def descent_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
     new_keys, new_order = None, order
     if keys is not None:
         new_order = start_order(new_start, order)
-        new_keys = keys_for_order(inst, new_order, keys)
+        new_keys = keys_for_order(inst, new_order)
     new_full = evaluate(new_assign[None], new_order)[0]
     if lex_less(key(assign[None], full[None]), key(new_assign[None], new_full[None])[0])[0]:
         return None

@@ -25,7 +25,6 @@ from ortools.sat.python import cp_model
 from assignplan.instance import Instance
 from assignplan.methods.exact import NodeSlots, add_job, add_node_capacity
 from assignplan.methods.ga.local import Evaluate, Key, critical_node
-from assignplan.methods.ga.order_keys import bottom_levels
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
 
@@ -176,26 +175,13 @@ def start_order(start: np.ndarray, order: np.ndarray) -> np.ndarray:
     return np.lexsort((pos, start)).astype(np.int64)
 
 
-def keys_for_order(inst: Instance, order: np.ndarray, like: np.ndarray | None = None
-                   ) -> np.ndarray:
+def keys_for_order(inst: Instance, order: np.ndarray) -> np.ndarray:
     """float64[J] order keys that `order_keys.orders_from_keys` decodes to `order` (a
-    topological order of follows), on the scale of the keys `like` (float64[J], default 1).
-
-    The bottom levels of `like`'s pseudo-hours, sorted, are handed out along `order` (the
-    largest to its first job), nudged up where needed to fall strictly; pseudo-hours are the
-    difference to the largest successor's bottom level, keys = pseudo-hours / hours. Keeping
-    the scale matters to crossover: a child takes each job's key from one parent or the
-    other, and keys of positions 1..J would put every job from this parent behind the other
-    parent's (whose pseudo-hours are in hours), whatever the plan.
-    """
+    topological order of follows): bottom levels J - position, pseudo-hours the difference to
+    the largest successor's, keys = pseudo-hours / hours."""
     n = inst.n_jobs
-    h_like = inst.hours * (np.ones(n) if like is None else like)
-    levels = np.sort(bottom_levels(inst, h_like[None])[0])[::-1]
-    step = 1e-6 * max(float(levels[0]), 1e-9)  # well above rounding, far below any hours
-    for k in range(n - 2, -1, -1):  # strictly falling along the order
-        levels[k] = max(levels[k], levels[k + 1] + step)
     bottom = np.empty(n, dtype=np.float64)
-    bottom[order] = levels
+    bottom[order] = np.arange(n, 0, -1, dtype=np.float64)
     h = bottom.copy()
     for j in np.flatnonzero(np.diff(inst.succ_ptr) > 0).tolist():
         h[j] = bottom[j] - bottom[inst.successors(j)].max()
@@ -231,7 +217,7 @@ def repack_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
     new_keys, new_order = None, order
     if keys is not None:
         new_order = start_order(new_start, order)
-        new_keys = keys_for_order(inst, new_order, keys)
+        new_keys = keys_for_order(inst, new_order)
     new_full = evaluate(new_assign[None], new_order)[0]
     if lex_less(key(assign[None], full[None]), key(new_assign[None], new_full[None])[0])[0]:
         return None
