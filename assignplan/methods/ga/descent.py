@@ -78,10 +78,11 @@ def _take_out(lists, fill, i, j):
 
 @njit(cache=True)
 def _descend(assign, start, eligible, earliest, latest, demand, duration, capacity, maint_ptr,
-             maint_start, maint_end, budget):
+             maint_start, maint_end, budget, target):
     """The descent in place on assign/start int64[J] (a feasible plan). Returns (moves kept,
     node decodes spent); stops when no move or swap off the last-ending node helps, or after
-    `budget` decodes."""
+    `budget` decodes. With `target` >= 0: one step off that node instead (every touched node
+    still ending before the makespan), whatever `latest` asks of its jobs."""
     n_jobs = assign.shape[0]
     n_nodes = capacity.shape[0]
     count = np.zeros(n_nodes, np.int64)
@@ -112,8 +113,8 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
     k = -1
     third = -1
     while spent < budget:
-        crit = np.argmax(ends)
-        ms = ends[crit]
+        crit = np.argmax(ends) if target < 0 else target
+        ms = ends.max()
         by_end = np.argsort(ends, kind="mergesort")
         found = False
         third = -1
@@ -218,6 +219,8 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
             for q in range(fill[i]):
                 jj = lists[i, q]
                 start[jj] = end[jj] - np.int64(duration[jj, i])
+        if target >= 0:
+            break
     return moves, spent
 
 
@@ -233,10 +236,44 @@ def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
     latest = np.where(has_succ, end, TOO_LATE - 1).astype(np.int64)
     new_assign = np.array(assign, dtype=np.int64)
     new_start = np.array(start, dtype=np.int64)
-    moves, _spent = _descend(new_assign, new_start, inst.eligible, earliest, latest,
+    moves, spent = _descend(new_assign, new_start, inst.eligible, earliest, latest,
+                            inst.demand, inst.duration, inst.capacity, inst.maint_ptr,
+                            inst.maint_start, inst.maint_end, budget, -1)
+    head = _waiting_head(inst, new_assign, new_start)
+    if head >= 0 and spent < budget:
+        # the makespan job waits, through a chain of follows, for `head`, which itself waited
+        # for room on its node: one step that ends `head` sooner (the ga's full decode then
+        # moves the chain up; frozen earliest starts cannot show it here)
+        end = new_start + inst.duration[np.arange(inst.n_jobs), new_assign]
+        latest = np.where(has_succ, end, TOO_LATE - 1).astype(np.int64)
+        latest[head] = end[head] - 1
+        pulled, _ = _descend(new_assign, new_start, inst.eligible, earliest, latest,
                              inst.demand, inst.duration, inst.capacity, inst.maint_ptr,
-                             inst.maint_start, inst.maint_end, budget)
+                             inst.maint_start, inst.maint_end, budget - spent,
+                             int(new_assign[head]))
+        moves += pulled
     return new_assign, new_start, int(moves)
+
+
+def _waiting_head(inst: Instance, assign: np.ndarray, start: np.ndarray) -> int:
+    """The first job of the follows chain the makespan job waited along, if that job waited
+    for room (started after its release and its predecessors' ends); else -1 (the makespan
+    job waits for room itself, or the chain starts as early as it can)."""
+    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    j = int(np.argmax(end))
+    walked = False
+    while True:
+        preds = inst.predecessors(j)
+        if len(preds) == 0:
+            break
+        p = int(preds[np.argmax(end[preds])])
+        if start[j] != end[p] or end[p] <= inst.ready[j]:
+            break
+        j, walked = p, True
+    if not walked:
+        return -1
+    ready = max([int(inst.ready[j])] + [int(end[p]) for p in inst.predecessors(j)])
+    return j if start[j] > ready else -1
 
 
 def descent_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
