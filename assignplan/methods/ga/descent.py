@@ -4,7 +4,9 @@ tried by rebuilding only the nodes it touches.
 Steps, for a job j of the last-ending node (its last-starting jobs first) and a partner node
 k (the earliest-ending first): j moves to k; or j takes the place of a job m of k, and m goes
 to the last-ending node (a swap) or to one of the CHAIN_PARTNERS earliest-ending other nodes
-(an ejection chain of two moves).
+(an ejection chain of two moves). When the makespan job waits along a chain of follows
+whose head waited for room on its node, one more step (`_waiting_head`) ends the head sooner:
+the frozen earliest starts hide the gain here, the ga's full decode of the result shows it.
 
 The ga's own local step (`local.improve`) scores every trial by decoding the whole batch,
 which on 2,000 jobs affords a few dozen trials a generation. Here a trial decodes the ~10
