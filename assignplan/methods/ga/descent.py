@@ -19,7 +19,7 @@ before the makespan: one node fewer ends at the makespan, or the makespan falls.
 On a node, jobs go through the serial SGS in their current start order, a job moved in goes
 last (it still takes the earliest slot that fits, holes included), a job moved out leaves
 the others' starts no later (see `repack.start_order`). The result returns to the ga as
-order keys that decode to it (`repack.keys_for_order`), so it is never worse there either.
+order keys that decode to it (`repack.adopt`), so it is never worse there either.
 """
 
 from __future__ import annotations
@@ -30,8 +30,7 @@ from numba import njit
 from assignplan.instance import Instance
 from assignplan.kernels import _earliest_start, _init_node, _place
 from assignplan.methods.ga.local import Evaluate, Key
-from assignplan.methods.ga.repack import keys_for_order, start_order
-from assignplan.methods.ga.selection import lex_less
+from assignplan.methods.ga.repack import adopt
 from assignplan.schedule import build_schedule
 
 CHAIN_PARTNERS = 8  # third nodes an ejection chain tries for the job it pushes out
@@ -69,6 +68,12 @@ def _decode_node(i, seq, n, skip, extra, earliest, latest, demand, duration, cap
 
 
 @njit(cache=True)
+def _put(lists, fill, i, j):
+    lists[i, fill[i]] = j
+    fill[i] += 1
+
+
+@njit(cache=True)
 def _take_out(lists, fill, i, j):
     w = 0
     for q in range(fill[i]):
@@ -97,8 +102,7 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
     end = np.empty(n_jobs, np.int64)
     for j in np.argsort(start, kind="mergesort"):
         i = assign[j]
-        lists[i, fill[i]] = j
-        fill[i] += 1
+        _put(lists, fill, i, j)
         end[j] = start[j] + np.int64(duration[j, i])
         ends[i] = max(ends[i], end[j])
     windows = 0
@@ -140,8 +144,7 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                 spent += 1
                 if b_end < ms:  # move j to k
                     _take_out(lists, fill, crit, j)
-                    lists[k, fill[k]] = j
-                    fill[k] += 1
+                    _put(lists, fill, k, j)
                     assign[j] = k
                     ends[crit] = a_end
                     ends[k] = b_end
@@ -163,11 +166,9 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                         spent += 1
                         if a2 < ms:
                             _take_out(lists, fill, crit, j)
-                            lists[crit, fill[crit]] = m
-                            fill[crit] += 1
+                            _put(lists, fill, crit, m)
                             _take_out(lists, fill, k, m)
-                            lists[k, fill[k]] = j
-                            fill[k] += 1
+                            _put(lists, fill, k, j)
                             assign[j] = k
                             assign[m] = crit
                             ends[crit] = a2
@@ -191,10 +192,8 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                         if c_end < ms:
                             _take_out(lists, fill, crit, j)
                             _take_out(lists, fill, k, m)
-                            lists[k, fill[k]] = j
-                            fill[k] += 1
-                            lists[third, fill[third]] = m
-                            fill[third] += 1
+                            _put(lists, fill, k, j)
+                            _put(lists, fill, third, m)
                             assign[j] = k
                             assign[m] = third
                             ends[crit] = a_end
@@ -289,11 +288,4 @@ def descent_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
     new_assign, new_start, moves = descend(inst, assign, start, budget)
     if moves == 0:
         return None
-    new_keys, new_order = None, order
-    if keys is not None:
-        new_order = start_order(new_start, order)
-        new_keys = keys_for_order(inst, new_order)
-    new_full = evaluate(new_assign[None], new_order)[0]
-    if lex_less(key(assign[None], full[None]), key(new_assign[None], new_full[None])[0])[0]:
-        return None
-    return new_assign, new_keys, new_full
+    return adopt(assign, full, new_assign, new_start, keys, inst, order, evaluate, key)

@@ -213,7 +213,15 @@ def repack_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
                          seed=seed, tried=tried)
     if found is None:
         return None
-    new_assign, new_start = found
+    return adopt(assign, full, *found, keys, inst, order, evaluate, key)
+
+
+def adopt(assign: np.ndarray, full: np.ndarray, new_assign: np.ndarray, new_start: np.ndarray,
+          keys: np.ndarray | None, inst: Instance, order: np.ndarray, evaluate: Evaluate,
+          key: Key) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
+    """A rebuilt plan (new_assign, new_start) as the ga will hold it: (assign, order keys
+    decoding its start order, or None with one fixed order, scorer row), or None when it is
+    worse under `key` than the plan it came from (assign, scorer row `full`)."""
     new_keys, new_order = None, order
     if keys is not None:
         new_order = start_order(new_start, order)
