@@ -26,8 +26,8 @@ def solve(inst: Instance, method: str, *, seed: int = 0, time_limit: float = 60.
     `bound` is `bounds.lower_bound(inst)` when the caller already has it.
     """
     t0 = time.perf_counter()
-    parts = (bound or lower_bound(inst)).parts
-    bound = max(parts.values())
+    bound_full = bound or lower_bound(inst)
+    parts, bound = bound_full.parts, bound_full.value
     if method == "ga":
         from assignplan.methods.ga.engine import solve_ga
 

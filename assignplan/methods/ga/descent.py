@@ -74,6 +74,17 @@ def _put(lists, fill, i, j):
 
 
 @njit(cache=True)
+def _relocate(lists, fill, assign, crit, j, k, m, dest):
+    """j from crit to k, m from k to dest (crit for a swap, a third node for a chain)."""
+    _take_out(lists, fill, crit, j)
+    _take_out(lists, fill, k, m)
+    _put(lists, fill, k, j)
+    _put(lists, fill, dest, m)
+    assign[j] = k
+    assign[m] = dest
+
+
+@njit(cache=True)
 def _take_out(lists, fill, i, j):
     w = 0
     for q in range(fill[i]):
@@ -165,12 +176,7 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                                           trial)
                         spent += 1
                         if a2 < ms:
-                            _take_out(lists, fill, crit, j)
-                            _put(lists, fill, crit, m)
-                            _take_out(lists, fill, k, m)
-                            _put(lists, fill, k, j)
-                            assign[j] = k
-                            assign[m] = crit
+                            _relocate(lists, fill, assign, crit, j, k, m, crit)
                             ends[crit] = a2
                             ends[k] = b2
                             found = True
@@ -190,12 +196,7 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                                              seg_n, trial)
                         spent += 1
                         if c_end < ms:
-                            _take_out(lists, fill, crit, j)
-                            _take_out(lists, fill, k, m)
-                            _put(lists, fill, k, j)
-                            _put(lists, fill, third, m)
-                            assign[j] = k
-                            assign[m] = third
+                            _relocate(lists, fill, assign, crit, j, k, m, third)
                             ends[crit] = a_end
                             ends[k] = b2
                             ends[third] = c_end
