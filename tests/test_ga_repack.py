@@ -125,3 +125,35 @@ def test_a_fruitless_sub_problem_is_not_solved_twice(monkeypatch):
     monkeypatch.setattr("assignplan.methods.ga.repack.cp_model.CpSolver.solve", no_solver)
     assert repack_nodes(inst, assign, start, np.array([0, 1]), deterministic_time=1.0, seed=3,
                         tried=tried) is None
+
+
+def test_partners_are_nodes_the_critical_nodes_jobs_can_use():
+    """A GPU node whose jobs all need GPUs gets the other GPU nodes as partners, never the
+    CPU-only nodes, however idle: they cannot take any of its jobs. Only when more partners
+    are asked for than can take them do nodes holding jobs it could take come in."""
+    doc = {"window": {"start": "2026-12-07T00:00:00", "hours": 48.0},
+           "nodes": [{"name": "gpu", "count": 3, "cores": 32, "memory_gib": 128.0, "gpus": 4},
+                     {"name": "cpu", "count": 4, "cores": 64, "memory_gib": 256.0}],
+           "jobs": [{"name": f"train{k}", "cores": 8, "memory_gib": 16.0, "gpus": 1,
+                     "hours": 10.0} for k in range(6)]
+                   + [{"name": f"sweep{k}", "cores": 16, "memory_gib": 32.0, "hours": 5.0}
+                      for k in range(8)]}
+    _, inst = instance_of(doc)
+    gpu_nodes = np.flatnonzero(inst.capacity[:, 2] > 0)
+    cpu_nodes = np.flatnonzero(inst.capacity[:, 2] == 0)
+    needs_gpu = inst.demand[:, 2] > 0
+    assign = np.empty(inst.n_jobs, dtype=np.int64)
+    assign[needs_gpu] = np.repeat(gpu_nodes, 2)
+    assign[~needs_gpu] = np.repeat(cpu_nodes, 2)
+    start = np.zeros(inst.n_jobs, dtype=np.int64)
+    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    crit = int(gpu_nodes[0])
+    for seed in range(10):
+        nodes = pick_nodes(inst, assign, end, crit, 3, 10 * HOUR,
+                           rng=np.random.default_rng(seed))
+        assert nodes[0] == crit and set(nodes[1:].tolist()) == set(gpu_nodes[1:].tolist())
+        more = pick_nodes(inst, assign, end, crit, 5, 10 * HOUR,
+                          rng=np.random.default_rng(seed))
+        assert set(gpu_nodes[1:].tolist()) <= set(more.tolist())
+        assert len(more) == 5
+        assert set(more.tolist()) - set(gpu_nodes.tolist()) <= set(cpu_nodes.tolist())

@@ -34,30 +34,48 @@ TRIED_LIMIT = 4096  # sub-problems remembered as fruitless (then forgotten all a
 
 def pick_nodes(inst: Instance, assign: np.ndarray, end: np.ndarray, crit: int, k: int,
                target: int, *, rng: np.random.Generator) -> np.ndarray:
-    """int64[<= k] nodes to repack: `crit` first, then up to k - 1 distinct partners that can
-    trade jobs with it (a job of one is eligible on the other), drawn at random.
+    """int64[<= k] nodes to repack: `crit` first, then up to k - 1 distinct partners drawn at
+    random among the nodes some job of `crit` could run on; only when there are too few of
+    those, nodes holding a job `crit` could take (they can lower `crit` only through a third
+    node, so they come last).
 
-    A partner's weight adds two shares in [0, 1]: its room under `target` (cores x target
-    minus the core-minutes of its jobs, over the largest room), and how early it finishes
-    ((makespan - finish + 1) / (makespan + 1)). On a packing-like batch every node finishes
-    together and only the room tells them apart: a late job needs partners whose spare
-    capacity adds up to its size.
+    A partner's weight adds two shares in [0, 1]: its room under `target`, and how early it
+    finishes ((makespan - finish + 1) / (makespan + 1)). Room is counted in the resources
+    `crit`'s jobs ask for, each as a share of the node's capacity x target left free by its
+    jobs' work, the scarcest one counting: a GPU node's jobs need GPU room, which a CPU-only
+    node with idle cores does not have. On a packing-like batch every node finishes together
+    and only the room tells them apart: a late job needs partners whose spare capacity adds
+    up to its size.
     """
     finish = np.zeros(inst.n_nodes, dtype=np.int64)
     np.maximum.at(finish, assign, end)
     on_crit = assign == crit
-    reach = inst.eligible[on_crit].any(axis=0)  # nodes the critical node's jobs could use
+    others = np.arange(inst.n_nodes) != crit
+    reach = inst.eligible[on_crit].any(axis=0) & others  # nodes crit's jobs could use
     takes = np.zeros(inst.n_nodes, dtype=bool)  # nodes holding a job crit could take
     takes[assign[inst.eligible[:, crit]]] = True
-    cand = np.flatnonzero((reach | takes) & (np.arange(inst.n_nodes) != crit))
-    if len(cand) == 0 or k <= 1:
+    takes &= others & ~reach
+    if k <= 1 or not (reach | takes).any():
         return np.array([crit], dtype=np.int64)
-    area = np.zeros(inst.n_nodes)
-    np.add.at(area, assign, inst.demand[:, 0] * inst.duration[np.arange(inst.n_jobs), assign])
-    room = np.maximum(inst.capacity[cand, 0] * max(target, 1) - area[cand], 0.0)
-    weight = room / max(room.max(), 1.0) + (finish.max() - finish[cand] + 1) / (finish.max() + 1)
-    pick = rng.choice(cand, size=min(k - 1, len(cand)), replace=False, p=weight / weight.sum())
-    return np.concatenate([[crit], np.sort(pick)]).astype(np.int64)
+    load = np.zeros((inst.n_nodes, inst.demand.shape[1]))
+    np.add.at(load, assign, inst.demand * inst.duration[np.arange(inst.n_jobs), assign][:, None])
+    supply = inst.capacity * float(max(target, 1))
+    asked = inst.demand[on_crit].max(axis=0) > 0 if on_crit.any() else inst.capacity[crit] > 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(supply > 0, np.maximum(supply - load, 0.0) / supply, np.inf)
+    room = np.where(asked[None, :], share, np.inf).min(axis=1)
+    room = np.where(np.isfinite(room), room, 0.0)
+    early = (finish.max() - finish + 1) / (finish.max() + 1)
+    picks = []
+    for pool in (reach, takes):
+        cand = np.flatnonzero(pool)
+        want = k - 1 - sum(len(p) for p in picks)
+        if want <= 0 or len(cand) == 0:
+            continue
+        weight = room[cand] / max(room[cand].max(), 1e-9) + early[cand]
+        picks.append(rng.choice(cand, size=min(want, len(cand)), replace=False,
+                                p=weight / weight.sum()))
+    return np.concatenate([[crit], np.sort(np.concatenate(picks))]).astype(np.int64)
 
 
 def repack_nodes(inst: Instance, assign: np.ndarray, start: np.ndarray, nodes: np.ndarray, *,
