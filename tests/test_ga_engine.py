@@ -225,7 +225,7 @@ def test_known_optimum_small_batches(seed):
 @pytest.mark.xfail(strict=True, reason="target missed: ga ends 7 % above the known optimum "
                    "(about 3000 vs 2802 min): every node would have to be tiled perfectly "
                    "(the batch's work is exactly 20 nodes x 2802 min); neither the ga, its "
-                   "exact repacking of a few nodes, nor CP-SAT on the whole batch for 60 s "
+                   "exact repacking of six nodes, nor CP-SAT on the whole batch for 60 s "
                    "(3010 min) finds such a tiling; see RESULTS.md")
 @pytest.mark.parametrize("seed", [1, 2, 3])
 def test_known_optimum_small_batch_within_one_percent(seed):

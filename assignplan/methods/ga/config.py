@@ -70,7 +70,7 @@ class GAConfig(BaseModel):
                     "that ends last, see `descent`) may spend on the best plan each "
                     "generation; 0: off.")
     repack_nodes: int = Field(
-        default=4, ge=0, le=64,
+        default=6, ge=0, le=64,
         description="Nodes the exact repacking step frees each generation (the one setting "
                     "the makespan and partners, see `repack`); 0 or 1: off.")
     repack_effort: float = Field(
