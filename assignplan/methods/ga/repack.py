@@ -25,6 +25,7 @@ from ortools.sat.python import cp_model
 from assignplan.instance import Instance
 from assignplan.methods.exact import NodeSlots, add_job, add_node_capacity
 from assignplan.methods.ga.local import Evaluate, Key, critical_node
+from assignplan.methods.ga.repair import resource_work
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
 
@@ -57,8 +58,7 @@ def pick_nodes(inst: Instance, assign: np.ndarray, end: np.ndarray, crit: int, k
     takes &= others & ~reach
     if k <= 1 or not (reach | takes).any():
         return np.array([crit], dtype=np.int64)
-    load = np.zeros((inst.n_nodes, inst.demand.shape[1]))
-    np.add.at(load, assign, inst.demand * inst.duration[np.arange(inst.n_jobs), assign][:, None])
+    load = resource_work(inst, assign[None])[0]  # [N, R] resource-minutes
     supply = inst.capacity * float(max(target, 1))
     asked = inst.demand[on_crit].max(axis=0) > 0 if on_crit.any() else inst.capacity[crit] > 0
     with np.errstate(divide="ignore", invalid="ignore"):
