@@ -7,10 +7,14 @@ from dataclasses import dataclass
 import networkx as nx
 import numpy as np
 
+from assignplan.configurations import configuration_bound
 from assignplan.instance import RESOURCES, Instance
 
 MAX_CLASSES = 300  # node-set classes examined beyond the whole cluster (largest load first)
 MAX_CLIQUE_CLASSES = 40  # of those, the ones also searched for a clique and given `dff_work`
+MAX_LP_CLASSES = 40  # node-set classes (heaviest first) given the configuration LP
+MAX_LP_JOBS = 1_000  # larger sets of jobs are left to the other parts (LP time)
+LP_MIN_GAIN = 0.001  # a class's LP search stops once it cannot lift the bound by more
 DFF_K = 16  # u^(k) of `dff_work` for k = 1 .. DFF_K
 DFF_THRESHOLDS = 12  # thresholds e of U^(e) tried by `dff_work`
 _CHUNK_CELLS = 2_000_000  # job x node cells per vectorised block: bounds memory at ~16 MB/array
@@ -40,6 +44,7 @@ PART_NAMES = {  # one line each for tables and reports; the docstring below has 
     "conflict": "jobs that can never share a node",
     "dff": "work with dual feasible functions",
     "clique": "pairwise-conflicting jobs",
+    "configurations": "sets of jobs that fit a node together (LP)",
     "grid": "rounding to the batch's time grid",
 }
 
@@ -69,12 +74,16 @@ def lower_bound(inst: Instance) -> LowerBound:
     - ``clique``: a set of pairwise-conflicting jobs (any two overflow some resource on every
       node that can hold them, e.g. whole-node jobs, or a memory-heavy job and a core-heavy
       one) shares its host nodes like P||Cmax machines: average load (see `clique_bound`).
+    - ``configurations``: the configuration LP of the jobs only a node set can hold (the whole
+      cluster included), solved only where it can beat the parts above (see
+      `configurations.configuration_bound`).
     - ``grid``: the largest of the above rounded up to a multiple of g (see `time_grid`).
     """
     est, fin = head_times(inst)
     fin_ready = _earliest_finish(inst, np.arange(inst.n_jobs), inst.ready)
     parts = {"job": int(fin_ready.max()), "critical_path": int(fin.max())}
     parts.update(_resource_bounds(inst, est))
+    parts["configurations"] = _configuration_part(inst, est, floor=max(parts.values()))
     g = time_grid(inst)
     parts["grid"] = -(-max(parts.values()) // g) * g
     return LowerBound(value=max(parts.values()), parts=parts)
@@ -328,16 +337,13 @@ def _unique_node_sets(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
     return rows, inverse.reshape(-1)
 
 
-def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
-    """Work bounds on the whole cluster and per node-set class, and the conflict bound."""
-    ref = _min_over_eligible(inst, inst.speed)
-    mindur = inst.min_duration()
-    work = inst.demand * ref[:, None]  # [J, R] reference resource-minutes
-    big = 2 * inst.demand > _max_capacity(inst)  # [J, R] never two on one node at once
+def _node_set_classes(inst: Instance, ref: np.ndarray):
+    """Distinct eligibility rows (packed), each job's row, the rows' node masks (bool[rows, N]),
+    their reference work (float[rows, R]), and the partial rows (not every node) to examine,
+    heaviest load per unit of supply first, at most MAX_CLASSES."""
     rows, inverse = _unique_node_sets(inst)
-    n_rows = len(rows)
-    row_work = np.zeros((n_rows, len(RESOURCES)))
-    np.add.at(row_work, inverse, work)
+    row_work = np.zeros((len(rows), len(RESOURCES)))
+    np.add.at(row_work, inverse, inst.demand * ref[:, None])
     row_nodes = np.unpackbits(rows.view(np.uint8), axis=1, count=inst.n_nodes).astype(bool)
     rate = (inst.capacity * inst.speed[:, None]).astype(np.float64)
     row_rate = row_nodes.astype(np.float64) @ rate
@@ -345,6 +351,23 @@ def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
         score = np.nan_to_num(row_work / row_rate, nan=0.0, posinf=0.0).max(axis=1)
     partial = ~row_nodes.all(axis=1)
     classes = [c for c in np.argsort(-score, kind="stable") if partial[c]][:MAX_CLASSES]
+    return rows, inverse, row_nodes, row_work, classes
+
+
+def _rows_inside(rows: np.ndarray, c) -> np.ndarray:
+    """bool[rows]: the rows whose node set lies inside class c's (every row for c = None);
+    indexed by a job's row, the jobs only c's nodes can hold."""
+    if c is None:
+        return np.ones(len(rows), dtype=bool)
+    return ~np.any(rows & ~rows[c], axis=1)
+
+
+def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
+    """Work bounds on the whole cluster and per node-set class, and the conflict bound."""
+    ref = _min_over_eligible(inst, inst.speed)
+    mindur = inst.min_duration()
+    big = 2 * inst.demand > _max_capacity(inst)  # [J, R] never two on one node at once
+    rows, inverse, row_nodes, row_work, classes = _node_set_classes(inst, ref)
 
     out = dict.fromkeys(RESOURCES, 0)
     out.update({f"class_{name}": 0 for name in RESOURCES})
@@ -353,11 +376,8 @@ def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
     out["dff"] = 0
     all_nodes = np.arange(inst.n_nodes)
     for label, c in [("", None)] + [("class_", c) for c in classes]:
-        if c is None:
-            members, nodes = np.ones(n_rows, dtype=bool), all_nodes
-        else:
-            members = ~np.any(rows & ~rows[c], axis=1)  # rows whose node set is inside c's
-            nodes = np.flatnonzero(row_nodes[c])
+        nodes = all_nodes if c is None else np.flatnonzero(row_nodes[c])
+        members = _rows_inside(rows, c)
         jobs = members[inverse]
         w = work_bound(row_work[members].sum(axis=0), nodes, int(est[jobs].min()), inst)
         for r, name in enumerate(RESOURCES):
@@ -402,3 +422,42 @@ def _clique_part(inst: Instance, jobs: np.ndarray, nodes: np.ndarray, mindur: np
     hosts = int(row_nodes[np.unique(inverse[clique])].any(axis=0).sum())
     return max(clique_bound(mindur[clique], est[clique], hosts),
                conflict_bound(mindur[clique], est[clique], hosts))
+
+
+def _node_time(inst: Instance, nodes: np.ndarray, start: int, t: int) -> float:
+    """sum_{i in nodes} speed_i * avail_i(t): the reference minutes `nodes` offer in [start, t)."""
+    win_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
+    keep = np.isin(win_node, nodes)
+    lost = np.clip(np.minimum(inst.maint_end[keep], t)
+                   - np.maximum(inst.maint_start[keep], start), 0, None)
+    return float(inst.speed[nodes].sum() * max(0, t - start)
+                 - (inst.speed[win_node[keep]] * lost).sum())
+
+
+def _configuration_part(inst: Instance, est: np.ndarray, floor: int) -> int:
+    """`work_bound` of the configuration LP of each class's jobs on its nodes.
+
+    At any moment a node runs a set of the class's jobs that fits its capacity, so the LP's
+    node time z (in reference minutes, over configurations that fit the class's largest
+    capacity per resource, a relaxation) is at most sum_i speed_i * avail_i(T). The search
+    for a class stops as soon as its LP cannot reach past `floor` (the best part so far).
+    """
+    ref = _min_over_eligible(inst, inst.speed)
+    rows, inverse, row_nodes, _, classes = _node_set_classes(inst, ref)
+    ones = np.ones_like(inst.capacity)
+    best = 0
+    for c in [None] + classes[:MAX_LP_CLASSES]:
+        nodes = np.arange(inst.n_nodes) if c is None else np.flatnonzero(row_nodes[c])
+        jobs = np.flatnonzero(_rows_inside(rows, c)[inverse])
+        if not 2 <= len(jobs) <= MAX_LP_JOBS:
+            continue
+        start = int(est[jobs].min())
+        target = max(floor, best)
+        target += max(1, int(LP_MIN_GAIN * target))
+        z = configuration_bound(ref[jobs], inst.demand[jobs], inst.capacity[nodes].max(axis=0),
+                                give_up_below=_node_time(inst, nodes, start, target))
+        if z > 0:
+            work = np.zeros(len(RESOURCES))
+            work[0] = z
+            best = max(best, int(work_bound(work, nodes, start, inst, capacity=ones)[0]))
+    return best

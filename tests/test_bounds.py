@@ -362,7 +362,7 @@ def test_value_is_the_largest_part():
     lb = lower_bound(inst)
     assert lb.value == max(lb.parts.values()) > 0
     assert {"job", "critical_path", "cores", "memory", "gpus", "class_cores", "class_memory",
-            "class_gpus", "conflict", "clique", "dff", "grid"} == set(lb.parts)
+            "class_gpus", "conflict", "clique", "dff", "configurations", "grid"} == set(lb.parts)
 
 
 @pytest.mark.slow
