@@ -9,6 +9,7 @@ from hypothesis import strategies as st
 from assignplan.check import check_plan
 from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.ga.repack import (
+    SINKS,
     keys_for_order,
     pick_nodes,
     repack_nodes,
@@ -157,3 +158,35 @@ def test_partners_are_nodes_the_critical_nodes_jobs_can_use():
         assert set(gpu_nodes[1:].tolist()) <= set(more.tolist())
         assert len(more) == 5
         assert set(more.tolist()) - set(gpu_nodes.tolist()) <= set(cpu_nodes.tolist())
+
+
+def test_plain_nodes_come_in_to_take_plain_jobs_off_special_partners():
+    """A tagged node whose jobs all need the tag can only be lowered by moving some of them to
+    other tagged nodes; when those are busy with plain jobs, the repacking needs plain nodes
+    too, to take the plain jobs (SINKS of them), and the other partners stay tagged ones."""
+    doc = {"window": {"start": "2026-12-07T00:00:00", "hours": 48.0},
+           "nodes": [{"name": "vec", "count": 4, "cores": 64, "memory_gib": 256.0,
+                      "tags": ["wide-vector"]},
+                     {"name": "plain", "count": 5, "cores": 64, "memory_gib": 256.0}],
+           "jobs": [{"name": f"vec{k}", "cores": 32, "memory_gib": 16.0, "hours": 10.0,
+                     "needs": ["wide-vector"]} for k in range(4)]
+                   + [{"name": f"plain{k}", "cores": 32, "memory_gib": 16.0, "hours": 5.0}
+                      for k in range(12)]}
+    _, inst = instance_of(doc)
+    tagged = np.flatnonzero(inst.eligible[0])  # the nodes vec0 can use
+    plain = np.setdiff1d(np.arange(inst.n_nodes), tagged)
+    needs_tag = ~inst.eligible.all(axis=1)
+    assign = np.empty(inst.n_jobs, dtype=np.int64)
+    assign[needs_tag] = tagged[0]  # the makespan node: every job on it needs the tag
+    assign[~needs_tag] = np.concatenate([np.repeat(tagged[1:], 3), np.repeat(plain[:1], 3)])
+    start = np.zeros(inst.n_jobs, dtype=np.int64)
+    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    crit = int(tagged[0])
+    for seed in range(10):
+        nodes = pick_nodes(inst, assign, end, crit, 6, 20 * HOUR,
+                           rng=np.random.default_rng(seed))
+        assert nodes[0] == crit and len(nodes) == 6 == len(set(nodes.tolist()))
+        assert len(set(nodes[1:].tolist()) & set(tagged.tolist())) == 6 - 1 - SINKS
+        assert len(set(nodes[1:].tolist()) & set(plain.tolist())) == SINKS
+        two = pick_nodes(inst, assign, end, crit, 2, 20 * HOUR, rng=np.random.default_rng(seed))
+        assert two[1] in tagged  # a single partner must be one that can take crit's jobs
