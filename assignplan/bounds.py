@@ -82,8 +82,11 @@ def lower_bound(inst: Instance) -> LowerBound:
     est, fin = head_times(inst)
     fin_ready = _earliest_finish(inst, np.arange(inst.n_jobs), inst.ready)
     parts = {"job": int(fin_ready.max()), "critical_path": int(fin.max())}
-    parts.update(_resource_bounds(inst, est))
-    parts["configurations"] = _configuration_part(inst, est, floor=max(parts.values()))
+    ref = _min_over_eligible(inst, inst.speed)
+    classes = _node_set_classes(inst, ref)
+    parts.update(_resource_bounds(inst, est, ref, classes))
+    parts["configurations"] = _configuration_part(inst, est, ref, classes,
+                                                  floor=max(parts.values()))
     g = time_grid(inst)
     parts["grid"] = -(-max(parts.values()) // g) * g
     return LowerBound(value=max(parts.values()), parts=parts)
@@ -362,12 +365,13 @@ def _rows_inside(rows: np.ndarray, c) -> np.ndarray:
     return ~np.any(rows & ~rows[c], axis=1)
 
 
-def _resource_bounds(inst: Instance, est: np.ndarray) -> dict[str, int]:
-    """Work bounds on the whole cluster and per node-set class, and the conflict bound."""
-    ref = _min_over_eligible(inst, inst.speed)
+def _resource_bounds(inst: Instance, est: np.ndarray, ref: np.ndarray,
+                     node_set_classes: tuple) -> dict[str, int]:
+    """Work bounds on the whole cluster and per node-set class, and the conflict bound
+    (`ref`: reference minutes per job; `node_set_classes`: from `_node_set_classes`)."""
     mindur = inst.min_duration()
     big = 2 * inst.demand > _max_capacity(inst)  # [J, R] never two on one node at once
-    rows, inverse, row_nodes, row_work, classes = _node_set_classes(inst, ref)
+    rows, inverse, row_nodes, row_work, classes = node_set_classes
 
     out = dict.fromkeys(RESOURCES, 0)
     out.update({f"class_{name}": 0 for name in RESOURCES})
@@ -434,16 +438,18 @@ def _node_time(inst: Instance, nodes: np.ndarray, start: int, t: int) -> float:
                  - (inst.speed[win_node[keep]] * lost).sum())
 
 
-def _configuration_part(inst: Instance, est: np.ndarray, floor: int) -> int:
+def _configuration_part(inst: Instance, est: np.ndarray, ref: np.ndarray,
+                        node_set_classes: tuple, floor: int) -> int:
     """`work_bound` of the configuration LP of each class's jobs on its nodes.
 
     At any moment a node runs a set of the class's jobs that fits its capacity, so the LP's
     node time z (in reference minutes, over configurations that fit the class's largest
     capacity per resource, a relaxation) is at most sum_i speed_i * avail_i(T). The search
-    for a class stops as soon as its LP cannot reach past `floor` (the best part so far).
+    for a class stops as soon as its LP cannot lift the bound past `floor` (the best part so
+    far) by more than LP_MIN_GAIN of it: the last fraction of a percent of a column
+    generation's tail costs most of its rounds.
     """
-    ref = _min_over_eligible(inst, inst.speed)
-    rows, inverse, row_nodes, _, classes = _node_set_classes(inst, ref)
+    rows, inverse, row_nodes, _, classes = node_set_classes
     ones = np.ones_like(inst.capacity)
     best = 0
     for c in [None] + classes[:MAX_LP_CLASSES]:

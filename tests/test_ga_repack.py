@@ -128,6 +128,11 @@ def test_a_fruitless_sub_problem_is_not_solved_twice(monkeypatch):
                         tried=tried) is None
 
 
+def ends_all_from_zero(inst, assign: np.ndarray) -> np.ndarray:
+    """int64[J]: each job's end if every job started at minute 0 (enough for `pick_nodes`)."""
+    return inst.duration[np.arange(inst.n_jobs), assign].astype(np.int64)
+
+
 def test_partners_are_nodes_the_critical_nodes_jobs_can_use():
     """A GPU node whose jobs all need GPUs gets the other GPU nodes as partners, never the
     CPU-only nodes, however idle: they cannot take any of its jobs. Only when more partners
@@ -146,8 +151,7 @@ def test_partners_are_nodes_the_critical_nodes_jobs_can_use():
     assign = np.empty(inst.n_jobs, dtype=np.int64)
     assign[needs_gpu] = np.repeat(gpu_nodes, 2)
     assign[~needs_gpu] = np.repeat(cpu_nodes, 2)
-    start = np.zeros(inst.n_jobs, dtype=np.int64)
-    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    end = ends_all_from_zero(inst, assign)
     crit = int(gpu_nodes[0])
     for seed in range(10):
         nodes = pick_nodes(inst, assign, end, crit, 3, 10 * HOUR,
@@ -179,8 +183,7 @@ def test_plain_nodes_come_in_to_take_plain_jobs_off_special_partners():
     assign = np.empty(inst.n_jobs, dtype=np.int64)
     assign[needs_tag] = tagged[0]  # the makespan node: every job on it needs the tag
     assign[~needs_tag] = np.concatenate([np.repeat(tagged[1:], 3), np.repeat(plain[:1], 3)])
-    start = np.zeros(inst.n_jobs, dtype=np.int64)
-    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    end = ends_all_from_zero(inst, assign)
     crit = int(tagged[0])
     for seed in range(10):
         nodes = pick_nodes(inst, assign, end, crit, 6, 20 * HOUR,
