@@ -7,8 +7,8 @@ gives a solution of
     z = min sum_S x_S   subject to   sum_{S contains j} x_S >= p_j  for every job j,  x >= 0,
 
 so z is at most the node time the plan uses. This is the Gilmore-Gomory LP of bin and vector
-packing (Gilmore & Gomory, Oper. Res. 9, 1961), here the preemptive relaxation of the jobs on
-the nodes: it sees at once what the per-resource work bounds, the dual feasible functions
+packing (Gilmore & Gomory, Oper. Res. 9, 1961, from memory), here the preemptive relaxation
+of the jobs on the nodes: it sees at once what the per-resource work bounds, the dual feasible functions
 (each a dual solution of a one-resource relaxation) and the cliques (a dual solution with y = 1
 on jobs no two of which fit together) see one at a time, and also sets of jobs that fit in
 pairs but not all together across two resources.
@@ -17,7 +17,7 @@ There are exponentially many configurations, so the LP is solved by column gener
 solves it over the columns found so far, and the duals y price new ones (a multi-dimensional
 0/1 knapsack: max sum_{j in S} y_j over the sets S that fit). Greedy packings by dual value find
 most columns cheaply; CP-SAT prices exactly when they find none. Whenever CP-SAT has priced,
-Farley's bound (Oper. Res. 38, 1990) makes the duals valid at any iteration:
+Farley's bound (Oper. Res. 38, 1990, from memory) makes the duals valid at any iteration:
 
     z >= (sum_j p_j y_j) / max(1, v*),   v* >= max_S sum_{j in S} y_j,
 
@@ -57,7 +57,8 @@ def configuration_bound(p: np.ndarray, demand: np.ndarray, capacity: np.ndarray,
     capacity = np.asarray(capacity, dtype=np.int64)
     lp = _Master(p)
     for col in _first_fit_columns(p, demand, capacity):
-        lp.add(col)
+        if lp.is_new(col):
+            lp.add(col)
     proven = 0.0
     for round_ in range(MAX_ROUNDS):
         z, y = lp.solve()
