@@ -8,10 +8,10 @@ gives a solution of
 
 so z is at most the node time the plan uses. This is the Gilmore-Gomory LP of bin and vector
 packing (Gilmore & Gomory, Oper. Res. 9, 1961, from memory), here the preemptive relaxation
-of the jobs on the nodes: it sees at once what the per-resource work bounds, the dual feasible functions
-(each a dual solution of a one-resource relaxation) and the cliques (a dual solution with y = 1
-on jobs no two of which fit together) see one at a time, and also sets of jobs that fit in
-pairs but not all together across two resources.
+of the jobs on the nodes: it sees at once what the per-resource work bounds, the dual
+feasible functions (each a dual solution of a one-resource relaxation) and the cliques (a
+dual solution with y = 1 on jobs no two of which fit together) see one at a time, and also
+sets of jobs that fit in pairs but not all together across two resources.
 
 There are exponentially many configurations, so the LP is solved by column generation: GLOP
 solves it over the columns found so far, and the duals y price new ones (a multi-dimensional
