@@ -194,6 +194,25 @@ def _max_capacity(inst: Instance) -> np.ndarray:
     return out
 
 
+def _supply(inst: Instance, nodes: np.ndarray, start: int, cap: np.ndarray):
+    """(supply, total rate float64[R], last maintenance end or `start`) of `nodes`, where
+    supply(t) -> float64[R] is sum_{i in nodes} cap_ir * speed_i * avail_i(t_r) for
+    t int64[R] (one time per resource; a single time broadcasts)."""
+    rate = (cap[nodes] * inst.speed[nodes, None]).astype(np.float64)  # [n, R]
+    win_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
+    keep = np.isin(win_node, nodes) & (inst.maint_end > start)
+    w_start = np.maximum(inst.maint_start[keep], start)
+    w_end = inst.maint_end[keep]
+    w_rate = (cap[win_node[keep]] * inst.speed[win_node[keep], None]).astype(float)
+    total_rate = rate.sum(axis=0)
+
+    def supply(t: np.ndarray) -> np.ndarray:
+        lost = np.clip(np.minimum(w_end[:, None], t[None, :]) - w_start[:, None], 0, None)
+        return total_rate * np.maximum(0, t - start) - (w_rate * lost).sum(axis=0)
+
+    return supply, total_rate, max(start, int(w_end.max()) if len(w_end) else start)
+
+
 def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance,
                capacity: np.ndarray | None = None) -> np.ndarray:
     """int64[R]: the smallest T with sum_{i in nodes} cap_ir * speed_i * avail_i(T) >= W_r.
@@ -208,23 +227,11 @@ def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance,
     bisection. A resource without work gives 0. `capacity` (int64[N, R], default
     inst.capacity) replaces cap_ir in the supply, for work measured in other units (`dff_work`).
     """
-    cap = inst.capacity if capacity is None else capacity
-    rate = (cap[nodes] * inst.speed[nodes, None]).astype(np.float64)  # [n, R]
-    win_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
-    keep = np.isin(win_node, nodes) & (inst.maint_end > start)
-    w_start = np.maximum(inst.maint_start[keep], start)
-    w_end = inst.maint_end[keep]
-    w_rate = (cap[win_node[keep]] * inst.speed[win_node[keep], None]).astype(float)
-    total_rate = rate.sum(axis=0)
-
-    def supply(t: np.ndarray) -> np.ndarray:
-        lost = np.clip(np.minimum(w_end[:, None], t[None, :]) - w_start[:, None], 0, None)
-        return total_rate * np.maximum(0, t - start) - (w_rate * lost).sum(axis=0)
-
+    supply, total_rate, last = _supply(inst, nodes, start,
+                                       inst.capacity if capacity is None else capacity)
     need = np.asarray(work, dtype=np.float64) * (1.0 - _REL_SLACK)
     active = need > 0
     safe_rate = np.where(total_rate > 0, total_rate, 1.0)
-    last = max(start, int(w_end.max()) if len(w_end) else start)
     lo = np.full(len(need), start, dtype=np.int64)  # supply(lo) < need
     hi = last + np.ceil(need / safe_rate).astype(np.int64) + 1  # supply(hi) >= need
     while np.any(active & (hi - lo > 1)):
@@ -430,12 +437,8 @@ def _clique_part(inst: Instance, jobs: np.ndarray, nodes: np.ndarray, mindur: np
 
 def _node_time(inst: Instance, nodes: np.ndarray, start: int, t: int) -> float:
     """sum_{i in nodes} speed_i * avail_i(t): the reference minutes `nodes` offer in [start, t)."""
-    win_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
-    keep = np.isin(win_node, nodes)
-    lost = np.clip(np.minimum(inst.maint_end[keep], t)
-                   - np.maximum(inst.maint_start[keep], start), 0, None)
-    return float(inst.speed[nodes].sum() * max(0, t - start)
-                 - (inst.speed[win_node[keep]] * lost).sum())
+    supply, _, _ = _supply(inst, nodes, start, np.ones_like(inst.capacity))
+    return float(supply(np.array([t]))[0])
 
 
 def _configuration_part(inst: Instance, est: np.ndarray, ref: np.ndarray,

@@ -59,12 +59,13 @@ def configuration_bound(p: np.ndarray, demand: np.ndarray, capacity: np.ndarray,
     for col in _first_fit_columns(p, demand, capacity):
         if lp.is_new(col):
             lp.add(col)
+    sizes = _job_sizes(demand, capacity)
     proven = 0.0
     for round_ in range(MAX_ROUNDS):
         z, y = lp.solve()
         if z <= give_up_below:
             break
-        new = [c for c in _greedy_columns(y, demand, capacity) if lp.is_new(c)]
+        new = [c for c in _greedy_columns(y, demand, capacity, sizes) if lp.is_new(c)]
         if new and round_ < MAX_ROUNDS - 1:
             for col in new:
                 lp.add(col)
@@ -141,10 +142,16 @@ def _first_fit_columns(p: np.ndarray, demand: np.ndarray, capacity: np.ndarray) 
     return cols
 
 
-def _greedy_columns(y: np.ndarray, demand: np.ndarray, capacity: np.ndarray) -> list:
-    """Configurations with y(S) > 1 found by first fit in orders of dual value per size."""
+def _job_sizes(demand: np.ndarray, capacity: np.ndarray) -> list[np.ndarray]:
+    """Sizes to divide dual values by: largest share of a node, sum of shares, one."""
     share = demand / np.maximum(capacity, 1)
-    sizes = [share.max(axis=1), share.sum(axis=1), np.ones(len(y))]
+    return [share.max(axis=1), share.sum(axis=1), np.ones(len(demand))]
+
+
+def _greedy_columns(y: np.ndarray, demand: np.ndarray, capacity: np.ndarray,
+                    sizes: list[np.ndarray]) -> list:
+    """Configurations with y(S) > 1 found by first fit in orders of dual value per size
+    (`sizes` from `_job_sizes`)."""
     useful = y > _TOL
     out = []
     for k in range(GREEDY_ORDERS):
