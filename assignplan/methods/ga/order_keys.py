@@ -11,6 +11,7 @@ pseudo-hours strictly exceeds each successor's, so every order is a topological 
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 
 from assignplan.instance import Instance
 
@@ -18,11 +19,26 @@ from assignplan.instance import Instance
 def bottom_levels(inst: Instance, h: np.ndarray) -> np.ndarray:
     """float64[P, J] bottom levels of pseudo-hours h float64[P, J]: h_j plus the largest
     bottom level among j's successors (h_j for a job without any)."""
+    h = np.ascontiguousarray(h, dtype=np.float64)
+    return _bottom_levels(h, inst.order[::-1].copy(), inst.succ_ptr, inst.succ_idx)
+
+
+@njit(cache=True)
+def _bottom_levels(h, successors_first, succ_ptr, succ_idx):
+    # h_j + max_k b_k equals max_k (h_j + b_k) in floating point too (rounding is monotone),
+    # so this gives the same bits as the vectorised form it replaced (a Python loop over
+    # jobs that was a tenth of a ga generation on 2,000 jobs)
     bottom = h.copy()
-    has_succ = np.diff(inst.succ_ptr) > 0
-    for j in inst.order[::-1][has_succ[inst.order[::-1]]].tolist():  # successors first
-        succ = inst.successors(j)
-        bottom[:, j] = np.max(h[:, [j]] + bottom[:, succ], axis=1)
+    for q in range(successors_first.shape[0]):
+        j = successors_first[q]
+        lo, hi = succ_ptr[j], succ_ptr[j + 1]
+        if hi == lo:
+            continue
+        for p in range(h.shape[0]):
+            best = bottom[p, succ_idx[lo]]
+            for k in range(lo + 1, hi):
+                best = max(best, bottom[p, succ_idx[k]])
+            bottom[p, j] = h[p, j] + best
     return bottom
 
 
