@@ -86,6 +86,10 @@ DescentOpt = Annotated[int, typer.Option(
 BalancedOpt = Annotated[int, typer.Option(
     help="ga: greedy seeds that keep each class of jobs on the node groups a work-split "
          "relaxation gives it; 0: off.", min=0, max=10_000, rich_help_panel="ga")]
+ReserveOpt = Annotated[float, typer.Option(
+    help="ga: share of the time limit spent first with scarce node groups (GPU, large "
+         "memory, tags) kept for the jobs that need them, when the other nodes can take the "
+         "rest; 0: off.", min=0.0, max=1.0, rich_help_panel="ga")]
 
 
 def ga_config(**fields) -> GAConfig:
@@ -158,6 +162,7 @@ def solve(
     repack_nodes: RepackOpt = GA_DEFAULTS.repack_nodes,
     descent_trials: DescentOpt = GA_DEFAULTS.descent_trials,
     balanced_seeds: BalancedOpt = GA_DEFAULTS.balanced_seeds,
+    reserve_share: ReserveOpt = GA_DEFAULTS.reserve_share,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.instance import build_instance
@@ -180,7 +185,8 @@ def solve(
                        mutation=mutation, mutation_flips=mutation_flips,
                        tournament_size=tournament_size, survival=survival,
                        local_search=local_search, repack_nodes=repack_nodes,
-                       descent_trials=descent_trials, balanced_seeds=balanced_seeds)
+                       descent_trials=descent_trials, balanced_seeds=balanced_seeds,
+                       reserve_share=reserve_share)
     inst = build_instance(expanded)
     bound = lower_bound(inst)
     with progress_bar(method == "ga" and not quiet and not as_json, config.generations,

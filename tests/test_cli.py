@@ -154,12 +154,14 @@ def test_ga_options_are_validated():
     assert result.exit_code == 2 and "--balanced-seeds" in result.stderr
     result = runner.invoke(app, ["solve", str(SMALL), "--descent-trials", "-5"])
     assert result.exit_code == 2 and "--descent-trials" in result.stderr
+    result = runner.invoke(app, ["solve", str(SMALL), "--reserve-share", "1.5"])
+    assert result.exit_code == 2 and "--reserve-share" in result.stderr
 
 
 def test_repack_descent_and_balanced_seeds_off_still_plan(tmp_path):
     out = tmp_path / "plan.json"
     solve(str(SMALL), "--generations", "10", "--repack-nodes", "0", "--balanced-seeds", "0",
-          "--descent-trials", "0", "--quiet", "--out", str(out))
+          "--descent-trials", "0", "--reserve-share", "0", "--quiet", "--out", str(out))
     assert runner.invoke(app, ["check", str(SMALL), str(out)]).exit_code == 0
 
 

@@ -7,7 +7,7 @@ from hypothesis import HealthCheck, given, settings
 
 from assignplan.check import check_plan
 from assignplan.methods.ga import GAConfig, solve_ga
-from assignplan.methods.ga.balance import balanced_eligibility, class_split
+from assignplan.methods.ga.balance import balanced_eligibility, class_split, reserved_eligibility
 from assignplan.methods.ga.encoding import EligibleIndex
 from assignplan.methods.ga.engine import initial_population
 from assignplan.methods.greedy import greedy_assign
@@ -100,3 +100,97 @@ def test_ga_starts_from_balanced_seeds_and_can_do_without():
     plan = solve_ga(inst, config=GAConfig(generations=0), lower_bound=0, seed=0,
                     time_limit=10.0)
     assert plan.makespan == 4.5 * 60
+
+
+# ------------------------------------------------------------------ reserved node groups
+
+
+def roomy_plain_nodes(plain_jobs: int) -> dict:
+    """Four plain nodes, one GPU node; `plain_jobs` plain 2 h whole-node jobs, two 3 h GPU
+    jobs. Up to 4 x 6 / 2 = 12 plain jobs fit on the plain nodes within the GPU node's 6 h of
+    GPU work, so the relaxation's load does not rise when they leave the GPU node; with more
+    the plain nodes alone end later than the cluster could, and the GPU node stays open."""
+    return {"window": WEEK,
+            "nodes": [{"name": "cpu", "count": 4, "cores": 32, "memory_gib": 128.0},
+                      {"name": "gpu", "cores": 32, "memory_gib": 128.0, "gpus": 4}],
+            "jobs": [{"name": "plain", "count": plain_jobs, "cores": 32, "memory_gib": 8.0,
+                      "hours": 2.0},
+                     {"name": "train", "count": 2, "cores": 32, "memory_gib": 8.0, "gpus": 4,
+                      "hours": 3.0}]}
+
+
+def test_scarce_group_is_reserved_while_the_others_can_absorb_its_guests():
+    _, inst = instance_of(roomy_plain_nodes(12))
+    allowed = reserved_eligibility(inst)
+    assert allowed is not None
+    plain = np.array([name.startswith("plain") for name in inst.job_names])
+    gpu_node = inst.capacity[:, 2] > 0
+    assert not allowed[np.ix_(plain, gpu_node)].any()  # plain jobs: plain nodes only
+    assert allowed[np.ix_(plain, ~gpu_node)].all()
+    assert allowed[np.ix_(~plain, gpu_node)].all()  # the GPU jobs keep their node
+    assert abs(class_split(inst, allowed)[3] - 6 * 60) < 1e-6
+    assert abs(class_split(inst)[3] - 6 * 60) < 1e-6
+    # 16 plain jobs: 8 h on the plain nodes alone, but (16 x 2 + 2 x 3) / 5 = 7.6 h with
+    # the GPU node's help, so nothing is reserved
+    _, crowded = instance_of(roomy_plain_nodes(16))
+    assert class_split(crowded)[3] < 8 * 60
+    assert reserved_eligibility(crowded) is None
+
+
+def test_a_group_its_own_jobs_leave_mostly_idle_stays_open():
+    """A tagged node whose own jobs take 10 h sets the relaxation's load (T = 10 h); the GPU
+    node's own job takes 1 h. Sending the plain jobs (4 x 2 h whole-node) away from either
+    leaves T at 10 h, but only the tagged node is full of its own work: the GPU node stays
+    open to plain jobs, the tagged one is reserved."""
+    doc = {"window": WEEK,
+           "nodes": [{"name": "cpu", "count": 2, "cores": 32, "memory_gib": 128.0},
+                     {"name": "gpu", "cores": 32, "memory_gib": 128.0, "gpus": 4},
+                     {"name": "tagged", "cores": 32, "memory_gib": 128.0, "tags": ["x"]}],
+           "jobs": [{"name": "plain", "count": 4, "cores": 32, "memory_gib": 8.0, "hours": 2.0},
+                    {"name": "train", "cores": 32, "memory_gib": 8.0, "gpus": 4, "hours": 1.0},
+                    {"name": "special", "count": 5, "cores": 32, "memory_gib": 8.0,
+                     "hours": 2.0, "needs": ["x"]}]}
+    _, inst = instance_of(doc)
+    assert abs(class_split(inst)[3] - 10 * 60) < 1e-6
+    allowed = reserved_eligibility(inst)
+    assert allowed is not None
+    plain = np.array([name.startswith("plain") for name in inst.job_names])
+    gpu_node = inst.capacity[:, 2] > 0
+    tagged = np.array([name.startswith("tagged") for name in inst.node_names])
+    assert allowed[np.ix_(plain, gpu_node)].all()
+    assert not allowed[np.ix_(plain, tagged)].any()
+
+
+def test_identical_nodes_reserve_nothing():
+    doc = {"window": WEEK, "nodes": [{"name": "n", "count": 3, "cores": 8, "memory_gib": 32.0}],
+           "jobs": [{"name": "j", "count": 7, "cores": 3, "memory_gib": 4.0, "hours": 1.5},
+                    {"name": "k", "count": 2, "cores": 8, "memory_gib": 4.0, "hours": 1.0}]}
+    assert reserved_eligibility(instance_of(doc)[1]) is None
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(batches(max_jobs=20, p_follows=0.3))
+def test_reserved_eligibility_keeps_a_node_for_every_job_and_costs_the_relaxation_nothing(doc):
+    _, inst = instance_of(doc)
+    allowed = reserved_eligibility(inst)
+    if allowed is None:
+        return
+    assert not (allowed & ~inst.eligible).any()
+    assert allowed.any(axis=1).all()
+    assert class_split(inst, allowed)[3] <= class_split(inst)[3] * (1 + 1e-6)
+
+
+def test_ga_with_a_reserved_phase_gives_checked_plans_no_worse_than_greedy():
+    batch, inst = instance_of(roomy_plain_nodes(12))
+    assert reserved_eligibility(inst) is not None
+    rows = []
+    res = solve_ga(inst, config=GAConfig(generations=10, mu=6, lam=6), lower_bound=0, seed=1,
+                   time_limit=600.0, on_generation=rows.append)
+    assert check_plan(batch, to_plan_doc(inst, res)) == []
+    assert res.makespan <= makespan(inst, *greedy_assign(inst))
+    assert res.makespan == 6 * 60  # plain jobs on the plain nodes, the GPU node for training
+    # one history across both phases: generations 0..10, evaluations rising, best never worse
+    assert rows == res.history and [r.generation for r in rows] == list(range(11))
+    assert all(b.evaluations > a.evaluations for a, b in zip(rows, rows[1:], strict=False))
+    best = [r.best_makespan_h for r in rows]
+    assert best == sorted(best, reverse=True)

@@ -142,9 +142,10 @@ def test_run_island_takes_migrants_and_returns_the_population_best_first():
 def test_reported_plan_is_the_evaluated_one():
     # justified fitness, evolved orders: the plan solve_ga returns has exactly the objective
     # the run scored for its best individual (schedule_result rebuilds the same schedule);
-    # `evaluate` here is solve_ga's default scorer, so both runs take the same path
+    # `evaluate` here is solve_ga's default scorer, so both runs take the same path (no
+    # reserved phase: solve_ga is then one run_island)
     _, inst = instance_of(batch_doc(generate("small", 3)))
-    cfg = GAConfig(generations=8, mu=8, lam=8, local_evaluations=8)
+    cfg = GAConfig(generations=8, mu=8, lam=8, local_evaluations=8, reserve_share=0.0)
     assert cfg.justify and cfg.evolve_order and cfg.tiebreak == "tail"
 
     def evaluate(a, o):

@@ -78,6 +78,13 @@ class GAConfig(BaseModel):
         description="CP-SAT deterministic time limit of one repacking, in CP-SAT's own "
                     "work units (measured: 3-5x that in wall seconds on 200- to "
                     "2,000-job batches, presolve not counted); keeps runs reproducible.")
+    reserve_share: float = Field(
+        default=0.5, ge=0.0, le=1.0,
+        description="Share of the time limit (and of the generations) spent first on the "
+                    "batch with scarce node groups kept for the jobs that need them, when "
+                    "that costs the load relaxation nothing (`balance.reserved_eligibility`); "
+                    "the rest runs on the whole eligibility from that phase's best half. "
+                    "0: no reserved phase.")
     justify: bool = Field(
         default=True,
         description="Score and report the forward-backward improved schedule of each plan.")

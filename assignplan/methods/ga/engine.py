@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import dataclasses
+import math
 import time
 from collections.abc import Callable
 from functools import partial
@@ -10,13 +12,13 @@ import numpy as np
 
 from assignplan.instance import Instance, priority_order
 from assignplan.methods.ga import crossover, mutation, survival
-from assignplan.methods.ga.balance import balanced_eligibility
+from assignplan.methods.ga.balance import balanced_eligibility, reserved_eligibility
 from assignplan.methods.ga.config import GAConfig
 from assignplan.methods.ga.descent import descent_step
 from assignplan.methods.ga.encoding import EligibleIndex, node_load, random_population
 from assignplan.methods.ga.local import improve, improve_order
 from assignplan.methods.ga.order_keys import cross_keys, orders_from_keys, perturb_keys
-from assignplan.methods.ga.repack import repack_step
+from assignplan.methods.ga.repack import keys_for_order, repack_step
 from assignplan.methods.ga.repair import repair
 from assignplan.methods.ga.selection import lex_less, lex_rank, tournament
 from assignplan.methods.greedy import greedy_assign
@@ -207,14 +209,16 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
                evaluate: Evaluate, lower_bound: int, deadline: float,
                on_generation: OnGeneration | None = None,
                migrants_in: np.ndarray | None = None,
+               migrant_keys: np.ndarray | None = None,
                ) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[HistoryRow]]:
     """One GA run: (population int64[mu, J], fitness float64[mu, 3], decoding order, history),
     population best first. The decoding order is int64[mu, J] (one per member, in the same
     order) when `config.evolve_order`, else the one fixed int64[J].
 
     `migrants_in` (int64[m, J], valid plans) join the initial population, replacing its last
-    members (decoded in the best greedy order): the seam for an island model. `deadline` is
-    a time.perf_counter() reading.
+    members, decoded by `migrant_keys` (float64[m, J] order keys) if given, else in the best
+    greedy order: the seam for an island model and for `solve_ga`'s reserved phase.
+    `deadline` is a time.perf_counter() reading.
     """
     index = EligibleIndex.of(inst)
     pop, keys, best = initial_population(inst, config, index, rng=rng)
@@ -222,7 +226,8 @@ def run_island(inst: Instance, config: GAConfig, *, rng: np.random.Generator,
     if migrants_in is not None and len(migrants_in):
         keep = max(1, config.mu - len(migrants_in))
         pop = np.concatenate([pop[:keep], migrants_in])
-        keys = np.concatenate([keys[:keep], np.repeat(keys[[best]], len(migrants_in), axis=0)])
+        keys = np.concatenate([keys[:keep], np.repeat(keys[[best]], len(migrants_in), axis=0)
+                               if migrant_keys is None else migrant_keys])
     genomes = Genomes(inst.n_jobs, config.evolve_order)
 
     def decode_orders(k: np.ndarray | None) -> np.ndarray:
@@ -374,9 +379,43 @@ def solve_ga(inst: Instance, *, config: GAConfig, lower_bound: int, seed: int,
             return evaluate_population(inst, assign2d, order, justify=config.justify,
                                        spread=config.tiebreak == "spread",
                                        tail=config.tiebreak == "tail")
-    pop, _fit, order, history = run_island(inst, config, rng=rng, evaluate=evaluate,
-                                    lower_bound=lower_bound, deadline=t0 + time_limit,
-                                    on_generation=on_generation)
+    history: list[HistoryRow] = []
+    migrants = migrant_keys = None
+    reserved = reserved_eligibility(inst) if config.reserve_share > 0 else None
+    if reserved is not None:
+        # phase 1: the same batch with scarce node groups kept for the jobs that need them
+        # (`balance.reserved_eligibility`); its plans are plans of `inst` too, and carry
+        # their decoding orders into phase 2 as order keys
+        narrow = dataclasses.replace(inst, eligible=reserved)
+        first = config.model_copy(update={
+            "generations": math.ceil(config.reserve_share * config.generations)})
+        pop, _fit, order, history = run_island(
+            narrow, first, rng=rng, evaluate=evaluate, lower_bound=lower_bound,
+            deadline=t0 + config.reserve_share * time_limit, on_generation=on_generation)
+        n = max(1, config.mu // 2)
+        migrants = pop[:n]
+        if config.evolve_order:
+            migrant_keys = np.stack([keys_for_order(inst, o) for o in order[:n]])
+        config = config.model_copy(update={
+            "generations": max(config.generations - (len(history) - 1), 0)})
+    # phase 2 (the only one without reservations): the whole eligibility, greedy seeds and
+    # phase 1's best half, so the run is never worse than either
+    done = len(history) - 1 if history else 0
+
+    def shifted(row: HistoryRow) -> HistoryRow:
+        return row.model_copy(update={
+            "generation": row.generation + done,
+            "evaluations": row.evaluations + (history[-1].evaluations if history else 0)})
+
+    def forward(row: HistoryRow) -> None:
+        if on_generation is not None and (row.generation > 0 or not history):
+            on_generation(shifted(row))
+
+    pop, _fit, order, rows = run_island(inst, config, rng=rng, evaluate=evaluate,
+                                        lower_bound=lower_bound, deadline=t0 + time_limit,
+                                        on_generation=forward, migrants_in=migrants,
+                                        migrant_keys=migrant_keys)
+    history = history + [shifted(r) for r in rows[(1 if history else 0):]]
     return schedule_result(inst, pop[0], "ga", lower_bound, order if order.ndim == 1 else order[0],
                            justify=config.justify,
                            status="feasible", seed=seed, seconds=time.perf_counter() - t0,
