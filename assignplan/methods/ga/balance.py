@@ -38,13 +38,12 @@ def node_groups(inst) -> np.ndarray:
     return _row_ids(key)
 
 
-def class_split(inst, eligible: np.ndarray | None = None, capped: np.ndarray | None = None,
-                cap: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+def class_split(inst, eligible: np.ndarray | None = None
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """(class int64[J], group int64[N], share float64[C, G], T): the relaxation's optimum.
 
     `eligible` (bool[J, N] inside inst.eligible, default inst.eligible) narrows where jobs
-    may go; node groups stay those of `node_groups(inst)`. `capped` (bool[G]) groups take
-    load up to the fixed `cap` instead of T: T is then the most loaded other group's.
+    may go; node groups stay those of `node_groups(inst)`.
 
     share[c, g] is the part of class c's work that group g takes; T the load (minutes per
     node) of the most loaded group. Minimise T subject to sum_g share[c, g] = 1 and, per
@@ -69,8 +68,8 @@ def class_split(inst, eligible: np.ndarray | None = None, capped: np.ndarray | N
     for c in range(n_cls):
         lp.Add(sum(var[c, g] for g in np.flatnonzero(can[c])) == 1)
     for g in range(n_grp):
-        limit = float(size[g]) * (cap if capped is not None and capped[g] else t)
-        lp.Add(sum(float(area[c, g]) * var[c, g] for c in np.flatnonzero(can[:, g])) <= limit)
+        lp.Add(sum(float(area[c, g]) * var[c, g] for c in np.flatnonzero(can[:, g]))
+               <= float(size[g]) * t)
     lp.Minimize(t)
     share = np.zeros((n_cls, n_grp))
     if lp.Solve() != pywraplp.Solver.OPTIMAL:
