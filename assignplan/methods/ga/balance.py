@@ -55,9 +55,8 @@ def class_split(inst, eligible: np.ndarray | None = None
     cls = _row_ids(np.packbits(eligible, axis=1))
     n_cls, n_grp = int(cls.max()) + 1, int(group.max()) + 1
     rep = np.array([np.flatnonzero(group == g)[0] for g in range(n_grp)])
-    frac = (inst.demand[:, None, :] / np.maximum(inst.capacity[rep][None, :, :], 1)).max(axis=2)
     area = np.zeros((n_cls, n_grp))
-    np.add.at(area, cls, frac * inst.duration[:, rep])
+    np.add.at(area, cls, _node_minutes(inst, rep))
     can = np.zeros((n_cls, n_grp), dtype=bool)
     np.logical_or.at(can, cls, eligible[:, rep])
     size = np.bincount(group, minlength=n_grp)
@@ -122,7 +121,7 @@ def reserved_eligibility(inst, slack: float = RESERVE_SLACK, fill: float = RESER
         elsewhere = allowed[:, ~inside].any(axis=1)
         if not (here & ~elsewhere).any() or not (here & elsewhere).any():
             continue  # nobody needs g, or nobody else could leave it
-        own = _own_load(inst, here & ~elsewhere, int(np.flatnonzero(inside)[0]), int(sizes[g]))
+        own = _node_minutes(inst, np.flatnonzero(inside)[:1])[here & ~elsewhere].sum() / sizes[g]
         if own < fill * base:
             continue
         trial = allowed.copy()
@@ -132,8 +131,8 @@ def reserved_eligibility(inst, slack: float = RESERVE_SLACK, fill: float = RESER
     return None if np.array_equal(allowed, inst.eligible) else allowed
 
 
-def _own_load(inst, jobs: np.ndarray, node: int, n_nodes: int) -> float:
-    """Node-minutes per node that `jobs` (bool[J]) put on a group of `n_nodes` nodes like
-    `node`: duration there x largest resource share, as `class_split` counts it."""
-    frac = (inst.demand[jobs] / np.maximum(inst.capacity[node], 1)).max(axis=1)
-    return float((frac * inst.duration[jobs, node]).sum()) / n_nodes
+def _node_minutes(inst, nodes: np.ndarray) -> np.ndarray:
+    """float64[J, len(nodes)]: what each job takes of each node, in node-minutes: its
+    duration there x its largest share of the node's resources (the relaxation's estimate)."""
+    share = inst.demand[:, None, :] / np.maximum(inst.capacity[nodes][None, :, :], 1)
+    return share.max(axis=2) * inst.duration[:, nodes]

@@ -400,12 +400,13 @@ def solve_ga(inst: Instance, *, config: GAConfig, lower_bound: int, seed: int,
             "generations": max(config.generations - (len(history) - 1), 0)})
     # phase 2 (the only one without reservations): the whole eligibility, greedy seeds and
     # phase 1's best half, so the run is never worse than either
-    done = len(history) - 1 if history else 0
+    # its rows continue phase 1's history; its generation 0 (phase 1's end plus fresh
+    # seeds) is not a generation of the run and is left out
+    gen0, evals0 = (history[-1].generation, history[-1].evaluations) if history else (0, 0)
 
     def shifted(row: HistoryRow) -> HistoryRow:
-        return row.model_copy(update={
-            "generation": row.generation + done,
-            "evaluations": row.evaluations + (history[-1].evaluations if history else 0)})
+        return row.model_copy(update={"generation": row.generation + gen0,
+                                      "evaluations": row.evaluations + evals0})
 
     def forward(row: HistoryRow) -> None:
         if on_generation is not None and (row.generation > 0 or not history):
