@@ -28,8 +28,10 @@ browser:
 		echo "browser: $(CHROMIUM) or $(CHROMEDRIVER) missing and not root: install chromium and chromium-driver to run the browser test" >&2; \
 	fi
 
+# Two workers, each taking whole test files (module fixtures such as the published bin-packing
+# runs are computed once): about half the serial wall time on two cores.
 test: $(STAMP) browser
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -n 2 --dist loadfile
 
 # Benchmarks report measured figures into benchmarks/RESULTS.md (about 15 minutes in all).
 bench: $(STAMP)
