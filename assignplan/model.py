@@ -12,51 +12,20 @@ from pathlib import Path
 from typing import Annotated, Any
 
 import networkx as nx
-import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from assignplan.errors import InputError
+from assignplan.units import (  # noqa: F401  (the contract helpers, re-exported)
+    ceil_minutes,
+    duration_minutes,
+    floor_minutes,
+    memory_mib,
+)
 
 Name = Annotated[str, Field(min_length=1, max_length=200, pattern=r"^[A-Za-z0-9_.:+\-]+$")]
 Hours = Annotated[float, Field(ge=0)]
 
 _STRICT = ConfigDict(strict=True, extra="forbid", frozen=True)
-
-# A float in hours times 60 rarely lands exactly on an integer (0.1 h * 60 = 6.000000000000001):
-# round away the float noise before taking ceil/floor so every component gets the same minute.
-_MINUTE_DIGITS = 6
-
-
-def ceil_minutes(minutes: float | np.ndarray) -> Any:
-    """Smallest whole minute >= `minutes`, immune to float noise below 1e-6 min.
-
-    numpy's rounding is used for scalars too, so the scalar and the vectorised forms of the
-    rule agree bit for bit.
-    """
-    out = np.ceil(np.round(minutes, _MINUTE_DIGITS))
-    return int(out) if np.ndim(out) == 0 else out.astype(np.int64)
-
-
-def floor_minutes(minutes: float | np.ndarray) -> Any:
-    """Largest whole minute <= `minutes`, immune to float noise below 1e-6 min."""
-    out = np.floor(np.round(minutes, _MINUTE_DIGITS))
-    return int(out) if np.ndim(out) == 0 else out.astype(np.int64)
-
-
-def duration_minutes(hours: float | np.ndarray, speed: float | np.ndarray) -> Any:
-    """Duration of a job of `hours` reference hours on a node of relative `speed`.
-
-    The model's one rounding rule: ``ceil(hours * 60 / speed)`` whole minutes, at least 1.
-    Accepts scalars or broadcastable arrays.
-    """
-    out = np.maximum(1, ceil_minutes(np.multiply(hours, 60.0) / speed))
-    return int(out) if np.ndim(out) == 0 else out
-
-
-def memory_mib(gib: float) -> int:
-    """Memory in whole MiB: the unit every capacity comparison uses (exact integer sums)."""
-    return int(round(gib * 1024.0))
-
 
 class Window(BaseModel):
     """The planning window: the week the batch is planned for."""
