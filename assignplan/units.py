@@ -91,3 +91,8 @@ def iso(start: datetime, minute: int | float) -> str | None:
     calendar), to the minute: '2026-12-08T13:00:00'."""
     when = calendar(start, minute)
     return None if when is None else when.isoformat()
+
+
+def counted(n: int, noun: str, plural: str | None = None) -> str:
+    """'1 job', '2 jobs', '1,204 jobs': a count with its noun in the right number."""
+    return f"{n:,} {noun if n == 1 else (plural or noun + 's')}"
