@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import time
 from dataclasses import dataclass
 
 import networkx as nx
@@ -57,8 +58,12 @@ def binding_parts(parts: dict[str, int], value: int) -> list[str]:
     return [k for k in hit if k != "grid"] or hit
 
 
-def lower_bound(inst: Instance) -> LowerBound:
+def lower_bound(inst: Instance, *, deadline: float | None = None) -> LowerBound:
     """The largest of several bounds, each valid for every feasible plan of `inst`.
+
+    `deadline` (a `time.perf_counter()` reading): past it, the configuration LP of further
+    node-set classes is skipped (the parts it has are valid bounds all the same); the other
+    parts are cheap and always computed.
 
     - ``job``: max_j min_{i eligible} eft_i(ready_j, dur_ji), where eft_i(t, d) is the earliest
       end of a d-minute run starting at or after t on node i outside its maintenance.
@@ -86,7 +91,7 @@ def lower_bound(inst: Instance) -> LowerBound:
     classes = _node_set_classes(inst, ref)
     parts.update(_resource_bounds(inst, est, ref, classes))
     parts["configurations"] = _configuration_part(inst, est, ref, classes,
-                                                  floor=max(parts.values()))
+                                                  floor=max(parts.values()), deadline=deadline)
     g = time_grid(inst)
     parts["grid"] = -(-max(parts.values()) // g) * g
     return LowerBound(value=max(parts.values()), parts=parts)
@@ -442,7 +447,8 @@ def _node_time(inst: Instance, nodes: np.ndarray, start: int, t: int) -> float:
 
 
 def _configuration_part(inst: Instance, est: np.ndarray, ref: np.ndarray,
-                        node_set_classes: tuple, floor: int) -> int:
+                        node_set_classes: tuple, floor: int,
+                        deadline: float | None = None) -> int:
     """`work_bound` of the configuration LP of each class's jobs on its nodes.
 
     At any moment a node runs a set of the class's jobs that fits its capacity, so the LP's
@@ -456,6 +462,8 @@ def _configuration_part(inst: Instance, est: np.ndarray, ref: np.ndarray,
     ones = np.ones_like(inst.capacity)
     best = 0
     for c in [None] + classes[:MAX_LP_CLASSES]:
+        if deadline is not None and time.perf_counter() >= deadline:
+            break
         nodes = np.arange(inst.n_nodes) if c is None else np.flatnonzero(row_nodes[c])
         jobs = np.flatnonzero(_rows_inside(rows, c)[inverse])
         if not 2 <= len(jobs) <= MAX_LP_JOBS:

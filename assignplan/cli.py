@@ -5,7 +5,8 @@ from __future__ import annotations
 import functools
 import json
 import sys
-from contextlib import contextmanager
+import time
+from contextlib import contextmanager, nullcontext
 from pathlib import Path
 from typing import Annotated
 
@@ -14,6 +15,7 @@ from pydantic import ValidationError
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
+from assignplan import __version__
 from assignplan.errors import AssignplanError, InputError
 from assignplan.methods.ga.config import GAConfig
 from assignplan.model import HistoryRow
@@ -24,7 +26,28 @@ app = typer.Typer(
     no_args_is_help=True,
     pretty_exceptions_show_locals=False,
     add_completion=False,
+    # plain help: readable at 80 columns, no type placeholders beside every flag
+    rich_markup_mode=None,
 )
+
+
+_STARTED = [time.perf_counter()]  # when this command began (reset by the app callback)
+
+
+def _version(value: bool) -> None:
+    if value:
+        typer.echo(f"assignplan {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _main(
+    version: Annotated[bool, typer.Option(
+        "--version", callback=_version, is_eager=True,
+        help="Print the version and exit.")] = False,
+) -> None:
+    """Plan a week of single-node jobs on a heterogeneous cluster."""
+    _STARTED[0] = time.perf_counter()
 
 
 def _fail(problems: list[str], code: int) -> None:
@@ -44,6 +67,9 @@ def reports_errors(command):
             _fail(err.problems, err.exit_code)
         except KeyboardInterrupt:
             _fail(["interrupted; nothing was written"], 130)
+        except OSError as err:  # a disk that filled up or went away after the checks passed
+            where = f"{err.filename}: " if err.filename else ""
+            _fail([f"{where}cannot write ({err.strerror or err}); nothing was written"], 1)
 
     return wrapper
 
@@ -102,51 +128,78 @@ def ga_config(**fields) -> GAConfig:
             for e in err.errors()]) from None
 
 
-@contextmanager
-def progress_bar(enabled: bool, generations: int, bound_h: float):
-    """A rich progress bar on stderr fed by the ga's per-generation hook (None when hidden)."""
-    console = Console(stderr=True)
-    if not enabled or not console.is_terminal:
-        yield None
-        return
-    columns = (TextColumn("ga"), BarColumn(), TextColumn("gen {task.completed:,.0f}"),
-               TextColumn("best {task.fields[best]}"), TextColumn("bound gap {task.fields[gap]}"),
-               TimeElapsedColumn())
-    with Progress(*columns, console=console, transient=True) as progress:
-        task = progress.add_task("ga", total=generations, best="–", gap="–")
+class Steps:
+    """What a long command is doing, on stderr: a spinner per step (reading, the bound,
+    greedy...) and a bar for the ga's generations. Silent when stderr is not a terminal,
+    with --quiet, or with --json."""
 
-        def tick(row: HistoryRow) -> None:
-            gap = 100 * (row.best_makespan_h - bound_h) / bound_h if bound_h > 0 else 0.0
-            progress.update(task, completed=row.generation, best=f"{row.best_makespan_h:.2f} h",
-                            gap=f"{gap:.2f} %")
+    def __init__(self, enabled: bool):
+        self.console = Console(stderr=True)
+        self.enabled = enabled and self.console.is_terminal
 
-        yield tick
+    def step(self, text: str):
+        """A context in which a spinner says `text` with the seconds elapsed."""
+        if not self.enabled:
+            return nullcontext()
+        return self.console.status(text, spinner="dots")
+
+    @contextmanager
+    def generations(self, total: int, bound_h: float):
+        """A bar fed by the ga's per-generation hook (yields the hook, None when silent)."""
+        if not self.enabled:
+            yield None
+            return
+        columns = (TextColumn("ga"), BarColumn(), TextColumn("gen {task.completed:,.0f}"),
+                   TextColumn("best {task.fields[best]}"),
+                   TextColumn("bound gap {task.fields[gap]}"), TimeElapsedColumn())
+        with Progress(*columns, console=self.console, transient=True) as progress:
+            task = progress.add_task("ga", total=total, best="–", gap="–")
+
+            def tick(row: HistoryRow) -> None:
+                gap = 100 * (row.best_makespan_h - bound_h) / bound_h if bound_h > 0 else 0.0
+                progress.update(task, completed=row.generation,
+                                best=f"{row.best_makespan_h:.2f} h", gap=f"{gap:.2f} %")
+
+            yield tick
 
 
 BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jobs.",
-                                          show_default=False)]
+                                          metavar="BATCH", show_default=False)]
+
+
+SeedOpt = Annotated[int, typer.Option(metavar="N", help="Seed of the random generator.")]
+PngOpt = Annotated[Path | None, typer.Option(
+    metavar="FOLDER", help="Also write each chart as a PNG file into this folder.")]
+BudgetOpt = Annotated[float, typer.Option(
+    "--budget", metavar="SECONDS", min=0.1,
+    help="Search budget in seconds for everything after reading the batch (the bound and "
+         "the method).")]
 
 
 @app.command()
 @reports_errors
 def solve(
     batch: BatchArg,
-    method: Annotated[str, typer.Option(help="ga | greedy | exact")] = "ga",
-    seed: Annotated[int, typer.Option(help="Seed of the random generator.")] = 0,
-    time_limit: Annotated[float, typer.Option(help="Seconds a search method may run.",
-                                              min=0.1)] = 30.0,
-    out: Annotated[Path | None, typer.Option(help="Write the plan to this JSON file.")] = None,
+    method: Annotated[str, typer.Option(metavar="METHOD", help="ga | greedy | exact")] = "ga",
+    seed: SeedOpt = 0,
+    budget: BudgetOpt = 30.0,
+    out: Annotated[Path | None, typer.Option(
+        metavar="PLAN.json",
+        help="Write the plan (every job's node and start) to this JSON file; '-' prints it "
+             "on standard output instead of the tables.")] = None,
     csv: Annotated[Path | None, typer.Option(
-        help="Write jobs.csv, nodes.csv and summary.csv into this folder.")] = None,
-    as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object.")] = False,
+        metavar="FOLDER", help="Write jobs.csv, nodes.csv and summary.csv into this folder.")
+    ] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
     show_all: Annotated[bool, typer.Option("--all", help="List every job, not the first 30.")]
     = False,
-    force: Annotated[bool, typer.Option(help="Let exact try batches above its size limit.")]
-    = False,
+    force: Annotated[bool, typer.Option(
+        "--force", help="Let exact try batches above its size limit.")] = False,
     report: Annotated[Path | None, typer.Option(
-        help="Also write the HTML report of the plan to this file.")] = None,
-    png: Annotated[Path | None, typer.Option(help="Also write each chart as PNG here.")] = None,
-    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar.")] = False,
+        metavar="REPORT.html", help="Also write the HTML report of the plan to this file.")
+    ] = None,
+    png: PngOpt = None,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress display.")] = False,
     generations: GenerationsOpt = GA_DEFAULTS.generations,
     stagnation: StagnationOpt = GA_DEFAULTS.stagnation,
     mu: MuOpt = GA_DEFAULTS.mu,
@@ -165,21 +218,15 @@ def solve(
     reserve_share: ReserveOpt = GA_DEFAULTS.reserve_share,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
-    from assignplan.instance import build_instance
-    from assignplan.model import load_batch
-    from assignplan.report import exports
+    from assignplan.files import all_or_nothing, check_output_dir, check_output_file
 
-    exports.check_output_file(out, "--out")
-    exports.check_output_dir(csv, "--csv")
-    exports.check_output_file(report, "--report")
-    exports.check_output_dir(png, "--png")
-    expanded = load_batch(batch)
-    # The planning stack (numba, solvers) loads only once the input is known to be good.
-    from assignplan.bounds import lower_bound
-    from assignplan.plan import to_plan_doc
-    from assignplan.planner import solve as run
-    from assignplan.report import stats, tables
-
+    to_stdout = out is not None and str(out) == "-"
+    if to_stdout and as_json:
+        raise InputError("--out - and --json both print to standard output; choose one")
+    check_output_file(out, "--out")
+    check_output_dir(csv, "--csv")
+    check_output_file(report, "--report")
+    check_output_dir(png, "--png")
     config = ga_config(generations=generations, stagnation=stagnation, mu=mu, lam=lam,
                        crossover=crossover, crossover_bias=crossover_bias, kpoints=kpoints,
                        mutation=mutation, mutation_flips=mutation_flips,
@@ -187,52 +234,117 @@ def solve(
                        local_search=local_search, repack_nodes=repack_nodes,
                        descent_trials=descent_trials, balanced_seeds=balanced_seeds,
                        reserve_share=reserve_share)
-    inst = build_instance(expanded)
-    bound = lower_bound(inst)
-    with progress_bar(method == "ga" and not quiet and not as_json, config.generations,
-                      bound.value / 60) as tick:
-        result = run(inst, method, seed=seed, time_limit=time_limit, force=force,
-                     ga_config=config, on_generation=tick, bound=bound)
-    summary = stats.summary(inst, result)
-    nodes, jobs = stats.node_frame(inst, result), stats.job_frame(inst, result)
+    steps = Steps(not quiet and not as_json and not to_stdout)
+    inst = _read_instance(batch, steps)
+    deadline = time.perf_counter() + budget  # the budget covers everything after reading
+    # The planning stack (numba, solvers) loads only once the input is known to be good.
+    from assignplan.bounds import lower_bound
+    from assignplan.planner import solve as run
+
+    with steps.step("lower bound"):
+        bound = lower_bound(inst, deadline=deadline)
+    stepper = steps.generations(config.generations, bound.value / 60) if method == "ga" \
+        else _method_step(steps, method)
+    with stepper as tick:
+        result = run(inst, method, seed=seed, time_limit=max(0.0, deadline - time.perf_counter()),
+                     force=force, ga_config=config, on_generation=tick, bound=bound)
+    with all_or_nothing():
+        wrote = _write_outputs(inst, result, out=None if to_stdout else out, csv=csv,
+                               report=report, png=png)
+    _print_outputs(inst, result, wrote, as_json=as_json, show_all=show_all,
+                   plan_to_stdout=to_stdout)
+
+
+@contextmanager
+def _method_step(steps: Steps, method: str):
+    with steps.step(method):
+        yield None
+
+
+def _read_instance(batch: Path, steps: Steps):
+    """The batch file read, checked and turned into arrays (one spinner while it lasts)."""
+    from assignplan.instance import build_instance
+    from assignplan.model import load_batch
+
+    with steps.step(f"reading {batch}"):
+        return build_instance(load_batch(batch))
+
+
+def _write_outputs(inst, result, *, out: Path | None, csv: Path | None, report: Path | None,
+                   png: Path | None) -> list[str]:
+    """Every file of one plan (call inside `files.all_or_nothing`); returns the lines that
+    say what was written."""
+    from assignplan.plan import to_plan_doc
+    from assignplan.report import exports, stats
+
+    wrote = []
     if out is not None:
         exports.write_json(out, to_plan_doc(inst, result).model_dump(mode="json"))
+        wrote.append(f"wrote {out}")
     if csv is not None:
-        exports.write_csv_tables(csv, summary, nodes, jobs)
-    _write_report(inst, result, report, png)
+        summary = stats.summary(inst, result)
+        exports.write_csv_tables(csv, summary, stats.node_frame(inst, result),
+                                 stats.job_frame(inst, result))
+        wrote.append(f"wrote {csv}/jobs.csv, nodes.csv and summary.csv")
+    return wrote + _write_report(inst, result, report, png)
+
+
+def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: bool,
+                   plan_to_stdout: bool) -> None:
+    """The terminal's share: what was written (stderr), then the plan, the JSON summary or
+    the tables (stdout)."""
+    from assignplan.plan import to_plan_doc
+    from assignplan.report import stats, tables
+
+    for line in wrote:
+        typer.echo(line, err=True)
+    if plan_to_stdout:
+        typer.echo(json.dumps(to_plan_doc(inst, result).model_dump(mode="json"), indent=2,
+                              ensure_ascii=False))
+        return
+    summary = stats.summary(inst, result)
+    summary["wall_seconds"] = round(time.perf_counter() - _STARTED[0], 3)
     if as_json:
         typer.echo(json.dumps(summary, indent=2))
     else:
-        tables.print_plan(tables.make_console(), summary, nodes, jobs, show_all=show_all)
+        tables.print_plan(tables.make_console(), summary, stats.node_frame(inst, result),
+                          stats.job_frame(inst, result), show_all=show_all)
 
 
 @app.command()
 @reports_errors
 def compare(
     batch: BatchArg,
-    seed: Annotated[int, typer.Option(help="Seed of the random generator.")] = 0,
-    time_limit: Annotated[float, typer.Option(help="Seconds each method may run.", min=0.1)]
-    = 30.0,
+    seed: SeedOpt = 0,
+    budget: BudgetOpt = 30.0,
+    out: Annotated[Path | None, typer.Option(
+        metavar="PLAN.json", help="Write the best plan found to this JSON file.")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print a JSON list.")] = False,
 ) -> None:
-    """Run greedy, ga and (on small batches) exact with one budget; one row per method."""
-    from assignplan.instance import build_instance
-    from assignplan.model import load_batch
+    """Run greedy, ga and (on small batches) exact with one budget each; one row per method."""
+    from assignplan.files import all_or_nothing, check_output_file
 
-    inst = build_instance(load_batch(batch))
-    from assignplan.compare import compare_methods, compare_records
+    check_output_file(out, "--out")
+    inst = _read_instance(batch, Steps(False))
+    from assignplan.compare import best_result, compare_methods, compare_records
     from assignplan.planner import METHODS
-    from assignplan.report.tables import compare_table, make_console
+    from assignplan.report.exports import write_json
+    from assignplan.report.tables import compare_notes, compare_table, make_console
 
-    rows = compare_methods(inst, METHODS, seed=seed, time_limit=time_limit)
+    rows = compare_methods(inst, METHODS, seed=seed, time_limit=budget)
     records = compare_records(inst, rows)
+    with all_or_nothing():
+        best = best_result(inst, rows)
+        if out is not None and best is not None:
+            from assignplan.plan import to_plan_doc
+
+            write_json(out, to_plan_doc(inst, best).model_dump(mode="json"))
     if as_json:
         typer.echo(json.dumps(records, indent=2))
     else:
         make_console().print(compare_table(records))
-        for rec in records:
-            if rec["note"]:
-                typer.echo(f"{rec['method']}: {rec['status']}: {rec['note']}")
+        for line in compare_notes(records):
+            typer.echo(line)
     if any(rec["status"] == "failed" for rec in records):
         raise typer.Exit(1)
 
@@ -242,14 +354,15 @@ def compare(
 def report(
     batch: BatchArg,
     plan: Annotated[Path, typer.Argument(help="Plan JSON (from solve --out).", show_default=False)],
-    out: Annotated[Path, typer.Option(help="HTML file to write.")] = Path("report.html"),
-    png: Annotated[Path | None, typer.Option(help="Also write each chart as PNG here.")] = None,
+    out: Annotated[Path, typer.Option(metavar="REPORT.html", help="HTML file to write.")]
+    = Path("report.html"),
+    png: PngOpt = None,
 ) -> None:
     """Write a self-contained HTML report (timeline, utilisation, tables) of a plan."""
+    from assignplan.files import all_or_nothing, check_output_dir, check_output_file
     from assignplan.instance import build_instance
     from assignplan.model import load_batch, load_plan
     from assignplan.plan import result_from_doc
-    from assignplan.report.exports import check_output_dir, check_output_file
 
     check_output_file(out, "--out")
     check_output_dir(png, "--png")
@@ -259,20 +372,27 @@ def report(
     except InputError as err:
         raise InputError([p if p.startswith(str(plan)) else f"{plan}: {p}"
                           for p in err.problems]) from None
-    _write_report(inst, result, out, png)
+    with all_or_nothing():
+        wrote = _write_report(inst, result, out, png)
+    for line in wrote:
+        typer.echo(line, err=True)
 
 
-def _write_report(inst, result, html_path: Path | None, png_dir: Path | None) -> None:
+def _write_report(inst, result, html_path: Path | None, png_dir: Path | None) -> list[str]:
+    """Write the HTML report and the PNG charts; the 'wrote ...' lines to print once every
+    output of the command is in place."""
+    from assignplan.files import ensure_folder
     from assignplan.report.charts import write_png_charts
     from assignplan.report.html import write_html_report
 
+    wrote = []
     if html_path is not None:
         size = write_html_report(html_path, inst, result)
-        typer.echo(f"wrote {html_path} ({size / 1024:,.0f} KiB)", err=True)
+        wrote.append(f"wrote {html_path} ({size / 1024:,.0f} KiB)")
     if png_dir is not None:
-        png_dir.mkdir(parents=True, exist_ok=True)
-        for path in write_png_charts(png_dir, inst, result):
-            typer.echo(f"wrote {path}", err=True)
+        ensure_folder(png_dir)
+        wrote += [f"wrote {path}" for path in write_png_charts(png_dir, inst, result)]
+    return wrote
 
 
 @app.command()
@@ -305,17 +425,25 @@ def check(
 @app.command()
 @reports_errors
 def schema(
-    out: Annotated[Path, typer.Option(help="Folder for batch.schema.json and plan.schema.json.")]
+    out: Annotated[Path, typer.Option(
+        metavar="FOLDER", help="Folder for batch.schema.json and plan.schema.json.")]
     = Path("schemas"),
 ) -> None:
     """Write the JSON Schemas of the batch and plan documents (generated from the models)."""
-    from assignplan.report.exports import atomic_write_text, check_output_dir
+    from assignplan.files import (
+        all_or_nothing,
+        atomic_write_text,
+        check_output_dir,
+        ensure_folder,
+    )
     from assignplan.schemas import schema_texts
 
     check_output_dir(out, "--out")
-    out.mkdir(parents=True, exist_ok=True)
-    for name, text in schema_texts().items():
-        atomic_write_text(out / name, text)
+    with all_or_nothing():
+        ensure_folder(out)
+        for name, text in schema_texts().items():
+            atomic_write_text(out / name, text)
+    for name in schema_texts():
         typer.echo(f"wrote {out / name}")
 
 

@@ -166,7 +166,7 @@ def test_repack_descent_and_balanced_seeds_off_still_plan(tmp_path):
 
 
 def test_compare_small_has_three_rows_and_week_explains_skipped_exact():
-    small = runner.invoke(app, ["compare", str(SMALL), "--time-limit", "5", "--json"])
+    small = runner.invoke(app, ["compare", str(SMALL), "--budget", "5", "--json"])
     assert small.exit_code == 0, small.output
     rows = {r["method"]: r for r in json.loads(small.stdout)}
     assert set(rows) == {"greedy", "ga", "exact"}
@@ -175,7 +175,7 @@ def test_compare_small_has_three_rows_and_week_explains_skipped_exact():
     if rows["exact"]["status"] == "optimal":
         best_heuristic = min(rows["ga"]["makespan_h"], rows["greedy"]["makespan_h"])
         assert rows["exact"]["makespan_h"] <= best_heuristic
-    week = runner.invoke(app, ["compare", str(WEEK), "--time-limit", "3"])
+    week = runner.invoke(app, ["compare", str(WEEK), "--budget", "3"])
     assert week.exit_code == 0, week.output
     assert "greedy" in week.stdout and "ga" in week.stdout
     assert "exact: skipped: 482 jobs is above the exact method's limit of 300" in week.stdout

@@ -12,7 +12,10 @@ import pandas as pd
 
 from assignplan.bounds import PART_NAMES, binding_parts
 from assignplan.instance import NO_DUE, Instance
-from assignplan.plan import PlanResult, calendar_time, objective
+from assignplan.plan import PlanResult, objective
+from assignplan.units import clock, hours_of, iso
+
+LISTED = 10  # late jobs and jobs past the window named in the summary, the worst first
 
 
 def available_minutes(inst: Instance, horizon: int) -> np.ndarray:
@@ -91,13 +94,15 @@ def summary(inst: Instance, result: PlanResult) -> dict:
     cap_mk = cap.T @ avail_mk
     cap_win = cap.T @ avail_win
     late = (inst.due != NO_DUE) & (result.end > inst.due)
+    past = result.end > inst.window_minutes
     return {
         "method": result.method,
         "status": result.status,
         "jobs": inst.n_jobs,
         "nodes": inst.n_nodes,
         "makespan_h": mk / 60,
-        "makespan_at": calendar_time(inst, mk),
+        "window_start": inst.window_start.isoformat(),
+        "makespan_at": clock(inst.window_start, mk),
         "lower_bound_h": result.lower_bound / 60,
         "lower_bound_set_by": _bound_source(result),
         "lower_bound_parts_h": {k: v / 60 for k, v in result.bound_parts.items()},
@@ -109,13 +114,22 @@ def summary(inst: Instance, result: PlanResult) -> dict:
         "memory_utilisation_window_pct": _pct(used_win[1], cap_win[1]),
         "gpu_utilisation_window_pct": _pct(used_win[2], cap_win[2]),
         "window_h": inst.window_minutes / 60,
-        "jobs_past_window": int(np.sum(result.end > inst.window_minutes)),
+        "jobs_past_window": int(np.sum(past)),
+        "past_window": _worst(inst, result.end - inst.window_minutes, past, "past_h"),
         "late_jobs": int(np.sum(late)),
+        "late": _worst(inst, result.end - inst.due, late, "late_h"),
         "weighted_tardiness_h": tard / 60,
         "weighted_completion_h": compl / 60,
         "seed": result.seed,
         "seconds": round(result.seconds, 3),
     }
+
+
+def _worst(inst: Instance, by: np.ndarray, hit: np.ndarray, key: str) -> list[dict]:
+    """The LISTED jobs of `hit` with the largest `by` (minutes): name, `key` in hours, end."""
+    jobs = np.flatnonzero(hit)
+    jobs = jobs[np.argsort(-by[jobs], kind="stable")][:LISTED]
+    return [{"job": inst.job_names[j], key: hours_of(by[j])} for j in jobs.tolist()]
 
 
 def node_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
@@ -146,8 +160,9 @@ def node_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
         "peak_memory_gib": np.round(peak_mem / 1024, 2),
         "memory_gib": np.round(inst.capacity[:, 1] / 1024, 2),
         "gpu_utilisation_pct": np.round(gpu_util, 2),
-        "busy_until_h": busy_until / 60,
-        "busy_until": [calendar_time(inst, m, short=True) if m else "" for m in busy_until],
+        "busy_until_h": [hours_of(m) for m in busy_until],
+        "busy_until": [clock(inst.window_start, m) if m else "" for m in busy_until],
+        "busy_until_iso": [iso(inst.window_start, m) if m else "" for m in busy_until],
     })
 
 
@@ -158,15 +173,17 @@ def job_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
         "job": inst.job_names,
         "group": inst.job_groups,
         "node": [inst.node_names[i] for i in result.assign],
-        "start_h": result.start / 60,
-        "end_h": result.end / 60,
-        "start": [calendar_time(inst, m, short=True) for m in result.start],
-        "end": [calendar_time(inst, m, short=True) for m in result.end],
-        "hours": (result.end - result.start) / 60,
+        "start_h": [hours_of(m) for m in result.start],
+        "end_h": [hours_of(m) for m in result.end],
+        "start": [clock(inst.window_start, m) for m in result.start],
+        "end": [clock(inst.window_start, m) for m in result.end],
+        "start_iso": [iso(inst.window_start, m) for m in result.start],
+        "end_iso": [iso(inst.window_start, m) for m in result.end],
+        "hours": [hours_of(m) for m in result.end - result.start],
         "cores": inst.demand[:, 0],
         "memory_gib": np.round(inst.demand[:, 1] / 1024, 2),
         "gpus": inst.demand[:, 2],
-        "due_h": np.where(has_due, inst.due / 60, np.nan),
+        "due_h": np.where(has_due, np.round(inst.due / 60, 4), np.nan),
         "late": has_due & (result.end > inst.due),
         "past_window": result.end > inst.window_minutes,
     })

@@ -8,7 +8,8 @@ import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
-from assignplan.report.stats import bound_source_text
+from assignplan.report.stats import LISTED, bound_source_text
+from assignplan.units import counted
 
 
 def _num(value, digits: int = 1, suffix: str = "") -> str:
@@ -26,7 +27,7 @@ def summary_table(s: dict) -> Table:
     fits = "inside" if s["makespan_h"] <= window_h else "PAST"
     rows = [
         ("method", f"{s['method']} ({s['status']})"),
-        ("jobs / nodes", f"{s['jobs']:,} jobs on {s['nodes']:,} nodes"),
+        ("jobs / nodes", f"{counted(s['jobs'], 'job')} on {counted(s['nodes'], 'node')}"),
         ("makespan", f"{_num(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
                      f"({fits} the {window_h:g} h window)"),
         ("lower bound", f"{_num(s['lower_bound_h'], 2)} h (gap {_num(s['gap_pct'], 2)} %)"
@@ -40,15 +41,33 @@ def summary_table(s: dict) -> Table:
          f"cores {_num(s['core_utilisation_window_pct'], 1, ' %')}, memory "
          f"{_num(s['memory_utilisation_window_pct'], 1, ' %')}, GPUs "
          f"{_num(s['gpu_utilisation_window_pct'], 1, ' %')}"),
-        ("jobs ending past window", f"{s['jobs_past_window']:,}"),
+        ("jobs ending past window", f"{s['jobs_past_window']:,}"
+         + _listed(s["past_window"], s["jobs_past_window"], "past_h", "past it")),
         ("late jobs", f"{s['late_jobs']:,} "
-                      f"(weighted tardiness {_num(s['weighted_tardiness_h'], 2)} h)"),
-        ("solve time", f"{s['seconds']:.2f} s"
-                       + (f", seed {s['seed']}" if s["seed"] is not None else "")),
+                      f"(weighted tardiness {_num(s['weighted_tardiness_h'], 2)} h)"
+         + _listed(s["late"], s["late_jobs"], "late_h", "late")),
+        ("time", _time_text(s)),
     ]
     for k, v in rows:
         t.add_row(k, v)
     return t
+
+
+def _listed(rows: list[dict], total: int, key: str, what: str) -> str:
+    """': a (5.0 h late), b (1.5 h late) and 3 more', worst first; '' when there is none."""
+    if not rows:
+        return ""
+    named = ", ".join(f"{r['job']} ({r[key]:,.1f} h {what})" for r in rows[:LISTED])
+    more = total - min(len(rows), LISTED)
+    return f": {named}" + (f" and {more:,} more" if more > 0 else "")
+
+
+def _time_text(s: dict) -> str:
+    """Wall time of the whole command and the method's own share of it, and the seed."""
+    wall = s.get("wall_seconds")
+    text = (f"{wall:.2f} s in all (method {s['seconds']:.2f} s)" if wall is not None
+            else f"method {s['seconds']:.2f} s")
+    return text + (f", seed {s['seed']}" if s["seed"] is not None else "")
 
 
 def node_table(nodes: pd.DataFrame) -> Table:
@@ -115,3 +134,15 @@ def compare_table(records: list[dict]) -> Table:
                   "–" if r["late_jobs"] is None else str(r["late_jobs"]),
                   _num(r["seconds"], 2), r["status"])
     return t
+
+
+def compare_notes(records: list[dict]) -> list[str]:
+    """Lines under the comparison table: each skipped or failed method's reason, and where
+    the bound came from when exact proved more than the bound `solve` reports alone."""
+    lines = [f"{r['method']}: {r['status']}: {r['note']}" for r in records if r["note"]]
+    if records and records[0]["lower_bound_h"] > records[0]["provable_bound_h"]:
+        lines.append(
+            f"gap to bound: against {records[0]['lower_bound_h']:,.2f} h, which the exact "
+            f"solver proved; solve alone reports its gap against the lower bound of "
+            f"{records[0]['provable_bound_h']:,.2f} h, so its figures are higher here")
+    return lines
