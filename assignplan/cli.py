@@ -11,13 +11,11 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from pydantic import ValidationError
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
 from assignplan import __version__
 from assignplan.errors import AssignplanError, InputError
-from assignplan.methods.ga.config import GAConfig
 from assignplan.model import HistoryRow
 
 app = typer.Typer(
@@ -74,58 +72,40 @@ def reports_errors(command):
     return wrapper
 
 
-GA_DEFAULTS = GAConfig()
-GenerationsOpt = Annotated[int, typer.Option(help="ga: most generations.", min=0,
-                                             rich_help_panel="ga")]
-StagnationOpt = Annotated[int, typer.Option(
-    help="ga: stop after this many generations without a better plan.", min=1,
-    rich_help_panel="ga")]
-MuOpt = Annotated[int, typer.Option(help="ga: parents kept (μ).", min=2, rich_help_panel="ga")]
-LamOpt = Annotated[int, typer.Option(help="ga: offspring per generation (λ).", min=2,
-                                     rich_help_panel="ga")]
-CrossoverOpt = Annotated[str, typer.Option(help="ga: uniform | kpoint.", rich_help_panel="ga")]
-BiasOpt = Annotated[float, typer.Option(
-    help="ga: uniform crossover, chance a gene comes from the first parent.",
-    rich_help_panel="ga")]
-KpointsOpt = Annotated[int, typer.Option(help="ga: cut points of k-point crossover.", min=1,
-                                         rich_help_panel="ga")]
-MutationOpt = Annotated[str, typer.Option(
-    help="ga: symmetric | asymmetric (moves jobs off the busiest nodes more often).",
-    rich_help_panel="ga")]
-FlipsOpt = Annotated[float, typer.Option(
-    help="ga: expected bit flips per individual in its job x node matrix.",
-    rich_help_panel="ga")]
-TournamentOpt = Annotated[int, typer.Option(help="ga: tournament size.", min=1,
-                                            rich_help_panel="ga")]
-SurvivalOpt = Annotated[str, typer.Option(help="ga: plus = (μ+λ), comma = (μ,λ).",
-                                          rich_help_panel="ga")]
-LocalOpt = Annotated[bool, typer.Option(
-    help="ga: sharpen the best offspring by moves off the makespan node.",
-    rich_help_panel="ga")]
-RepackOpt = Annotated[int, typer.Option(
-    help="ga: nodes re-packed exactly (CP-SAT) around the makespan node each generation; "
-         "0: off.", min=0, max=64, rich_help_panel="ga")]
-DescentOpt = Annotated[int, typer.Option(
-    help="ga: node rebuilds the node-local descent (moves, swaps, ejection chains off the "
-         "last-ending node) may spend on the best plan each generation; 0: off.",
-    min=0, max=10_000_000, rich_help_panel="ga")]
-BalancedOpt = Annotated[int, typer.Option(
-    help="ga: greedy seeds that keep each class of jobs on the node groups a work-split "
-         "relaxation gives it; 0: off.", min=0, max=10_000, rich_help_panel="ga")]
-ReserveOpt = Annotated[float, typer.Option(
-    help="ga: share of the time limit spent first with scarce node groups (GPU, large "
-         "memory, tags) kept for the jobs that need them, when the other nodes can take the "
-         "rest; 0: off.", min=0.0, max=1.0, rich_help_panel="ga")]
+GenerationsOpt = Annotated[int | None, typer.Option(
+    metavar="N", min=0, help="ga: most generations (default 2,000; the budget usually ends "
+    "the run first).")]
+GASettingsOpt = Annotated[Path | None, typer.Option(
+    "--ga-settings", metavar="FILE", help="ga: tuning settings, a TOML or JSON file "
+    "(see docs/methods.md).")]
+ForceOpt = Annotated[bool, typer.Option(
+    "--force", help="exact: try batches above its size limit (300 jobs).")]
 
 
-def ga_config(**fields) -> GAConfig:
-    """Validate the ga options once; a bad value is an input error naming its option."""
-    try:
-        return GAConfig(**fields)
-    except ValidationError as err:
-        raise InputError([
-            f"--{str(e['loc'][0]).replace('_', '-') if e['loc'] else 'ga'}: {e['msg']}"
-            for e in err.errors()]) from None
+def method_settings(method: str, generations: int | None, ga_file: Path | None,
+                    force: bool):
+    """The settings object of `method` from its options; an option of another method is an
+    error naming it, never silently ignored."""
+    from assignplan.solve import ExactSettings, method_named
+
+    method_named(method)  # an unknown method is reported first
+    misplaced = [flag for flag, given, owner in (
+        ("--generations", generations is not None, "ga"), ("--ga-settings", ga_file is not None,
+                                                            "ga"), ("--force", force, "exact"))
+        if given and owner != method]
+    if misplaced:
+        raise InputError([f"{flag}: only the {'exact' if flag == '--force' else 'ga'} method "
+                          f"reads it, not {method}" for flag in misplaced])
+    if method == "exact":
+        return ExactSettings(force=force)
+    if method != "ga":
+        return None
+    from assignplan.methods.ga import GASettings, read_settings
+
+    settings = read_settings(ga_file) if ga_file is not None else GASettings()
+    if generations is not None:
+        settings = settings.replace(stopping={"generations": generations})
+    return settings
 
 
 class Steps:
@@ -193,29 +173,14 @@ def solve(
     as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
     show_all: Annotated[bool, typer.Option("--all", help="List every job, not the first 30.")]
     = False,
-    force: Annotated[bool, typer.Option(
-        "--force", help="Let exact try batches above its size limit.")] = False,
     report: Annotated[Path | None, typer.Option(
         metavar="REPORT.html", help="Also write the HTML report of the plan to this file.")
     ] = None,
     png: PngOpt = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress display.")] = False,
-    generations: GenerationsOpt = GA_DEFAULTS.generations,
-    stagnation: StagnationOpt = GA_DEFAULTS.stagnation,
-    mu: MuOpt = GA_DEFAULTS.mu,
-    lam: LamOpt = GA_DEFAULTS.lam,
-    crossover: CrossoverOpt = GA_DEFAULTS.crossover,
-    crossover_bias: BiasOpt = GA_DEFAULTS.crossover_bias,
-    kpoints: KpointsOpt = GA_DEFAULTS.kpoints,
-    mutation: MutationOpt = GA_DEFAULTS.mutation,
-    mutation_flips: FlipsOpt = GA_DEFAULTS.mutation_flips,
-    tournament_size: TournamentOpt = GA_DEFAULTS.tournament_size,
-    survival: SurvivalOpt = GA_DEFAULTS.survival,
-    local_search: LocalOpt = GA_DEFAULTS.local_search,
-    repack_nodes: RepackOpt = GA_DEFAULTS.repack_nodes,
-    descent_trials: DescentOpt = GA_DEFAULTS.descent_trials,
-    balanced_seeds: BalancedOpt = GA_DEFAULTS.balanced_seeds,
-    reserve_share: ReserveOpt = GA_DEFAULTS.reserve_share,
+    generations: GenerationsOpt = None,
+    ga_settings: GASettingsOpt = None,
+    force: ForceOpt = False,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
@@ -227,27 +192,21 @@ def solve(
     check_output_dir(csv, "--csv")
     check_output_file(report, "--report")
     check_output_dir(png, "--png")
-    config = ga_config(generations=generations, stagnation=stagnation, mu=mu, lam=lam,
-                       crossover=crossover, crossover_bias=crossover_bias, kpoints=kpoints,
-                       mutation=mutation, mutation_flips=mutation_flips,
-                       tournament_size=tournament_size, survival=survival,
-                       local_search=local_search, repack_nodes=repack_nodes,
-                       descent_trials=descent_trials, balanced_seeds=balanced_seeds,
-                       reserve_share=reserve_share)
+    settings = method_settings(method, generations, ga_settings, force)
     steps = Steps(not quiet and not as_json and not to_stdout)
     inst = _read_instance(batch, steps)
     deadline = time.perf_counter() + budget  # the budget covers everything after reading
     # The planning stack (numba, solvers) loads only once the input is known to be good.
     from assignplan.bounds import lower_bound
-    from assignplan.planner import solve as run
+    from assignplan.solve import solve as run
 
     with steps.step("lower bound"):
         bound = lower_bound(inst, deadline=deadline)
-    stepper = steps.generations(config.generations, bound.value / 60) if method == "ga" \
-        else _method_step(steps, method)
+    stepper = steps.generations(settings.stopping.generations, bound.value / 60) \
+        if method == "ga" else _method_step(steps, method)
     with stepper as tick:
-        result = run(inst, method, seed=seed, time_limit=max(0.0, deadline - time.perf_counter()),
-                     force=force, ga_config=config, on_generation=tick, bound=bound)
+        result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
+                     settings=settings, progress=tick, bound=bound)
     with all_or_nothing():
         wrote = _write_outputs(inst, result, out=None if to_stdout else out, csv=csv,
                                report=report, png=png)
@@ -327,11 +286,11 @@ def compare(
     check_output_file(out, "--out")
     inst = _read_instance(batch, Steps(False))
     from assignplan.compare import best_result, compare_methods, compare_records
-    from assignplan.planner import METHODS
     from assignplan.report.exports import write_json
     from assignplan.report.tables import compare_notes, compare_table, make_console
+    from assignplan.solve import METHODS
 
-    rows = compare_methods(inst, METHODS, seed=seed, time_limit=budget)
+    rows = compare_methods(inst, tuple(METHODS), seed=seed, budget=budget)
     records = compare_records(inst, rows)
     with all_or_nothing():
         best = best_result(inst, rows)

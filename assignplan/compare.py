@@ -22,22 +22,22 @@ class CompareRow:
     note: str = ""
 
 
-def compare_methods(inst: Instance, methods: tuple[str, ...], *, seed: int, time_limit: float,
-                    exact_max_jobs: int = 300) -> list[CompareRow]:
-    """Run each method; exact is skipped above its size guard, with the reason in `note`."""
+def compare_methods(inst: Instance, methods: tuple[str, ...], *, seed: int,
+                    budget: float) -> list[CompareRow]:
+    """Run each method with the same budget and the one lower bound (computed once); exact
+    is skipped above its size guard, with the reason in `note`."""
     from assignplan.bounds import lower_bound
-    from assignplan.planner import solve
+    from assignplan.solve import EXACT_MAX_JOBS, exact_too_big, solve
 
-    bound = lower_bound(inst)  # once for every method
+    bound = lower_bound(inst)
     rows = []
     for method in methods:
-        if method == "exact" and inst.n_jobs > exact_max_jobs:
+        if method == "exact" and inst.n_jobs > EXACT_MAX_JOBS:
             rows.append(CompareRow(method, "skipped", None,
-                                   f"{inst.n_jobs} jobs is above the exact method's limit of "
-                                   f"{exact_max_jobs}; it would not prove anything in time"))
+                                   exact_too_big(inst.n_jobs).removeprefix("exact: ")))
             continue
         try:
-            result = solve(inst, method, seed=seed, time_limit=time_limit, bound=bound)
+            result = solve(inst, method, seed=seed, budget=budget, bound=bound)
         except AssignplanError as err:
             rows.append(CompareRow(method, "failed", None, "; ".join(err.problems)))
             continue

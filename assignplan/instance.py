@@ -79,6 +79,23 @@ class Instance:
     def successors(self, j: int) -> np.ndarray:
         return self.succ_idx[self.succ_ptr[j] : self.succ_ptr[j + 1]]
 
+    def durations(self, assign: np.ndarray) -> np.ndarray:
+        """int64[..., J]: each job's duration on its node under `assign` int64[..., J]."""
+        jobs = np.broadcast_to(np.arange(self.n_jobs), np.shape(assign))
+        return self.duration[jobs, assign].astype(np.int64)
+
+    def end_times(self, assign: np.ndarray, start: np.ndarray) -> np.ndarray:
+        """int64[..., J]: start + duration on the assigned node (the one end-time rule)."""
+        return np.asarray(start, dtype=np.int64) + self.durations(assign)
+
+    def available_minutes(self, horizon: int) -> np.ndarray:
+        """int64[N]: minutes of [0, horizon) outside each node's maintenance windows."""
+        lost = np.clip(np.minimum(self.maint_end, horizon)
+                       - np.clip(self.maint_start, 0, horizon), 0, None)
+        node = np.repeat(np.arange(self.n_nodes), np.diff(self.maint_ptr))
+        return max(0, horizon) - np.bincount(node, weights=lost,
+                                             minlength=self.n_nodes).astype(np.int64)
+
     def min_duration(self) -> np.ndarray:
         """int64[J]: each job's shortest duration over its eligible nodes."""
         big = np.iinfo(np.int32).max

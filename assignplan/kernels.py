@@ -27,7 +27,7 @@ NEVER = np.int64(-1)  # returned as a start when a job cannot fit the node at al
 
 
 @njit(cache=True)
-def _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end):
+def init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end):
     """Fill node i's slice with its empty profile: full capacity, maintenance blocked.
 
     Windows are sorted; after widening to whole minutes two of them may touch or overlap,
@@ -73,7 +73,7 @@ def _segment_at(seg_t, lo, n, t):
 
 
 @njit(cache=True)
-def _earliest_start(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2):
+def earliest_start(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2):
     """Earliest s >= t0 with free >= demand on every segment meeting [s, s + dur).
 
     Returns (s, k) with k the segment containing s, or (NEVER, -1) if the demand exceeds even
@@ -118,10 +118,10 @@ def _insert(seg_t, seg_f, lo, n, pos, t, src):
 
 
 @njit(cache=True)
-def _place(seg_t, seg_f, lo, n, k, s, dur, d0, d1, d2):
+def place(seg_t, seg_f, lo, n, k, s, dur, d0, d1, d2):
     """Take demand off [s, s + dur) on a profile where it fits; return the new segment count.
 
-    k is the segment containing s (from `_earliest_start`). At most two breakpoints are added.
+    k is the segment containing s (from `earliest_start`). At most two breakpoints are added.
     """
     e = s + dur
     if seg_t[lo + k] < s:
@@ -179,7 +179,7 @@ def _sgs(assign, order, demand, duration, ready, pred_ptr, pred_idx, capacity,
     seg_f = np.empty((total, 3), np.int64)
     seg_n = np.empty(n_nodes, np.int64)
     for i in range(n_nodes):
-        _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+        init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
     end = np.full(n_jobs, -1, np.int64)
     start[:] = -1
     for q in range(n_jobs):
@@ -193,10 +193,10 @@ def _sgs(assign, order, demand, duration, ready, pred_ptr, pred_idx, capacity,
         d1 = demand[j, 1]
         d2 = demand[j, 2]
         lo = seg_lo[i]
-        s, k = _earliest_start(seg_t, seg_f, lo, seg_n[i], t0, dur, d0, d1, d2)
+        s, k = earliest_start(seg_t, seg_f, lo, seg_n[i], t0, dur, d0, d1, d2)
         if s < 0:
             return False
-        seg_n[i] = _place(seg_t, seg_f, lo, seg_n[i], k, s, dur, d0, d1, d2)
+        seg_n[i] = place(seg_t, seg_f, lo, seg_n[i], k, s, dur, d0, d1, d2)
         start[j] = s
         end[j] = s + dur
     return True
@@ -248,7 +248,7 @@ def _mirror_windows(T, maint_ptr, maint_start, maint_end, m_start, m_end):
     """Maintenance mirrored in time, t' = T - t: [a, b) becomes [T - b, T - a), clipped at 0
     (a mirrored job starts at t' >= 0, i.e. ends by T, so nothing earlier matters); a window
     wholly after T becomes empty. Written per node into m_start/m_end, re-sorted by start,
-    because `_init_node` needs sorted windows and nested windows do not stay sorted when
+    because `init_node` needs sorted windows and nested windows do not stay sorted when
     mirrored."""
     for i in range(maint_ptr.shape[0] - 1):
         a = maint_ptr[i]
@@ -476,7 +476,7 @@ def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, ca
     seg_f = np.empty((seg_t.shape[0], 3), np.int64)
     seg_n = np.empty(n_nodes, np.int64)
     for i in range(n_nodes):
-        _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+        init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
     end = np.full(n_jobs, -1, np.int64)
     assign[:] = -1
     start[:] = -1
@@ -498,7 +498,7 @@ def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, ca
             dur = np.int64(duration[j, i])
             if best_i >= 0 and t0 + dur > best_e:  # cannot finish earlier here
                 continue
-            s, k = _earliest_start(seg_t, seg_f, seg_lo[i], seg_n[i], t0, dur, d0, d1, d2)
+            s, k = earliest_start(seg_t, seg_f, seg_lo[i], seg_n[i], t0, dur, d0, d1, d2)
             if s < 0:
                 continue
             e = s + dur
@@ -514,7 +514,7 @@ def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, ca
             seg_t, seg_f, used = _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i,
                                        seg_n[i] + 2)
         dur = np.int64(duration[j, i])
-        seg_n[i] = _place(seg_t, seg_f, seg_lo[i], seg_n[i], best_k, best_s, dur, d0, d1, d2)
+        seg_n[i] = place(seg_t, seg_f, seg_lo[i], seg_n[i], best_k, best_s, dur, d0, d1, d2)
         assign[j] = i
         start[j] = best_s
         end[j] = best_e

@@ -72,7 +72,7 @@ def make_result(inst: Instance, method: str, assign: np.ndarray, start: np.ndarr
     """Build a PlanResult, deriving end times from the durations on the chosen nodes."""
     assign = np.asarray(assign, dtype=np.int64)
     start = np.asarray(start, dtype=np.int64)
-    end = start + inst.duration[np.arange(inst.n_jobs), assign].astype(np.int64)
+    end = inst.end_times(assign, start)
     return PlanResult(method, assign, start, end, int(lower_bound), **kwargs)
 
 

@@ -44,7 +44,7 @@ def run_case(name: str, seed: int, config_json: str) -> dict:
     """One case in this process: greedy, bound, ga; returns the row as a dict."""
     from assignplan.bounds import lower_bound
     from assignplan.instance import build_instance
-    from assignplan.methods.ga import GAConfig, solve_ga
+    from assignplan.methods.ga import ga_settings, solve_ga
     from assignplan.methods.greedy import solve_greedy
     from assignplan.model import Batch, expand_batch
 
@@ -53,10 +53,10 @@ def run_case(name: str, seed: int, config_json: str) -> dict:
     inst = build_instance(expand_batch(Batch.model_validate_json(json.dumps(batch_doc(doc)))))
     bound = lower_bound(inst).value
     greedy = solve_greedy(inst, lower_bound=bound)
-    config = GAConfig.model_validate_json(config_json)
+    config = ga_settings(**json.loads(config_json))
     t0 = time.perf_counter()
-    ga = solve_ga(inst, config=config, lower_bound=bound, seed=seed,
-                  time_limit=LIMITS[scale])
+    ga = solve_ga(inst, settings=config, lower_bound=bound, seed=seed,
+                  budget=LIMITS[scale])
     seconds = time.perf_counter() - t0
     known = round(doc["_known_optimum_h"] * 60) if opt else None
     ref = known if known is not None else bound
@@ -82,7 +82,8 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--cases", default=CASES)
     ap.add_argument("--seed", type=int, default=0)
-    ap.add_argument("--config", default="{}", help="GAConfig fields as JSON")
+    ap.add_argument("--config", default="{}",
+                    help="ga settings as flat JSON fields, e.g. {\"mu\": 32}")
     ap.add_argument("--no-write", action="store_true")
     ap.add_argument("--one", help=argparse.SUPPRESS)  # child process: run one case
     args = ap.parse_args(argv)
@@ -108,7 +109,7 @@ def main(argv: list[str] | None = None) -> int:
         "Batches from `benchmarks/generate.py` (`<scale>-<seed>`; `-opt`: known-optimum batch, "
         "optimum by construction). Gap % is to the known optimum where there is one, else to "
         "the lower bound (`bounds.lower_bound`), which may be well below the true optimum on "
-        "heterogeneous batches. ga: default `GAConfig`"
+        "heterogeneous batches. ga: default settings"
         + (f" with {args.config}" if args.config != "{}" else "")
         + f", seed {args.seed}, time limit {LIMITS['small']:.0f} / {LIMITS['medium']:.0f} / "
         f"{LIMITS['large']:.0f} s (small / medium / large); ga s includes its greedy seeds; "

@@ -5,15 +5,13 @@ Usage (from the repository root):
         [--nodes examples/inventory-24x32.json] [--ga-seconds 20] [--no-write]
 
 For every chosen week it imports the jobs twice (hours = requested time, hours = actual run
-time), plans them with greedy and, once `assignplan.methods.ga` exists and the planner offers
-it, with ga, and reports jobs, makespan, lower bound, gap, core utilisation and seconds. It also
-measures the requested/actual run-time ratio over the whole trace. Results, not asserts.
+time), plans them with greedy and with ga, and reports jobs, makespan, lower bound, gap, core
+utilisation and seconds. It also measures the requested/actual run-time ratio over the whole trace. Results, not asserts.
 """
 
 from __future__ import annotations
 
 import argparse
-import importlib.util
 import itertools
 import sys
 import time
@@ -42,15 +40,6 @@ TIGHT_DIVISOR = 4
 QUANTILES = (0.05, 0.1, 0.25, 0.5, 0.75, 0.9, 0.95, 0.99)
 
 
-def ga_available() -> bool:
-    """True once the GA module exists and the planner routes `ga` to it."""
-    if importlib.util.find_spec("assignplan.methods.ga") is None:
-        return False
-    from assignplan import planner
-
-    return "ga" in planner.METHODS
-
-
 def warm_up(trace: Trace, inventory, week: int) -> None:
     """Compile the numba kernels once so that no timed row pays for it."""
     inst = build_instance(expand_batch(week_batch(trace, inventory, week).batch))
@@ -68,9 +57,9 @@ def plan_rows(inst, methods: list[str], ga_seconds: float) -> list[dict]:
         if method == "greedy":
             result = solve_greedy(inst, lower_bound=bound)
         else:
-            from assignplan.planner import solve
+            from assignplan.solve import solve
 
-            result = solve(inst, method, seed=0, time_limit=ga_seconds)
+            result = solve(inst, method, seed=0, budget=ga_seconds)
         seconds = time.perf_counter() - t0
         s = summary(inst, result)
         rows.append({
@@ -196,9 +185,7 @@ def markdown(args, trace: Trace, weeks: pd.DataFrame, ratios: pd.DataFrame, fact
         " memory), ready at its submit time within the week; jobs wider than 32 processors"
         f" are skipped. `nodes` = {sum(g.count for g in inv.nodes)}: that file;"
         f" the smaller count: the same kinds with every group count divided by {TIGHT_DIVISOR}.",
-        f"Methods: {', '.join(methods)}"
-        + ("" if "ga" in methods else " (ga not available yet: the script adds it by itself once"
-           " `assignplan.methods.ga` exists and the planner offers `ga`)") + ".",
+        f"Methods: {', '.join(methods)}.",
         "`ready = submit`: each job ready at its submit time, so the makespan can never be below"
         " the last submit time of the week plus that job's run (the `job` part of the lower"
         " bound). `ready = 0`: the same jobs handed over at once, as a batch planned ahead.",
@@ -230,7 +217,7 @@ def main(argv: list[str] | None = None) -> None:
 
     trace = read_swf(args.trace)
     inventory = load_inventory(args.nodes)
-    methods = ["greedy"] + (["ga"] if ga_available() else [])
+    methods = ["greedy", "ga"]
     # The full inventory is far larger than the traced machine (768 cores against 100
     # processors); a quarter of it makes the packing, not the arrival times, set the makespan.
     inventories = {sum(g.count for g in inv.nodes): inv

@@ -28,7 +28,7 @@ from assignplan.errors import SolveError  # noqa: E402
 from assignplan.instance import Instance, build_instance  # noqa: E402
 from assignplan.model import ExpandedBatch, expand_batch, parse_batch_text  # noqa: E402
 from assignplan.plan import PlanResult, to_plan_doc  # noqa: E402
-from assignplan.planner import solve  # noqa: E402
+from assignplan.solve import solve  # noqa: E402
 from benchmarks.bench_builder import write_section  # noqa: E402
 from benchmarks.reductions import (  # noqa: E402
     HOUR,
@@ -126,13 +126,14 @@ def batch_of(doc: dict) -> tuple[ExpandedBatch, Instance]:
 
 
 def run_method(method: str, inst: Instance, args: argparse.Namespace) -> PlanResult | None:
-    """One plan through the planner; None when exact finds none within its limit."""
-    from assignplan.methods.ga import GAConfig
+    """One plan through the solve API; None when exact finds none within its budget."""
+    from assignplan.methods.ga import ga_settings
 
-    config = GAConfig(generations=args.ga_generations, stagnation=args.ga_stagnation)
+    config = ga_settings(generations=args.ga_generations, stagnation=args.ga_stagnation)
     limit = args.ga_seconds if method == "ga" else args.exact_seconds
     try:
-        return solve(inst, method, seed=args.seed, time_limit=limit, ga_config=config)
+        return solve(inst, method, seed=args.seed, budget=limit,
+                     settings=config if method == "ga" else None)
     except SolveError:
         if method != "exact":
             raise
@@ -187,9 +188,9 @@ def table(rows: list[Row], args: argparse.Namespace, bugs: list[str], total: flo
         " one 1-hour job per item; solved = a 1-hour plan (with fewer nodes no plan is under"
         " 2 h, so the gap of an unsolved one is 100 %). P‖Cmax: m whole-node machines;"
         " solved = makespan C* hours (the file's OPT line; NU_3_0050_10_4's OPT is unconfirmed).",
-        f"ga: default GAConfig except generations {args.ga_generations}, stagnation"
+        f"ga: default settings except generations {args.ga_generations}, stagnation"
         f" {args.ga_stagnation}, at most {args.ga_seconds:g} s, seed {args.seed}."
-        f" exact: CP-SAT through the planner (greedy plan as hint), {args.exact_seconds:g} s"
+        f" exact: CP-SAT through the solve API (greedy plan as hint), {args.exact_seconds:g} s"
         " per instance; \"no plan\" = none found within that limit.",
         "Cells read greedy / ga / exact. Gap: (makespan - optimum) / optimum in %, median over"
         " the class; seconds: total over the class.",

@@ -405,7 +405,7 @@ def test_clique_of_mixed_conflicts_bounds_a_partition():
     bound = lower_bound(inst)
     assert bound.parts["clique"] == 104 * 60
     assert bound.parts["conflict"] < 104 * 60  # the new part is what lifts the bound
-    exact = solve_exact(inst, lower_bound=0, time_limit=20, workers=1)
+    exact = solve_exact(inst, lower_bound=0, budget=20, workers=1)
     assert exact.makespan == 104 * 60 == bound.value
     assert check_plan(batch, to_plan_doc(inst, exact)) == []
 
@@ -459,7 +459,7 @@ def test_dff_lifts_the_bound_where_jobs_cannot_share_a_node():
     lb = lower_bound(inst)
     assert lb.parts["gpus"] == 68 and lb.parts["dff"] == 83 and lb.value == 90
     assert max(v for k, v in lb.parts.items() if k not in ("dff", "grid")) < 83
-    res = solve_exact(inst, lower_bound=0, time_limit=10.0, workers=1, seed=0)
+    res = solve_exact(inst, lower_bound=0, budget=10.0, workers=1, seed=0)
     assert (res.makespan, res.status) == (105, "optimal")
 
 
@@ -474,7 +474,7 @@ def test_dff_bound_never_exceeds_proven_optima_of_random_gpu_batches():
         minutes = (15 * rng.integers(1, 9, size=n)).tolist()
         _, inst = instance_of(gpu_doc(gpus, minutes, int(rng.integers(1, 3))))
         lb = lower_bound(inst)
-        res = solve_exact(inst, lower_bound=0, time_limit=10.0, workers=1, seed=0)
+        res = solve_exact(inst, lower_bound=0, budget=10.0, workers=1, seed=0)
         assert res.status == "optimal"
         assert lb.value <= res.makespan, f"case {case}: {gpus} {minutes}: {lb} > {res.makespan}"
         lifted += lb.parts["dff"] > max(lb.parts["gpus"], lb.parts["cores"])

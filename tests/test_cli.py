@@ -159,10 +159,29 @@ def test_ga_options_are_validated():
 
 
 def test_repack_descent_and_balanced_seeds_off_still_plan(tmp_path):
-    out = tmp_path / "plan.json"
-    solve(str(SMALL), "--generations", "10", "--repack-nodes", "0", "--balanced-seeds", "0",
-          "--descent-trials", "0", "--reserve-share", "0", "--quiet", "--out", str(out))
+    """A settings file turns the improvers and the extra seeds off: the plan is still valid."""
+    out, settings = tmp_path / "plan.json", tmp_path / "ga.toml"
+    settings.write_text("[improvement]\nrepack_nodes = 0\ndescent_trials = 0\n"
+                        "[seeding]\nbalanced_seeds = 0\nreserve_share = 0\n")
+    solve(str(SMALL), "--generations", "10", "--ga-settings", str(settings), "--quiet",
+          "--out", str(out))
     assert runner.invoke(app, ["check", str(SMALL), str(out)]).exit_code == 0
+
+
+def test_settings_file_errors_name_the_key_and_misplaced_options_are_refused(tmp_path):
+    bad = tmp_path / "ga.toml"
+    bad.write_text("[variation]\nmutation_flips = -1\nflips = 3\n[stoping]\n")
+    result = runner.invoke(app, ["solve", str(SMALL), "--ga-settings", str(bad)])
+    assert result.exit_code == 2
+    lines = result.stderr.strip().splitlines()
+    assert any(line.startswith(f"{bad}: variation.mutation_flips: ") for line in lines)
+    assert f"{bad}: variation.flips: unknown setting" in lines
+    assert f"{bad}: stoping: unknown setting" in lines
+    for args, flag in ((["--method", "greedy", "--generations", "5"], "--generations"),
+                       (["--method", "exact", "--ga-settings", str(bad)], "--ga-settings"),
+                       (["--method", "ga", "--force"], "--force")):
+        refused = runner.invoke(app, ["solve", str(SMALL), *args])
+        assert refused.exit_code == 2 and refused.stderr.startswith(f"{flag}: only the")
 
 
 def test_compare_small_has_three_rows_and_week_explains_skipped_exact():

@@ -89,7 +89,7 @@ def test_jobs_that_fit_in_pairs_but_not_all_three_together():
     assert lb.parts["configurations"] == 113
     assert max(v for k, v in lb.parts.items() if k not in ("configurations", "grid")) == 90
     assert lb.value == 120
-    res = solve_exact(inst, lower_bound=0, time_limit=10.0, workers=1, seed=0)
+    res = solve_exact(inst, lower_bound=0, budget=10.0, workers=1, seed=0)
     assert (res.makespan, res.status) == (135, "optimal")
 
 
@@ -134,7 +134,7 @@ def test_bound_never_exceeds_proven_optima_of_random_two_resource_batches():
                          "hours": float(rng.integers(1, 9)) / 4} for k in range(n)]}
         _, inst = instance_of(doc)
         lb = lower_bound(inst)
-        res = solve_exact(inst, lower_bound=0, time_limit=10.0, workers=1, seed=0)
+        res = solve_exact(inst, lower_bound=0, budget=10.0, workers=1, seed=0)
         assert res.status == "optimal"
         assert lb.value <= res.makespan, f"case {case}: {lb} > {res.makespan}"
         others = max(v for k, v in lb.parts.items() if k not in ("configurations", "grid"))

@@ -26,7 +26,7 @@ DATA = Path(__file__).parent / "data"
 PCMAX = DATA / "bounds" / "pcmax"
 WORKED = DATA / "examples" / "worked_examples.json"
 
-FAST = {"time_limit": 5.0, "workers": 1, "seed": 0}  # tiny models solve in milliseconds
+FAST = {"budget": 5.0, "workers": 1, "seed": 0}  # tiny models solve in milliseconds
 
 
 def doc_of(nodes: list[dict], jobs: list[dict]) -> dict:
@@ -182,23 +182,23 @@ def test_pcmax_benchmark_optimum(name):
     # These four have OPT above the trivial bound, so the solver must really search.
     m, times, opt = read_pcmax(PCMAX / f"{name}.txt")
     batch, inst = instance_of(identical_whole_node(m, times))
-    res = solve_exact(inst, lower_bound=0, time_limit=20.0, workers=1, seed=0)
+    res = solve_exact(inst, lower_bound=0, budget=20.0, workers=1, seed=0)
     assert (res.makespan, res.status) == (60 * opt, "optimal")
     assert_valid(batch, inst, res)
 
 
-def test_tiny_time_limit_never_claims_a_wrong_optimum():
+def test_tiny_budget_never_claims_a_wrong_optimum():
     # NU_2_0050_10_0: 50 jobs, 10 machines, OPT 4741 > trivial bound 4663 (França et al. 1994,
     # OPT confirmed when gathered): far too hard to prove in a fraction of a second.
     m, times, opt = read_pcmax(PCMAX / "NU_2_0050_10_0.txt")
     batch, inst = instance_of(identical_whole_node(m, times))
     with pytest.raises(SolveError, match=r"exact: no plan found within 0\.001 s \(status "
-                       r"UNKNOWN\); try a longer --time-limit or --method ga"):
-        solve_exact(inst, lower_bound=0, time_limit=0.001, workers=1, seed=0)
+                       r"UNKNOWN\); try a longer --budget or --method ga"):
+        solve_exact(inst, lower_bound=0, budget=0.001, workers=1, seed=0)
     hint = greedy_assign(inst)
     for limit, given in ((0.2, None), (1.0, None), (0.5, hint)):
         try:
-            res = solve_exact(inst, lower_bound=0, time_limit=limit, workers=1, seed=0,
+            res = solve_exact(inst, lower_bound=0, budget=limit, workers=1, seed=0,
                               hint=given)
         except SolveError as err:
             assert given is None and "no plan found within" in str(err)
@@ -227,7 +227,7 @@ def test_random_batches_against_bound_greedy_and_checker():
         batch, inst = instance_of(random_batch_doc(np.random.default_rng(seed), max_jobs=9))
         lb = lower_bound(inst).value
         greedy = solve_greedy(inst, lower_bound=lb)
-        res = solve_exact(inst, lower_bound=lb, time_limit=3.0, workers=1, seed=seed,
+        res = solve_exact(inst, lower_bound=lb, budget=3.0, workers=1, seed=seed,
                           hint=greedy_assign(inst))
         assert_valid(batch, inst, res)
         assert res.makespan >= lb, f"seed {seed}"
@@ -340,28 +340,36 @@ def test_tiebreak_weighted_completion_follows_smiths_rule():
 # --------------------------------------------------------------------- guards
 
 
-def test_size_guard_and_force():
+def test_size_guard_and_force(monkeypatch):
+    from assignplan import solve as solve_api
+
+    monkeypatch.setattr(solve_api, "EXACT_MAX_JOBS", 6)
     batch, inst = instance_of(identical_whole_node(2, [1.0] * 7))
     with pytest.raises(InputError) as err:
-        solve_exact(inst, lower_bound=0, max_jobs=6, **FAST)
+        solve_api.solve(inst, "exact", budget=10)
     assert str(err.value) == ("exact: 7 jobs is above the exact method's limit of 6;"
-                              " use --method ga, or --force to try anyway")
-    res = solve_exact(inst, lower_bound=0, max_jobs=6, force=True, **FAST)
+                              " it would not prove anything in time; use --method ga, or"
+                              " --force to try anyway")
+    res = solve_api.solve(inst, "exact", budget=10,
+                          settings=solve_api.ExactSettings(force=True, workers=1))
     assert (res.makespan, res.status) == (240, "optimal")
 
 
 def test_size_guard_default_limit():
     _, inst = instance_of(identical_whole_node(2, [1.0] * 301))
+    from assignplan.solve import solve
+
     with pytest.raises(InputError, match="exact: 301 jobs is above the exact method's limit"
-                       " of 300; use --method ga, or --force to try anyway"):
-        solve_exact(inst, lower_bound=0)
+                       " of 300; it would not prove anything in time; use --method ga, or"
+                       " --force to try anyway"):
+        solve(inst, "exact")
 
 
 def test_result_bound_is_the_larger_one_and_seed_is_recorded():
     # lower_bound = max(given, solver's proven bound): with a weak given bound (60) the proven
     # optimum 120 is reported, the gap is 0, and the seed is stored in the result.
     _, inst = instance_of(identical_whole_node(2, [1.0] * 4))
-    res = solve_exact(inst, lower_bound=60, time_limit=5.0, workers=1, seed=7)
+    res = solve_exact(inst, lower_bound=60, budget=5.0, workers=1, seed=7)
     assert (res.makespan, res.solver_bound, res.lower_bound) == (120, 120, 120)
     assert (res.gap_pct, res.seed, res.method) == (0.0, 7, "exact")
 
@@ -374,7 +382,7 @@ def test_exact_never_worse_than_its_hint_even_when_out_of_time():
     batch, inst = instance_of(bin_packing_batch(read_bpp(data / "Falkenauer_u120_00.txt"), 48))
     bound = lower_bound(inst).value
     greedy = solve_greedy(inst, lower_bound=bound)
-    res = solve_exact(inst, lower_bound=bound, time_limit=0.05, hint=greedy_assign(inst),
+    res = solve_exact(inst, lower_bound=bound, budget=0.05, hint=greedy_assign(inst),
                       workers=1)
     assert res.method == "exact" and res.status == "feasible"
     assert res.makespan <= greedy.makespan

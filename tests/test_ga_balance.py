@@ -6,10 +6,10 @@ import numpy as np
 from hypothesis import HealthCheck, given, settings
 
 from assignplan.check import check_plan
-from assignplan.methods.ga import GAConfig, solve_ga
+from assignplan.methods.ga import ga_settings, solve_ga
 from assignplan.methods.ga.balance import balanced_eligibility, class_split, reserved_eligibility
 from assignplan.methods.ga.encoding import EligibleIndex
-from assignplan.methods.ga.engine import initial_population
+from assignplan.methods.ga.seeding import initial_population
 from assignplan.methods.greedy import greedy_assign
 from assignplan.plan import make_result, to_plan_doc
 from tests.strategies import batches, instance_of
@@ -96,14 +96,14 @@ def test_ga_starts_from_balanced_seeds_and_can_do_without():
     allowed = balanced_eligibility(inst)
     balanced = greedy_assign(inst, inst.order, allowed)[0]
     index = EligibleIndex.of(inst)
-    pop, keys, _ = initial_population(inst, GAConfig(), index, rng=np.random.default_rng(0))
+    pop, keys, _ = initial_population(inst, ga_settings(), index, rng=np.random.default_rng(0))
     assert any(np.array_equal(member, balanced) for member in pop)
-    assert len(pop) == len(keys) == GAConfig().mu
-    pop, _, _ = initial_population(inst, GAConfig(balanced_seeds=0, greedy_variants=0), index,
+    assert len(pop) == len(keys) == ga_settings().population.mu
+    pop, _, _ = initial_population(inst, ga_settings(balanced_seeds=0, greedy_variants=0), index,
                                    rng=np.random.default_rng(0))
     assert not np.array_equal(pop[0], balanced)  # greedy's own plan comes first
-    plan = solve_ga(inst, config=GAConfig(generations=0), lower_bound=0, seed=0,
-                    time_limit=10.0)
+    plan = solve_ga(inst, settings=ga_settings(generations=0), lower_bound=0, seed=0,
+                    budget=10.0)
     assert plan.makespan == 4.5 * 60
 
 
@@ -177,8 +177,8 @@ def test_ga_with_a_reserved_phase_gives_checked_plans_no_worse_than_greedy():
     batch, inst = instance_of(roomy_plain_nodes(12))
     assert reserved_eligibility(inst) is not None
     rows = []
-    res = solve_ga(inst, config=GAConfig(generations=10, mu=6, lam=6), lower_bound=0, seed=1,
-                   time_limit=600.0, on_generation=rows.append)
+    res = solve_ga(inst, settings=ga_settings(generations=10, mu=6, lam=6), lower_bound=0, seed=1,
+                   budget=600.0, on_generation=rows.append)
     assert check_plan(batch, to_plan_doc(inst, res)) == []
     assert res.makespan <= makespan(inst, *greedy_assign(inst))
     assert res.makespan == 6 * 60  # plain jobs on the plain nodes, the GPU node for training

@@ -1,4 +1,4 @@
-"""The node-local descent of the ga (`methods.ga.descent`): feasible, never worse, exact."""
+"""The node-local descent of the ga (`improvers.descent`): feasible, never worse, exact."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ from hypothesis import HealthCheck, given, settings
 
 from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
-from assignplan.methods.ga import GAConfig, solve_ga
-from assignplan.methods.ga.descent import descend, descent_step
+from assignplan.methods.ga import ga_settings, solve_ga
+from assignplan.methods.ga.improvers.descent import descend, descent_step
 from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.greedy import greedy_assign
 from assignplan.plan import make_result, to_plan_doc
@@ -133,8 +133,8 @@ def test_the_ga_applies_the_descent_to_its_best_plan():
     _, inst = instance_of(pcmax_batch(graham_lpt_family(5), 5))
     base = {"generations": 1, "local_search": False, "repack_nodes": 0, "balanced_seeds": 0,
             "greedy_variants": 0, "mu": 4, "lam": 4}
-    runs = {d: solve_ga(inst, config=GAConfig(**base, descent_trials=d),
-                        lower_bound=lower_bound(inst).value, seed=0, time_limit=60)
+    runs = {d: solve_ga(inst, settings=ga_settings(**base, descent_trials=d),
+                        lower_bound=lower_bound(inst).value, seed=0, budget=60)
             for d in (0, 20_000)}
     assert runs[20_000].makespan == 15 * HOUR
     assert runs[0].makespan > 15 * HOUR

@@ -12,15 +12,15 @@ from pydantic import ValidationError
 
 from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
-from assignplan.methods.ga import GAConfig, run_island, solve_ga
-from assignplan.methods.ga.engine import greedy_variant_orders
+from assignplan.methods.ga import ga_settings, run_island, solve_ga
+from assignplan.methods.ga.seeding import greedy_variant_orders
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import objective, to_plan_doc
 from assignplan.schedule import evaluate_population
 from benchmarks.generate import batch_doc, generate
 from tests.strategies import batches, instance_of, random_batch_doc
 
-SMALL = GAConfig(mu=8, lam=8, generations=15, local_evaluations=8, greedy_variants=2)
+SMALL = ga_settings(mu=8, lam=8, generations=15, local_evaluations=8, greedy_variants=2)
 
 
 def greedy_makespan(inst) -> int:
@@ -42,13 +42,13 @@ def identical_whole_node(m: int, hours: list[float]) -> dict:
 def test_every_ga_plan_passes_the_checker_and_is_no_worse_than_greedy(d):
     batch, inst = instance_of(d)
     bound = lower_bound(inst).value
-    res = solve_ga(inst, config=SMALL, lower_bound=bound, seed=0, time_limit=60.0)
+    res = solve_ga(inst, settings=SMALL, lower_bound=bound, seed=0, budget=60.0)
     assert check_plan(batch, to_plan_doc(inst, res)) == []
     assert bound <= res.makespan <= greedy_makespan(inst)
     assert res.method == "ga" and res.seed == 0 and res.history
 
 
-OTHER = GAConfig(mu=6, lam=8, generations=10, local_evaluations=4, greedy_variants=1,
+OTHER = ga_settings(mu=6, lam=8, generations=10, local_evaluations=4, greedy_variants=1,
                 crossover="kpoint", kpoints=3, mutation="asymmetric", mutation_flips=20.0,
                 survival="comma", repair_fill="random", repair_keep="previous",
                 local_search=False)
@@ -59,7 +59,7 @@ OTHER = GAConfig(mu=6, lam=8, generations=10, local_evaluations=4, greedy_varian
 @given(batches(max_jobs=14, p_follows=0.3, p_maintenance=0.5))
 def test_the_optional_operators_also_give_checked_plans_no_worse_than_greedy(d):
     batch, inst = instance_of(d)
-    res = solve_ga(inst, config=OTHER, lower_bound=0, seed=5, time_limit=60.0)
+    res = solve_ga(inst, settings=OTHER, lower_bound=0, seed=5, budget=60.0)
     assert check_plan(batch, to_plan_doc(inst, res)) == []
     assert res.makespan <= greedy_makespan(inst)
 
@@ -71,16 +71,16 @@ def test_graham_lpt_family_reaches_the_optimum(m):
     hours = [h for v in range(2 * m - 1, m, -1) for h in (v, v)] + [m, m, m]
     _, inst = instance_of(identical_whole_node(m, hours))
     assert greedy_makespan(inst) == (4 * m - 1) * 60
-    res = solve_ga(inst, config=GAConfig(generations=200), lower_bound=lower_bound(inst).value,
-                   seed=1, time_limit=600.0)
+    res = solve_ga(inst, settings=ga_settings(generations=200), lower_bound=lower_bound(inst).value,
+                   seed=1, budget=600.0)
     assert res.makespan == 3 * m * 60
 
 
 @pytest.mark.slow
 def test_same_batch_seed_and_config_give_the_same_plan():
     _, inst = instance_of(batch_doc(generate("small", 2)))
-    cfg = GAConfig(generations=12, mutation="asymmetric")
-    runs = [solve_ga(inst, config=cfg, lower_bound=0, seed=7, time_limit=600.0)
+    cfg = ga_settings(generations=12, mutation="asymmetric")
+    runs = [solve_ga(inst, settings=cfg, lower_bound=0, seed=7, budget=600.0)
             for _ in range(2)]
     assert np.array_equal(runs[0].assign, runs[1].assign)
     assert np.array_equal(runs[0].start, runs[1].start)
@@ -88,27 +88,27 @@ def test_same_batch_seed_and_config_give_the_same_plan():
             for r in runs]
     assert docs[0] == docs[1]
     assert [h.model_dump() for h in runs[0].history] == [h.model_dump() for h in runs[1].history]
-    other = solve_ga(inst, config=cfg, lower_bound=0, seed=8, time_limit=600.0)
+    other = solve_ga(inst, settings=cfg, lower_bound=0, seed=8, budget=600.0)
     assert [h.evaluations for h in other.history] != [h.evaluations for h in runs[0].history]
 
 
 def test_history_hook_and_stopping_rules():
     _, inst = instance_of(batch_doc(generate("small", 1)))
     rows = []
-    res = solve_ga(inst, config=GAConfig(generations=12, stagnation=1000), lower_bound=0,
-                   seed=3, time_limit=600.0, on_generation=rows.append)
+    res = solve_ga(inst, settings=ga_settings(generations=12, stagnation=1000), lower_bound=0,
+                   seed=3, budget=600.0, on_generation=rows.append)
     assert rows == res.history and [r.generation for r in rows] == list(range(13))
     best = [r.best_makespan_h for r in rows]
     assert best == sorted(best, reverse=True)  # elitism: the best never gets worse
     assert all(r.median_makespan_h >= r.best_makespan_h for r in rows)
     assert all(b.evaluations > a.evaluations for a, b in zip(rows, rows[1:], strict=False))
     assert res.makespan == round(best[-1] * 60)
-    stalled = solve_ga(inst, config=GAConfig(generations=10_000, stagnation=3), lower_bound=0,
-                       seed=3, time_limit=600.0)
+    stalled = solve_ga(inst, settings=ga_settings(generations=10_000, stagnation=3), lower_bound=0,
+                       seed=3, budget=600.0)
     assert len(stalled.history) < 10_000
     _, inst = instance_of(batch_doc(generate("small", 1, True)))
     assert not np.any(inst.due != inst.due.max())  # no due times: tardiness is always 0
-    at_bound = solve_ga(inst, config=GAConfig(generations=10_000), seed=3, time_limit=600.0,
+    at_bound = solve_ga(inst, settings=ga_settings(generations=10_000), seed=3, budget=600.0,
                         lower_bound=greedy_makespan(inst))
     assert len(at_bound.history) == 1  # greedy already meets the given bound
 
@@ -119,10 +119,10 @@ def test_custom_evaluate_is_the_only_scorer_of_the_population():
 
     def counting(assign2d, order):
         calls.append(len(assign2d))
-        return evaluate_population(inst, assign2d, order)
+        return evaluate_population(inst, assign2d, order, tail=True)
 
-    res = solve_ga(inst, config=GAConfig(generations=5), lower_bound=0, seed=0,
-                   time_limit=600.0, evaluate=counting)
+    res = solve_ga(inst, settings=ga_settings(generations=5), lower_bound=0, seed=0,
+                   budget=600.0, evaluate=counting)
     assert sum(calls) == res.history[-1].evaluations
 
 
@@ -130,12 +130,13 @@ def test_run_island_takes_migrants_and_returns_the_population_best_first():
     _, inst = instance_of(batch_doc(generate("small", 6)))
     assign, _ = greedy_assign(inst)
     migrants = np.stack([assign, assign])
-    pop, fit, order, history = run_island(
-        inst, GAConfig(mu=6, lam=6, generations=3), rng=np.random.default_rng(0),
-        evaluate=lambda a, o: evaluate_population(inst, a, o), lower_bound=0,
-        deadline=float("inf"), migrants_in=migrants)
-    assert pop.shape == (6, inst.n_jobs) and len(history) == 4
-    assert np.array_equal(fit, evaluate_population(inst, pop, order))
+    island = run_island(
+        inst, ga_settings(mu=6, lam=6, generations=3), rng=np.random.default_rng(0),
+        evaluate=lambda a, o: evaluate_population(inst, a, o, tail=True), lower_bound=0,
+        deadline=float("inf"), migrants=migrants)
+    pop, fit = island.assign, island.score[:, :3]
+    assert pop.shape == (6, inst.n_jobs) and len(island.history) == 4
+    assert np.array_equal(fit, evaluate_population(inst, pop, island.orders))
     assert np.all(np.diff(fit[:, 0]) >= 0)
 
 
@@ -145,22 +146,24 @@ def test_reported_plan_is_the_evaluated_one():
     # `evaluate` here is solve_ga's default scorer, so both runs take the same path (no
     # reserved phase: solve_ga is then one run_island)
     _, inst = instance_of(batch_doc(generate("small", 3)))
-    cfg = GAConfig(generations=8, mu=8, lam=8, local_evaluations=8, reserve_share=0.0)
-    assert cfg.justify and cfg.evolve_order and cfg.tiebreak == "tail"
+    cfg = ga_settings(generations=8, mu=8, lam=8, local_evaluations=8, reserve_share=0.0)
+    assert cfg.improvement.justify and cfg.variation.evolve_order
+    assert cfg.improvement.tiebreak == "tail"
 
     def evaluate(a, o):
         return evaluate_population(inst, a, o, justify=True, tail=True)
 
-    pop, fit, orders, _ = run_island(inst, cfg, rng=np.random.default_rng(4), evaluate=evaluate,
-                                     lower_bound=0, deadline=float("inf"))
+    island = run_island(inst, cfg, rng=np.random.default_rng(4), evaluate=evaluate,
+                        lower_bound=0, deadline=float("inf"))
+    pop, fit, orders = island.assign, island.score[:, :3], island.orders
     assert orders.shape == pop.shape
     np.testing.assert_array_equal(fit, evaluate_population(inst, pop, orders, justify=True))
-    res = solve_ga(inst, config=cfg, lower_bound=0, seed=4, time_limit=600.0)
+    res = solve_ga(inst, settings=cfg, lower_bound=0, seed=4, budget=600.0)
     np.testing.assert_array_equal(res.assign, pop[0])
     assert objective(inst, res.end) == tuple(fit[0])
-    plain = solve_ga(inst, config=GAConfig(generations=8, mu=8, lam=8, local_evaluations=8,
+    plain = solve_ga(inst, settings=ga_settings(generations=8, mu=8, lam=8, local_evaluations=8,
                                            justify=False, evolve_order=False, tiebreak="none"),
-                     lower_bound=0, seed=4, time_limit=600.0)
+                     lower_bound=0, seed=4, budget=600.0)
     assert res.makespan <= greedy_makespan(inst) and plain.makespan <= greedy_makespan(inst)
 
 
@@ -179,16 +182,16 @@ def test_greedy_variant_orders_respect_follows():
 
 def test_config_is_validated_and_frozen():
     with pytest.raises(ValidationError):
-        GAConfig(mu=1)
+        ga_settings(mu=1)
     with pytest.raises(ValidationError):
-        GAConfig(crossover="one-point")
+        ga_settings(crossover="one-point")
+    with pytest.raises(ValueError, match="populaton"):
+        ga_settings(populaton=10)  # a typo is an error, not ignored
     with pytest.raises(ValidationError):
-        GAConfig(populaton=10)  # a typo is an error, not ignored
+        ga_settings(survival="comma", mu=10, lam=5)
+    cfg = ga_settings()
     with pytest.raises(ValidationError):
-        GAConfig(survival="comma", mu=10, lam=5)
-    cfg = GAConfig()
-    with pytest.raises(ValidationError):
-        cfg.mu = 3
+        cfg.population.mu = 3
 
 
 # ------------------------------------------------------------------ known-optimum batches
@@ -205,8 +208,8 @@ def _known_optimum_run(seed: int):
     """(batch, inst, optimum, ga result) of a known-optimum small batch; shared by the tests
     below so each batch is solved once."""
     batch, inst, opt = _known_optimum(seed)
-    res = solve_ga(inst, config=GAConfig(generations=60), lower_bound=lower_bound(inst).value,
-                   seed=0, time_limit=600.0)
+    res = solve_ga(inst, settings=ga_settings(generations=60), lower_bound=lower_bound(inst).value,
+                   seed=0, budget=600.0)
     return batch, inst, opt, res
 
 
@@ -239,7 +242,7 @@ def test_no_greedy_variants_still_seeds_with_greedy():
     """greedy_variants=0 is a valid setting: the population holds the greedy plan alone."""
     batch, inst = instance_of(random_batch_doc(np.random.default_rng(3), max_jobs=10))
     bound = lower_bound(inst).value
-    result = solve_ga(inst, config=GAConfig(greedy_variants=0, generations=5),
-                      lower_bound=bound, seed=0, time_limit=60)
+    result = solve_ga(inst, settings=ga_settings(greedy_variants=0, generations=5),
+                      lower_bound=bound, seed=0, budget=60)
     assert result.makespan <= solve_greedy(inst, lower_bound=bound).makespan
     assert check_plan(batch, to_plan_doc(inst, result)) == []

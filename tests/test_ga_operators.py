@@ -15,9 +15,9 @@ from assignplan.methods.ga.encoding import (
     random_population,
     to_matrix,
 )
-from assignplan.methods.ga.engine import plateau_key
 from assignplan.methods.ga.order_keys import cross_keys, orders_from_keys, perturb_keys
-from assignplan.methods.ga.repair import available_minutes, repair, resource_work, shed_overload
+from assignplan.methods.ga.population import selection_key
+from assignplan.methods.ga.repair import repair, resource_work, shed_overload
 from assignplan.methods.ga.selection import lex_less, lex_rank, tournament
 from tests.strategies import instance_of, random_batch_doc
 
@@ -212,10 +212,10 @@ def test_shed_overload_moves_work_off_a_node_that_cannot_finish_by_the_horizon()
          "jobs": [{"name": "j", "count": 6, "cores": 4, "memory_gib": 1.0, "hours": 1.0}]}
     _, inst = instance_of(d)
     index = EligibleIndex.of(inst)
-    assert list(available_minutes(inst, 180)) == [120, 120, 120]
+    assert list(inst.available_minutes(180)) == [120, 120, 120]
     crowded = np.zeros((1, 6), dtype=np.int64)  # 6 whole-node hours on node 0
     out = shed_overload(crowded, inst, index, 180, rng=np.random.default_rng(0))
-    limit = inst.capacity * available_minutes(inst, 180)[:, None]
+    limit = inst.capacity * inst.available_minutes(180)[:, None]
     assert np.all(resource_work(inst, out)[0] <= limit)
     assert sorted(np.bincount(out[0], minlength=3)) == [2, 2, 2]
     assert np.all(crowded == 0)  # input untouched
@@ -256,9 +256,10 @@ def test_plus_survival_keeps_the_best_of_both_and_prefers_distinct_plans():
     fit = np.array([[5, 0, 0], [7, 0, 0], [9, 0, 0]], dtype=float)
     off = np.array([[0, 0], [3, 3], [4, 4]])
     off_fit = np.array([[5, 0, 0], [6, 0, 0], [10, 0, 0]], dtype=float)
-    new_pop, new_fit = survival.plus(pop, fit, off, off_fit, 3)
-    assert new_fit[:, 0].tolist() == [5, 6, 7]
-    assert new_pop.tolist() == [[0, 0], [3, 3], [1, 1]]  # the copy of [0, 0] is not kept
+    genomes, key = np.concatenate([pop, off]), np.concatenate([fit, off_fit])
+    keep = survival.plus(genomes, key, np.repeat([False, True], 3), 3)
+    assert key[keep, 0].tolist() == [5, 6, 7]
+    assert genomes[keep].tolist() == [[0, 0], [3, 3], [1, 1]]  # the copy of [0, 0] is not kept
 
 
 def test_comma_survival_replaces_parents_but_keeps_the_elite():
@@ -266,12 +267,15 @@ def test_comma_survival_replaces_parents_but_keeps_the_elite():
     fit = np.array([[5, 0, 0], [8, 0, 0]], dtype=float)
     off = np.array([[2], [3], [4]])
     off_fit = np.array([[6, 0, 0], [7, 0, 0], [9, 0, 0]], dtype=float)
-    new_pop, new_fit = survival.comma(pop, fit, off, off_fit, 2)
-    assert new_pop.tolist() == [[0], [2]] and new_fit[:, 0].tolist() == [5, 6]
+    genomes, born = np.concatenate([pop, off]), np.array([False, False, True, True, True])
+    keep = survival.comma(genomes, np.concatenate([fit, off_fit]), born, 2)
+    assert genomes[keep].tolist() == [[0], [2]]
+    assert survival.first(np.concatenate([fit, off_fit]), born, "comma") == 0
     better = off_fit.copy()
     better[2, 0] = 4
-    new_pop, _ = survival.comma(pop, fit, off, better, 2)
-    assert new_pop.tolist() == [[4], [2]]  # no parent survives when an offspring is better
+    keep = survival.comma(genomes, np.concatenate([fit, better]), born, 2)
+    assert genomes[keep].tolist() == [[4], [2]]  # no parent survives when an offspring is better
+    assert survival.first(np.concatenate([fit, better]), born, "comma") == 4
 
 
 def test_lex_rank_takes_any_number_of_columns():
@@ -317,9 +321,9 @@ def test_keys_follow_the_crossover_and_perturbation_is_small_and_positive():
 def test_plateau_key_prefers_balanced_nodes_and_keeps_the_objective():
     inst = hetero_instance(3)
     pop = random_population(inst, 5, EligibleIndex.of(inst), rng=np.random.default_rng(0))
-    fit = np.arange(15, dtype=np.float64).reshape(5, 3)
-    key = plateau_key(inst, pop, fit)
-    np.testing.assert_array_equal(key[:, [0, 1, 3]], fit)
+    fit = np.arange(25, dtype=np.float64).reshape(5, 5)
+    key = selection_key("balance", inst)(pop, fit)
+    np.testing.assert_array_equal(key[:, [0, 1, 3]], fit[:, :3])
     load = node_load(inst, pop)
     np.testing.assert_allclose(key[:, 2], (load**2).sum(axis=1) / load.sum(axis=1))
     # two equal whole-node jobs on two equal nodes: the even split scores lower than piling
@@ -328,14 +332,16 @@ def test_plateau_key_prefers_balanced_nodes_and_keeps_the_objective():
                           "nodes": [{"name": "m", "count": 2, "cores": 4, "memory_gib": 8.0}],
                           "jobs": [{"name": "j", "count": 2, "cores": 4, "memory_gib": 1.0,
                                     "hours": 1.0}]})
-    key = plateau_key(two, np.array([[0, 0], [0, 1]]), np.zeros((2, 3)))
+    key = selection_key("balance", two)(np.array([[0, 0], [0, 1]]), np.zeros((2, 5)))
     assert key[1, 2] < key[0, 2]
+    tail = selection_key("tail", two)(np.zeros((1, 2), dtype=np.int64), fit[:1])
+    np.testing.assert_array_equal(tail[0], fit[0, [0, 1, 4, 3, 2]])
 
 
 def test_packing_exchange_fills_a_node_the_plain_moves_cannot():
     # bins of 10 cores: {6, 5 | 4, 5} overflows node 0 and no single move fits; exchanging
     # the late 5 for the 4 gives {6, 4 | 5, 5}, the 1-hour packing (Falkenauer-style exchange)
-    from assignplan.methods.ga.local import improve
+    from assignplan.methods.ga.improvers.moves import improve
     from assignplan.schedule import evaluate_population
     from benchmarks.reductions import BinPacking, bin_packing_batch
 
@@ -360,7 +366,7 @@ def test_promotion_moves_every_waiting_sweep_ahead_at_once():
     # both until 7 h and ends at 11 h. Decoding both sweeps first (S 0-2, L 2-7; G 2-6, X 6-9
     # on c) ends at 9 h. Moving one sweep alone gains nothing (G still waits for the other),
     # so the single trial has to promote both.
-    from assignplan.methods.ga.local import improve_order
+    from assignplan.methods.ga.improvers.order import improve_order
     from assignplan.schedule import evaluate_population
 
     week = {"start": "2026-12-07T00:00:00", "hours": 168.0}

@@ -1,4 +1,4 @@
-"""The exact repacking step of the ga (`methods.ga.repack`): feasible, never worse, decodable."""
+"""The exact repacking step of the ga (`improvers.repack`): feasible, never worse, decodable."""
 
 from __future__ import annotations
 
@@ -7,14 +7,14 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from assignplan.check import check_plan
-from assignplan.methods.ga.order_keys import orders_from_keys
-from assignplan.methods.ga.repack import (
+from assignplan.methods.ga.improvers.repack import (
     SINKS,
     keys_for_order,
     pick_nodes,
     repack_nodes,
     start_order,
 )
+from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.greedy import greedy_assign
 from assignplan.plan import make_result, to_plan_doc
 from assignplan.schedule import build_schedule, check_order
@@ -123,7 +123,7 @@ def test_a_fruitless_sub_problem_is_not_solved_twice(monkeypatch):
     def no_solver(*args, **kwargs):
         raise AssertionError("solved again")
 
-    monkeypatch.setattr("assignplan.methods.ga.repack.cp_model.CpSolver.solve", no_solver)
+    monkeypatch.setattr("assignplan.methods.ga.improvers.repack.cp_model.CpSolver.solve", no_solver)
     assert repack_nodes(inst, assign, start, np.array([0, 1]), deterministic_time=1.0, seed=3,
                         tried=tried) is None
 

@@ -18,11 +18,11 @@ import pytest
 from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
 from assignplan.instance import Instance, build_instance
-from assignplan.methods.ga import GAConfig
+from assignplan.methods.ga import ga_settings
 from assignplan.methods.greedy import greedy_assign
 from assignplan.model import ExpandedBatch, expand_batch, load_batch, parse_batch_text
 from assignplan.plan import to_plan_doc
-from assignplan.planner import solve
+from assignplan.solve import solve
 from benchmarks.reductions import pcmax_batch, read_pcmax
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -51,8 +51,8 @@ def _run(name: str) -> tuple[ExpandedBatch, Instance, dict]:
     inst = build_instance(batch)
     bound = lower_bound(inst)
     assign, start = greedy_assign(inst)
-    ga = solve(inst, "ga", seed=GA_SEED, time_limit=1e6, bound=bound,
-               ga_config=GAConfig(generations=GENERATIONS[name]))
+    ga = solve(inst, "ga", seed=GA_SEED, budget=1e6, bound=bound,
+               settings=ga_settings(generations=GENERATIONS[name]))
     record = {
         "bound": bound.value,
         "bound_parts": dict(sorted(bound.parts.items())),

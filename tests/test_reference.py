@@ -14,10 +14,10 @@ from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
 from assignplan.errors import SolveError
 from assignplan.instance import Instance, build_instance
-from assignplan.methods.ga import GAConfig
+from assignplan.methods.ga import GASettings, ga_settings
 from assignplan.model import ExpandedBatch, expand_batch, parse_batch_text
 from assignplan.plan import PlanResult, to_plan_doc
-from assignplan.planner import solve
+from assignplan.solve import solve
 from benchmarks.reductions import (
     HOUR,
     bin_packing_batch,
@@ -36,10 +36,10 @@ PCMAX_VERIFIED = read_column(DATA / "pcmax" / "optima.csv", "verified")
 
 # Bounded by generations and stagnation only (the time limit is a far-off safety net), so every
 # run is deterministic: same instance, seed and config, same plan.
-GA_TEST_CONFIG = GAConfig(generations=100, stagnation=40)
+GA_TEST_CONFIG = ga_settings(generations=100, stagnation=40)
 # t60: no setting we measured solves any of the 20 to 1 h (see RESULTS.md), and every ga
 # generation spends its full repacking effort there, so the suite runs them short.
-T60_GA_CONFIG = GAConfig(generations=30, stagnation=15)
+T60_GA_CONFIG = ga_settings(generations=30, stagnation=15)
 GA_SEED = 0
 GA_SAFETY_SECONDS = 900.0
 # CP-SAT limits: the 10-job P||Cmax instances prove optimal within a few seconds; the bin
@@ -74,15 +74,16 @@ def checked(eb: ExpandedBatch, inst: Instance, result: PlanResult) -> PlanResult
 
 
 def run(method: str, eb: ExpandedBatch, inst: Instance, *,
-        time_limit: float = EXACT_COUNT_LIMIT,
-        ga_config: GAConfig = GA_TEST_CONFIG) -> PlanResult | None:
-    """Plan through the planner and check it; None when exact finds no plan within its limit."""
+        budget: float = EXACT_COUNT_LIMIT,
+        settings: GASettings = GA_TEST_CONFIG) -> PlanResult | None:
+    """Plan through the solve API and check it; None when exact finds no plan within its
+    budget."""
     if method == "ga":
-        # generations and stagnation stop the run; the time limit is only a safety net
-        time_limit = GA_SAFETY_SECONDS
+        # generations and stagnation stop the run; the budget is only a safety net
+        budget = GA_SAFETY_SECONDS
     try:
-        result = solve(inst, method, seed=GA_SEED, time_limit=time_limit,
-                       ga_config=ga_config)
+        result = solve(inst, method, seed=GA_SEED, budget=budget,
+                       settings=settings if method == "ga" else None)
     except SolveError:
         if method != "exact":
             raise
@@ -101,14 +102,14 @@ class Tally:
 
 
 def bin_packing_runs(names: list[str], methods: tuple[str, ...],
-                     ga_config: GAConfig = GA_TEST_CONFIG) -> tuple[Tally, dict]:
+                     settings: GASettings = GA_TEST_CONFIG) -> tuple[Tally, dict]:
     """Run `methods` with z* nodes on each instance; 'solved' = a 1-hour plan."""
     tally = Tally({m: [] for m in methods})
     results: dict[str, dict[str, PlanResult | None]] = {}
     for name in names:
         bpp = read_bpp(DATA / "binpacking" / f"{name}.txt")
         eb, inst = batch_of(bin_packing_batch(bpp, BPP_OPT[name]))
-        results[name] = {m: run(m, eb, inst, ga_config=ga_config) for m in methods}
+        results[name] = {m: run(m, eb, inst, settings=settings) for m in methods}
         for m, r in results[name].items():
             if r is not None and r.makespan == HOUR:
                 tally.solved[m].append(name)
@@ -156,7 +157,7 @@ def test_reduction_makespan_is_one_hour_iff_the_items_pack():
     bpp = BinPacking("tiny", 10, (6, 5, 5, 4))
     for nodes, expected in ((2, HOUR), (1, 2 * HOUR)):
         eb, inst = batch_of(bin_packing_batch(bpp, nodes))
-        result = run("exact", eb, inst, time_limit=EXACT_SMALL_LIMIT)
+        result = run("exact", eb, inst, budget=EXACT_SMALL_LIMIT)
         assert (result.makespan, result.status) == (expected, "optimal")
 
 
@@ -266,7 +267,7 @@ def test_scholl_and_hard28_never_beat_the_optimum(name):
     assert lower_bound(inst).value <= 2 * HOUR
     assert run("greedy", eb, inst).makespan >= 2 * HOUR
     if name in SCHOLL_50:
-        exact = run("exact", eb, inst, time_limit=EXACT_TRY_LIMIT)
+        exact = run("exact", eb, inst, budget=EXACT_TRY_LIMIT)
         assert exact is None or exact.makespan >= 2 * HOUR
 
 
@@ -298,7 +299,7 @@ def test_pcmax_published_optima(name):
         assert min(p.makespan for p in plans.values()) >= target
         assert lower_bound(inst).value <= target
     if inst.n_jobs == 10:
-        exact = run("exact", eb, inst, time_limit=EXACT_SMALL_LIMIT)
+        exact = run("exact", eb, inst, budget=EXACT_SMALL_LIMIT)
         assert (exact.makespan, exact.status) == (target, "optimal")
 
 
@@ -318,7 +319,7 @@ def test_graham_lpt_family(m):
     # exhaustive search, see worked_examples.json).
     eb, inst = batch_of(pcmax_batch(graham_lpt_family(m), m))
     assert run("greedy", eb, inst).makespan == (4 * m - 1) * HOUR
-    exact = run("exact", eb, inst, time_limit=EXACT_SMALL_LIMIT)
+    exact = run("exact", eb, inst, budget=EXACT_SMALL_LIMIT)
     assert (exact.makespan, exact.status) == (3 * m * HOUR, "optimal")
     assert run("ga", eb, inst).makespan <= 1.01 * 3 * m * HOUR
 

@@ -12,7 +12,7 @@ import matplotlib.image as mpimg
 import numpy as np
 import pytest
 
-from assignplan import planner
+from assignplan import solve as planner
 from assignplan.instance import Instance, build_instance
 from assignplan.model import Batch, HistoryRow, PlanDoc, expand_batch, load_batch
 from assignplan.plan import PlanResult, make_result, result_from_doc, to_plan_doc
@@ -159,7 +159,7 @@ def test_binned_curve_keeps_the_area():
 def test_core_utilisation_from_the_curve_matches_the_summary():
     inst, result = week()
     times, busy = utilisation_curve(inst, result)
-    from assignplan.report.stats import available_minutes
+    available_minutes = Instance.available_minutes
 
     capacity = inst.capacity[:, 0] @ available_minutes(inst, result.makespan)
     pct = 100 * _integral(times, busy)[0] / capacity

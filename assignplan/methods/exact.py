@@ -9,8 +9,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 from ortools.sat.python import cp_model
 
-from assignplan.errors import InputError, SolveError
+from assignplan.errors import SolveError
 from assignplan.instance import NO_DUE, Instance
+from assignplan.methods.cpsat import NodeSlots, add_job, add_node_capacity
 from assignplan.plan import PlanResult, make_result, objective
 from assignplan.schedule import schedule_result
 
@@ -55,21 +56,6 @@ def horizon(inst: Instance) -> int:
     return free_from + int(longest.sum())
 
 
-def _node_resources(inst: Instance, i: int, demand: np.ndarray) -> list[int]:
-    """Resources that need a cumulative on node i, given its eligible jobs' `demand` int64[k, 3].
-
-    A resource can be skipped when the eligible jobs together never exceed the capacity;
-    cores (every job needs >= 1) are kept whenever the node has maintenance, since the
-    maintenance windows ride in the cumulatives.
-    """
-    total = demand.sum(axis=0)
-    keep = [r for r in range(inst.capacity.shape[1]) if total[r] > inst.capacity[i, r]]
-    has_maint = inst.maint_ptr[i + 1] > inst.maint_ptr[i]
-    if has_maint and not keep:
-        keep = [0]
-    return keep
-
-
 def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> _Model:
     """Data -> variables -> constraints of the model in DESIGN.md (no objective yet).
 
@@ -108,70 +94,6 @@ def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> 
     return _Model(m, start, end, presence, makespan, *_secondary_objectives(m, inst, end, big))
 
 
-class NodeSlots:
-    """Per node: the jobs that may run there, their optional intervals and presence literals
-    (filled by `add_job`, read by `add_node_capacity`)."""
-
-    def __init__(self, n_nodes: int):
-        self.jobs: dict[int, list[int]] = {i: [] for i in range(n_nodes)}
-        self.intervals: dict[int, list[cp_model.IntervalVar]] = {i: [] for i in range(n_nodes)}
-        self.presence: dict[int, list[cp_model.IntVar]] = {i: [] for i in range(n_nodes)}
-
-
-def add_job(m: cp_model.CpModel, inst: Instance, j: int, nodes: np.ndarray, lo: int, hi: int,
-            slots: NodeSlots) -> tuple[cp_model.IntVar, cp_model.IntVar,
-                                       dict[int, cp_model.IntVar]]:
-    """Job j on one of `nodes` (each able to hold it) within [lo, hi]: (s_j, e_j, {i: x_ji}).
-
-    x_ji in {0,1}, sum_i x_ji = 1, an optional interval [s_j, s_j + d_ji) present iff x_ji
-    (recorded in `slots`), e_j = s_j + sum_i d_ji x_ji, lo <= s_j, e_j <= hi.
-    """
-    s = m.new_int_var(lo, hi, f"s{j}")
-    e = m.new_int_var(lo + 1, hi, f"e{j}")
-    presence: dict[int, cp_model.IntVar] = {}
-    for i in np.asarray(nodes).tolist():
-        x = m.new_bool_var(f"x{j}_{i}")
-        presence[i] = x
-        slots.jobs[i].append(j)
-        slots.presence[i].append(x)
-        slots.intervals[i].append(m.new_optional_fixed_size_interval_var(
-            s, int(inst.duration[j, i]), x, f"iv{j}_{i}"))
-    m.add_exactly_one(presence.values())
-    m.add(e == s + cp_model.LinearExpr.weighted_sum(
-        list(presence.values()), [int(inst.duration[j, i]) for i in presence]))
-    return s, e, presence
-
-
-def add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[int],
-                       intervals: list[cp_model.IntervalVar], x: list[cp_model.IntVar],
-                       makespan: cp_model.IntVar) -> None:
-    """Capacity of node i over its eligible `jobs` (their `intervals` and presences `x`).
-
-    cumulative(intervals + maintenance, demand_jr | capacity_ir, capacity_ir) per binding
-    resource r, and the redundant energy cut sum_j a_jr d_ji x_ji <= capacity_ir * C_max for
-    every demanded resource. The cut is implied but gives the LP relaxation the load of each
-    node, which the cumulatives over optional intervals do not: on random 80-200-job batches
-    it raised the proven bound within 10 s markedly (887 -> 3750 minutes on a 192-job one).
-    """
-    if not jobs:
-        return
-    lo, hi = inst.maint_ptr[i], inst.maint_ptr[i + 1]
-    maint = [
-        m.new_fixed_size_interval_var(int(s), int(e - s), f"maint{i}_{k}")
-        for k, (s, e) in enumerate(zip(inst.maint_start[lo:hi], inst.maint_end[lo:hi],
-                                       strict=True))
-    ]
-    demand = inst.demand[jobs]
-    for r in _node_resources(inst, i, demand):
-        cap = int(inst.capacity[i, r])
-        m.add_cumulative(intervals + maint, [int(a) for a in demand[:, r]] + [cap] * len(maint),
-                         cap)
-    work = demand * inst.duration[jobs, i].astype(np.int64)[:, None]
-    for r in np.flatnonzero(work.sum(axis=0) > 0):
-        m.add(cp_model.LinearExpr.weighted_sum(x, [int(a) for a in work[:, r]])
-              <= int(inst.capacity[i, r]) * makespan)
-
-
 def _secondary_objectives(m: cp_model.CpModel, inst: Instance, end: list, big: int
                           ) -> tuple[cp_model.LinearExpr | None, cp_model.LinearExpr]:
     """Scaled objectives 2 and 3.
@@ -200,7 +122,7 @@ def _add_hint(m: cp_model.CpModel, inst: Instance, hint, start, end, presence, m
     if hint is None:
         return
     assign, hstart = (np.asarray(a, dtype=np.int64) for a in hint)
-    hend = hstart + inst.duration[np.arange(inst.n_jobs), assign]
+    hend = inst.end_times(assign, hstart)
     for j in range(inst.n_jobs):
         for i, x in presence[j].items():
             m.add_hint(x, bool(assign[j] == i))
@@ -256,12 +178,10 @@ def solve_exact(
     inst: Instance,
     *,
     lower_bound: int,
-    time_limit: float = 60.0,
+    budget: float = 60.0,
     hint: tuple[np.ndarray, np.ndarray] | None = None,
     workers: int = 0,
     seed: int = 0,
-    max_jobs: int = 300,
-    force: bool = False,
 ) -> PlanResult:
     """Plan `inst` with CP-SAT, lexicographically.
 
@@ -273,11 +193,6 @@ def solve_exact(
     all raises SolveError). The result's lower bound is
     max(lower_bound, ceil(stage-1 best_objective_bound)); `solver_bound` is the latter.
     """
-    if inst.n_jobs > max_jobs and not force:
-        raise InputError(
-            f"exact: {inst.n_jobs} jobs is above the exact method's limit of {max_jobs};"
-            " use --method ga, or --force to try anyway"
-        )
     t0 = time.perf_counter()
     mdl = _build_model(inst, hint)
     # Our bound is provable for every plan, so it is a valid cut; it lets the solver stop as
@@ -285,7 +200,7 @@ def solve_exact(
     mdl.model.add(mdl.makespan >= int(lower_bound))
 
     mdl.model.minimize(mdl.makespan)
-    solver, status = _run(mdl, STAGE1_SHARE * time_limit, workers, seed)
+    solver, status = _run(mdl, STAGE1_SHARE * budget, workers, seed)
     if status == cp_model.INFEASIBLE:
         raise SolveError("exact: internal error, the model is infeasible despite a safe horizon")
     fallback = _hint_result(inst, hint, lower_bound, seed)
@@ -294,8 +209,8 @@ def solve_exact(
         return replace(fallback, seconds=time.perf_counter() - t0)
     if status not in _FOUND:
         raise SolveError(
-            f"exact: no plan found within {time_limit:g} s (status {solver.status_name(status)});"
-            " try a longer --time-limit or --method ga"
+            f"exact: no plan found within {budget:g} s (status {solver.status_name(status)});"
+            " try a longer --budget or --method ga"
         )
     solver_bound = math.ceil(solver.best_objective_bound - 1e-6)
     proven = status == cp_model.OPTIMAL
@@ -303,7 +218,7 @@ def solve_exact(
 
     done = mdl.makespan
     if mdl.tardiness is not None:
-        left = time_limit - (time.perf_counter() - t0)
+        left = budget - (time.perf_counter() - t0)
         share = STAGE2_SHARE_BEFORE_TIEBREAK if proven else 1.0
         solver2, status = _next_stage(mdl, solver, done, proven, mdl.tardiness, share * left,
                                       workers, seed)
@@ -311,7 +226,7 @@ def solve_exact(
         if status in _FOUND:
             solver, done, plan = solver2, mdl.tardiness, _read_plan(mdl, solver2)
     if proven:
-        left = min(time_limit - (time.perf_counter() - t0), TIEBREAK_SHARE * time_limit)
+        left = min(budget - (time.perf_counter() - t0), TIEBREAK_SHARE * budget)
         solver3, status = _next_stage(mdl, solver, done, True, mdl.completion, left,
                                       workers, seed)
         if status in _FOUND:

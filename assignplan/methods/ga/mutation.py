@@ -1,7 +1,7 @@
 """Bit-flip mutation of the assignment matrix, sampled sparsely (never touching every bit).
 
 Per-bit rate r and the expected work: an individual has J*N bits, so it sees r*J*N flips on
-average (`GAConfig.mutation_flips` = r*J*N). Almost all of them are 0 -> 1 flips, which add a
+average (`variation.mutation_flips` = r*J*N). Almost all of them are 0 -> 1 flips, which add a
 node to a row; one on an eligible node moves the job with probability 1/2 under the default
 repair (keep a random 1 of the row), one on an ineligible node is undone by repair. A 1 -> 0
 flip (rate r per row) empties the row and repair refills it. So with e_j eligible nodes out

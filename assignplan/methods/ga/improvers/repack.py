@@ -23,8 +23,9 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from assignplan.instance import Instance
-from assignplan.methods.exact import NodeSlots, add_job, add_node_capacity
-from assignplan.methods.ga.local import Evaluate, Key, critical_node
+from assignplan.methods.cpsat import NodeSlots, add_job, add_node_capacity
+from assignplan.methods.ga.critical import critical_node
+from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.methods.ga.repair import resource_work
 from assignplan.methods.ga.selection import lex_less
 from assignplan.schedule import build_schedule
@@ -108,7 +109,7 @@ def repack_nodes(inst: Instance, assign: np.ndarray, start: np.ndarray, nodes: n
     gave nothing; the same one comes back as None without a solve. A plan that stagnates is
     offered the same neighbourhood again and again on a small cluster.
     """
-    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    end = inst.end_times(assign, start)
     in_set = np.zeros(inst.n_nodes, dtype=bool)
     in_set[nodes] = True
     freed = np.flatnonzero(in_set[assign])
@@ -235,7 +236,7 @@ def repack_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
     with one fixed order the rebuilt plan is scored in that order and may not be.
     """
     start = build_schedule(inst, assign, order, justify=justify)
-    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    end = inst.end_times(assign, start)
     late = np.unique(assign[end == end.max()])
     cands = np.union1d(late, [critical_node(inst, assign, start, end)])
     crit = int(rng.choice(cands))

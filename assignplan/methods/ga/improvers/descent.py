@@ -5,8 +5,9 @@ Steps, for a job j of the last-ending node (its last-starting jobs first) and a 
 k (the earliest-ending first): j moves to k; or j takes the place of a job m of k, and m goes
 to the last-ending node (a swap) or to one of the CHAIN_PARTNERS earliest-ending other nodes
 (an ejection chain of two moves). When the makespan job waits along a chain of follows
-whose head waited for room on its node, one more step (`_waiting_head`) ends the head sooner:
-the frozen earliest starts hide the gain here, the ga's full decode of the result shows it.
+whose head waited for room on its node, one more step (`critical.waiting_head`) ends the
+head sooner: the frozen earliest starts hide the gain here, the ga's full decode of the
+result shows it.
 
 The ga's own local step (`local.improve`) scores every trial by decoding the whole batch,
 which on 2,000 jobs affords a few dozen trials a generation. Here a trial decodes the ~10
@@ -28,9 +29,10 @@ import numpy as np
 from numba import njit
 
 from assignplan.instance import Instance
-from assignplan.kernels import _earliest_start, _init_node, _place
-from assignplan.methods.ga.local import Evaluate, Key
-from assignplan.methods.ga.repack import adopt
+from assignplan.kernels import earliest_start, init_node, place
+from assignplan.methods.ga.critical import waiting_head
+from assignplan.methods.ga.improvers.repack import adopt
+from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.schedule import build_schedule
 
 CHAIN_PARTNERS = 8  # third nodes an ejection chain tries for the job it pushes out
@@ -43,7 +45,7 @@ def _decode_node(i, seq, n, skip, extra, earliest, latest, demand, duration, cap
     """Serial SGS of node i alone: jobs seq[:n] in that order except `skip`, then `extra`
     (each -1 for none). Writes end[j] of each job placed; returns the node's last end, 0 if
     it is empty, TOO_LATE if some job would end after latest[j]."""
-    _init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+    init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
     last = np.int64(0)
     for q in range(n + 1):
         if q < n:
@@ -55,11 +57,11 @@ def _decode_node(i, seq, n, skip, extra, earliest, latest, demand, duration, cap
             if j < 0:
                 break
         dur = np.int64(duration[j, i])
-        s, k = _earliest_start(seg_t, seg_f, 0, seg_n[i], earliest[j], dur, demand[j, 0],
+        s, k = earliest_start(seg_t, seg_f, 0, seg_n[i], earliest[j], dur, demand[j, 0],
                                demand[j, 1], demand[j, 2])
         if s < 0 or s + dur > latest[j]:
             return TOO_LATE
-        seg_n[i] = _place(seg_t, seg_f, 0, seg_n[i], k, s, dur, demand[j, 0], demand[j, 1],
+        seg_n[i] = place(seg_t, seg_f, 0, seg_n[i], k, s, dur, demand[j, 0], demand[j, 1],
                           demand[j, 2])
         end[j] = s + dur
         if s + dur > last:
@@ -230,7 +232,7 @@ def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
             ) -> tuple[np.ndarray, np.ndarray, int]:
     """(assign, start, moves kept) after the descent from a feasible plan; the inputs are not
     changed. Earliest starts and latest ends are frozen from this plan (module docstring)."""
-    end = start + inst.duration[np.arange(inst.n_jobs), assign]
+    end = inst.end_times(assign, start)
     earliest = inst.ready.astype(np.int64).copy()
     for j in np.flatnonzero(np.diff(inst.pred_ptr) > 0).tolist():
         earliest[j] = max(earliest[j], int(end[inst.predecessors(j)].max()))
@@ -241,12 +243,12 @@ def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
     moves, spent = _descend(new_assign, new_start, inst.eligible, earliest, latest,
                             inst.demand, inst.duration, inst.capacity, inst.maint_ptr,
                             inst.maint_start, inst.maint_end, budget, -1)
-    head = _waiting_head(inst, new_assign, new_start)
+    head = waiting_head(inst, new_start, inst.end_times(new_assign, new_start))
     if head >= 0 and spent < budget:
         # the makespan job waits, through a chain of follows, for `head`, which itself waited
         # for room on its node: one step that ends `head` sooner (the ga's full decode then
         # moves the chain up; frozen earliest starts cannot show it here)
-        end = new_start + inst.duration[np.arange(inst.n_jobs), new_assign]
+        end = inst.end_times(new_assign, new_start)
         latest = np.where(has_succ, end, TOO_LATE - 1).astype(np.int64)
         latest[head] = end[head] - 1
         pulled, _ = _descend(new_assign, new_start, inst.eligible, earliest, latest,
@@ -255,27 +257,6 @@ def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
                              int(new_assign[head]))
         moves += pulled
     return new_assign, new_start, int(moves)
-
-
-def _waiting_head(inst: Instance, assign: np.ndarray, start: np.ndarray) -> int:
-    """The first job of the follows chain the makespan job waited along, if that job waited
-    for room (started after its release and its predecessors' ends); else -1 (the makespan
-    job waits for room itself, or the chain starts as early as it can)."""
-    end = start + inst.duration[np.arange(inst.n_jobs), assign]
-    j = int(np.argmax(end))
-    walked = False
-    while True:
-        preds = inst.predecessors(j)
-        if len(preds) == 0:
-            break
-        p = int(preds[np.argmax(end[preds])])
-        if start[j] != end[p] or end[p] <= inst.ready[j]:
-            break
-        j, walked = p, True
-    if not walked:
-        return -1
-    ready = max([int(inst.ready[j])] + [int(end[p]) for p in inst.predecessors(j)])
-    return j if start[j] > ready else -1
 
 
 def descent_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,

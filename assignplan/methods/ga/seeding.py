@@ -1,0 +1,79 @@
+"""The initial population: greedy plans from several priority orders, balanced greedy plans,
+then random plans, each with the order keys that decode it."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from assignplan.instance import Instance, priority_order
+from assignplan.methods.ga.balance import balanced_eligibility
+from assignplan.methods.ga.encoding import EligibleIndex, random_population
+from assignplan.methods.ga.order_keys import orders_from_keys
+from assignplan.methods.ga.selection import lex_rank
+from assignplan.methods.ga.settings import GASettings
+from assignplan.methods.greedy import greedy_assign
+from assignplan.plan import objective
+from assignplan.schedule import check_order
+
+ALPHAS = (0.5, 1.0, 0.0)  # scarcity exponents of the greedy variants (0.5 helps most often)
+
+
+def greedy_variant_keys(inst: Instance, n: int, noise: float, *,
+                        rng: np.random.Generator) -> list[np.ndarray]:
+    """n pseudo-hour factors float64[J]: k_j = (N / e_j)^a_k * U(1 +- noise) (see below)."""
+    scarcity = inst.n_nodes / inst.eligible.sum(axis=1)
+    keys = []
+    for k in range(n):
+        eps = noise if k >= len(ALPHAS) - 1 else 0.0
+        noise_k = rng.uniform(1.0 - eps, 1.0 + eps, size=inst.n_jobs)
+        keys.append(scarcity ** ALPHAS[k % len(ALPHAS)] * noise_k)
+    return keys
+
+
+def greedy_variant_orders(inst: Instance, n: int, noise: float, *,
+                          rng: np.random.Generator) -> list[np.ndarray]:
+    """n priority orders: bottom levels of pseudo-hours h_j * (N / e_j)^a_k * U(1 +- noise).
+
+    e_j is job j's number of eligible nodes; a_k cycles through ALPHAS, so some variants
+    place the jobs few nodes can hold earlier (they then claim their special nodes before
+    plain jobs crowd them). The first len(ALPHAS) - 1 variants carry no noise. Bottom levels
+    of positive pseudo-hours still fall strictly along every `follows` edge, so each order
+    respects follows (and is checked to).
+    """
+    return [check_order(inst, priority_order(inst.hours * k, inst.pred_ptr, inst.pred_idx,
+                                             inst.succ_ptr, inst.succ_idx))
+            for k in greedy_variant_keys(inst, n, noise, rng=rng)]
+
+
+def initial_population(inst: Instance, settings: GASettings, index: EligibleIndex, *,
+                       rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, int]:
+    """(int64[mu, J] population, float64[mu, J] order keys, index of the best seed).
+
+    Members: the greedy plan of inst.order (keys 1), greedy plans of the orders of
+    `greedy_variant_keys` (each with its keys), greedy plans of the first of those orders
+    restricted to the node groups `balance.balanced_eligibility` gives each job (with those
+    orders' keys), then random eligible plans. The fixed decoding order (when orders do not
+    evolve) is the best seed's; random members get its keys. The builder replays a greedy
+    plan exactly under its own order, so with evolved orders every seed decodes to its greedy
+    plan, and with one fixed order the run starts from the best greedy plan: either way the
+    run never ends worse than greedy.
+    """
+    mu, seeding = settings.population.mu, settings.seeding
+    keys = [np.ones(inst.n_jobs)]
+    keys += greedy_variant_keys(inst, min(seeding.greedy_variants, mu - 1),
+                                seeding.order_noise, rng=rng)
+    variants = orders_from_keys(inst, np.stack(keys[1:])) if len(keys) > 1 else []
+    orders = [inst.order] + [check_order(inst, o) for o in variants]
+    plans = [greedy_assign(inst, order) for order in orders]
+    n_balanced = min(seeding.balanced_seeds, len(orders), mu - len(orders))
+    allowed = balanced_eligibility(inst) if n_balanced > 0 else None
+    if allowed is not None:
+        plans += [greedy_assign(inst, order, allowed) for order in orders[:n_balanced]]
+        keys += keys[:n_balanced]
+    scores = np.array([objective(inst, inst.end_times(assign, start))
+                       for assign, start in plans], dtype=np.float64)
+    best = int(np.argmin(lex_rank(scores)))
+    seeds = np.stack([assign for assign, _ in plans])
+    rest = random_population(inst, mu - len(seeds), index, rng=rng)
+    all_keys = np.stack(keys + [keys[best]] * len(rest))
+    return np.concatenate([seeds, rest]), all_keys, best

@@ -1,0 +1,131 @@
+"""Solve a batch with a method: the one way from an instance to a plan.
+
+Every method has the same signature (instance, seed, budget, its settings, a progress hook,
+the lower bound) and returns the one result type; this module owns what they share:
+
+- the registry of methods, each with the settings type it reads (a method given settings it
+  does not read is an error, never silently ignored);
+- the lower bound, computed once per batch (unless the caller has it) and attached to the
+  result in one place, raised to a bound the method proved itself (exact's);
+- the time budget: it counts from the call, so the bound's time comes off the method's share;
+- the exact method's size guard.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from assignplan.bounds import LowerBound, lower_bound
+from assignplan.errors import InputError
+from assignplan.instance import Instance
+from assignplan.methods.ga.settings import GASettings
+from assignplan.model import HistoryRow
+from assignplan.plan import PlanResult
+
+EXACT_MAX_JOBS = 300  # above this, exact rarely proves anything within a budget of minutes
+
+Progress = Callable[[HistoryRow], None]
+
+
+class ExactSettings(BaseModel):
+    """Settings of the exact method."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
+    force: bool = Field(default=False, description=(
+        f"Try batches above {EXACT_MAX_JOBS} jobs anyway (CP-SAT rarely proves optimality "
+        "there; the best plan found in the budget is returned)."))
+    workers: int = Field(default=0, ge=0, le=256,
+                         description="CP-SAT search workers; 0: one per core.")
+
+
+@dataclass(frozen=True)
+class Method:
+    """A registered method: how to run it and the settings type it reads (None: none)."""
+
+    name: str
+    run: Callable[..., PlanResult]
+    settings: type[BaseModel] | None
+    summary: str
+
+
+def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
+            progress: Progress | None, bound: int) -> PlanResult:
+    from assignplan.methods.greedy import solve_greedy
+
+    return solve_greedy(inst, lower_bound=bound)
+
+
+def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
+        progress: Progress | None, bound: int) -> PlanResult:
+    from assignplan.methods.ga import solve_ga
+
+    return solve_ga(inst, settings=settings, lower_bound=bound, seed=seed, budget=budget,
+                    on_generation=progress)
+
+
+def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
+           progress: Progress | None, bound: int) -> PlanResult:
+    from assignplan.methods.exact import solve_exact
+    from assignplan.methods.greedy import greedy_assign
+
+    if inst.n_jobs > EXACT_MAX_JOBS and not settings.force:
+        raise InputError(exact_too_big(inst.n_jobs) + "; use --method ga, or --force to try"
+                         " anyway")
+    return solve_exact(inst, lower_bound=bound, budget=budget, hint=greedy_assign(inst),
+                       seed=seed, workers=settings.workers)
+
+
+METHODS: dict[str, Method] = {m.name: m for m in (
+    Method("ga", _ga, GASettings, "genetic algorithm over the assignment matrix (default)"),
+    Method("greedy", _greedy, None, "list scheduling, longest job first, earliest finish"),
+    Method("exact", _exact, ExactSettings, "CP-SAT; proves optimality on small batches"),
+)}
+
+
+def exact_too_big(n_jobs: int) -> str:
+    """Why exact does not run on `n_jobs` jobs by default (one wording for solve and compare)."""
+    return (f"exact: {n_jobs:,} jobs is above the exact method's limit of {EXACT_MAX_JOBS};"
+            " it would not prove anything in time")
+
+
+def method_named(name: str) -> Method:
+    if name not in METHODS:
+        raise InputError(f"--method {name}: unknown method; choose one of "
+                         f"{', '.join(METHODS)}")
+    return METHODS[name]
+
+
+def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
+          settings: BaseModel | None = None, progress: Progress | None = None,
+          bound: LowerBound | None = None) -> PlanResult:
+    """Plan `inst` with `method` within `budget` seconds from this call.
+
+    `settings`: the method's settings object (default: its defaults); another type is an
+    error. `bound`: `bounds.lower_bound(inst)` when the caller already has it (then its time
+    is not charged here). The result carries the lower bound, its parts, and the method's
+    own seconds.
+    """
+    t0 = time.perf_counter()
+    chosen = method_named(method)
+    settings = _settings_for(chosen, settings)
+    if bound is None:
+        bound = lower_bound(inst, deadline=t0 + budget)
+    started = time.perf_counter()
+    result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
+                        settings=settings, progress=progress, bound=bound.value)
+    proven = max(bound.value, result.solver_bound or 0)
+    return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
+                   seconds=time.perf_counter() - started)
+
+
+def _settings_for(method: Method, settings: BaseModel | None) -> BaseModel | None:
+    if settings is None:
+        return None if method.settings is None else method.settings()
+    if method.settings is None or not isinstance(settings, method.settings):
+        raise InputError(f"{type(settings).__name__}: method {method.name} does not read "
+                         "these settings")
+    return settings
