@@ -6,7 +6,8 @@ Usage (from the repository root):
 
 For every chosen week it imports the jobs twice (hours = requested time, hours = actual run
 time), plans them with greedy and with ga, and reports jobs, makespan, lower bound, gap, core
-utilisation and seconds. It also measures the requested/actual run-time ratio over the whole trace. Results, not asserts.
+utilisation and seconds. It also measures the requested/actual run-time ratio over the whole
+trace. Results, not asserts.
 """
 
 from __future__ import annotations
