@@ -2,7 +2,7 @@
 
 Usage (from the repository root):
     .venv/bin/python benchmarks/bench_real_weeks.py [TRACE.swf] [--weeks 2,13,20,34,45]
-        [--nodes examples/inventory-24x32.json] [--ga-seconds 20] [--no-write]
+        [--inventory examples/inventory-24x32.json] [--ga-seconds 20] [--no-write]
 
 For every chosen week it imports the jobs twice (hours = requested time, hours = actual run
 time), plans them with greedy and with ga, and reports jobs, makespan, lower bound, gap, core
@@ -173,7 +173,7 @@ def headline(weeks: pd.DataFrame) -> str:
 
 def markdown(args, trace: Trace, weeks: pd.DataFrame, ratios: pd.DataFrame, facts: dict,
              methods: list[str]) -> str:
-    inv = load_inventory(args.nodes)
+    inv = load_inventory(args.inventory)
     nodes = ", ".join(f"{g.count} x {g.cores} cores / {g.memory_gib:g} GiB" for g in inv.nodes)
     lines = [
         SECTION, "",
@@ -181,7 +181,7 @@ def markdown(args, trace: Trace, weeks: pd.DataFrame, ratios: pd.DataFrame, fact
         f" --weeks {','.join(map(str, args.weeks))}`. Trace: Parallel Workloads Archive,"
         " KTH-SP2-1996-2.1-cln (IBM SP2, 100 nodes, 1996-97; Feitelson, Tsafrir, Krakov,"
         f" JPDC 74(10), 2014), {facts['jobs']} jobs, {trace.n_weeks} weeks.",
-        f"Inventory `{Path(args.nodes).name}` (invented): {nodes}. Each trace job becomes one"
+        f"Inventory `{Path(args.inventory).name}` (invented): {nodes}. Each trace job becomes one"
         " single-node job: cores = requested processors, 2 GiB per core (the trace records no"
         " memory), ready at its submit time within the week; jobs wider than 32 processors"
         f" are skipped. `nodes` = {sum(g.count for g in inv.nodes)}: that file;"
@@ -208,7 +208,7 @@ def markdown(args, trace: Trace, weeks: pd.DataFrame, ratios: pd.DataFrame, fact
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("trace", nargs="?", default=str(DEFAULT_TRACE))
-    parser.add_argument("--nodes", default=str(REPO / "examples" / "inventory-24x32.json"))
+    parser.add_argument("--inventory", default=str(REPO / "examples" / "inventory-24x32.json"))
     parser.add_argument("--weeks", type=lambda s: [int(w) for w in s.split(",")],
                         default=list(DEFAULT_WEEKS))
     parser.add_argument("--ga-seconds", type=float, default=20.0)
@@ -217,7 +217,7 @@ def main(argv: list[str] | None = None) -> None:
     args = parser.parse_args(argv)
 
     trace = read_swf(args.trace)
-    inventory = load_inventory(args.nodes)
+    inventory = load_inventory(args.inventory)
     methods = ["greedy", "ga"]
     # The full inventory is far larger than the traced machine (768 cores against 100
     # processors); a quarter of it makes the packing, not the arrival times, set the makespan.

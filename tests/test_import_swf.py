@@ -7,6 +7,7 @@ from collections import Counter
 from datetime import UTC, datetime
 from pathlib import Path
 
+import numpy as np
 import pytest
 import typer
 from typer.testing import CliRunner
@@ -16,6 +17,7 @@ from assignplan.importers import Inventory, load_inventory
 from assignplan.importers.cli import import_app
 from assignplan.importers.swf import parse_swf, read_swf, week_batch
 from assignplan.model import expand_batch, load_batch
+from assignplan.units import MAX_JOB_HOURS
 
 DATA = Path(__file__).parent / "data" / "swf"
 # Published source: Parallel Workloads Archive, KTH-SP2-1996-2.1-cln (Feitelson, Tsafrir,
@@ -45,8 +47,8 @@ def _invoke(*args: str):
 
 
 @pytest.fixture
-def nodes_file(tmp_path: Path) -> Path:
-    path = tmp_path / "nodes.json"
+def inventory_file(tmp_path: Path) -> Path:
+    path = tmp_path / "inventory.json"
     path.write_text(json.dumps(NODES), encoding="utf-8")
     return path
 
@@ -101,12 +103,12 @@ def test_slice_is_the_head_of_the_published_trace():
 
 
 @pytest.mark.parametrize("week", [1, 2, 3, 4, 5])
-@pytest.mark.parametrize("mem_per_core", [2.0, 4.0])
-def test_counts_agree_with_an_independent_count(trace, week, mem_per_core):
+@pytest.mark.parametrize("gib_per_core", [2.0, 4.0])
+def test_counts_agree_with_an_independent_count(trace, week, gib_per_core):
     # Published data: KTH-SP2 slice (Parallel Workloads Archive).
     inventory = Inventory.model_validate(NODES)
-    result = week_batch(trace, inventory, week, memory_per_core_gib=mem_per_core)
-    expected = _independent_count(SLICE, week, int(mem_per_core * 1024))
+    result = week_batch(trace, inventory, week, gib_per_core=gib_per_core)
+    expected = _independent_count(SLICE, week, int(gib_per_core * 1024))
     assert result.submitted == expected["submitted"]
     assert result.imported == expected["imported"] > 0
     too_large = sum(n for reason, n in result.skipped.items() if reason.startswith("larger"))
@@ -114,11 +116,11 @@ def test_counts_agree_with_an_independent_count(trace, week, mem_per_core):
     assert sum(result.skipped.values()) == expected["submitted"] - expected["imported"]
 
 
-def test_memory_per_core_changes_what_fits(trace):
+def test_gib_per_core_changes_what_fits(trace):
     # 4 GiB per core makes a 32-core job need 128 GiB, more than the 96 GiB node: more skips.
     inventory = Inventory.model_validate(NODES)
-    lean = week_batch(trace, inventory, 2, memory_per_core_gib=2.0)
-    fat = week_batch(trace, inventory, 2, memory_per_core_gib=4.0)
+    lean = week_batch(trace, inventory, 2, gib_per_core=2.0)
+    fat = week_batch(trace, inventory, 2, gib_per_core=4.0)
     assert fat.imported < lean.imported
 
 
@@ -152,7 +154,7 @@ def test_window_starts_at_the_trace_start_plus_weeks(trace):
     assert result.batch.window.hours == 168.0
 
 
-def test_window_from_node_file_and_start_option(trace):
+def test_window_from_inventory_and_start_option(trace):
     doc = {**NODES, "window": {"start": "2025-03-03T08:00:00+01:00", "hours": 120}}
     inventory = Inventory.model_validate_json(json.dumps(doc))
     from_file = week_batch(trace, inventory, 2)
@@ -207,8 +209,8 @@ def test_memory_from_the_trace_fields():
     gib_kb = 1024 * 1024  # SWF memory is KB per processor
     text = _swf(_job(1, 0, procs=4, req_kb=gib_kb, used_kb=gib_kb // 2), _job(2, 1, procs=2))
     inventory = Inventory.model_validate(NODES)
-    requested = week_batch(parse_swf(text), inventory, 1, memory_per_core_gib=3)
-    actual = week_batch(parse_swf(text), inventory, 1, estimate="actual", memory_per_core_gib=3)
+    requested = week_batch(parse_swf(text), inventory, 1, gib_per_core=3)
+    actual = week_batch(parse_swf(text), inventory, 1, estimate="actual", gib_per_core=3)
     assert [j.memory_gib for j in requested.batch.jobs] == [4.0, 6.0]
     assert [j.memory_gib for j in actual.batch.jobs] == [2.0, 6.0]
 
@@ -232,7 +234,7 @@ def test_duplicate_job_number_is_malformed():
         parse_swf(_swf(_job(1, 0), _job(1, 5)), "T.swf")
 
 
-def test_node_file_checks_name_the_node_file(tmp_path: Path):
+def test_node_checks_name_the_inventory_file(tmp_path: Path):
     path = tmp_path / "n.json"
     path.write_text(json.dumps({"nodes": [{"name": "a", "cores": 0, "memory_gib": 1}]}))
     with pytest.raises(InputError, match=r"n.json: nodes\[0\].cores: must be greater than 0"):
@@ -246,9 +248,9 @@ def test_node_file_checks_name_the_node_file(tmp_path: Path):
 # --------------------------------------------------------------------------- command line
 
 
-def test_cli_writes_a_batch_solve_accepts(tmp_path: Path, nodes_file: Path):
+def test_cli_writes_a_batch_solve_accepts(tmp_path: Path, inventory_file: Path):
     out = tmp_path / "week2.json"
-    result = _invoke("swf", str(SLICE), "--nodes", str(nodes_file), "--week", "2",
+    result = _invoke("swf", str(SLICE), "--inventory", str(inventory_file), "--week", "2",
                      "--out", str(out))
     assert result.exit_code == 0, result.stderr
     expected = _independent_count(SLICE, 2, 2048)
@@ -262,14 +264,14 @@ def test_cli_writes_a_batch_solve_accepts(tmp_path: Path, nodes_file: Path):
     assert solved.exit_code == 0, solved.stderr
 
 
-def test_cli_skip_bad_counts_and_continues(tmp_path: Path, nodes_file: Path):
+def test_cli_skip_bad_counts_and_continues(tmp_path: Path, inventory_file: Path):
     trace = tmp_path / "T.swf"
     trace.write_text(_swf(_job(1, 0), "2 5 0", _job(3, 9)))
     out = tmp_path / "b.json"
-    result = _invoke("swf", str(trace), "--nodes", str(nodes_file), "--week", "1",
+    result = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", "1",
                      "--skip-bad", "--out", str(out))
     assert result.exit_code == 0, result.stderr
-    assert "skipped 1 malformed lines" in result.stderr
+    assert "skipped 1 malformed line of the trace" in result.stderr
     assert [j.name for j in load_batch(out).jobs] == ["job-1", "job-3"]
 
 
@@ -285,39 +287,254 @@ BAD_TRACES = {
     "empty week": (_swf(_job(1, 0), _job(2, 2 * WEEK + 5)), 2,
                    "T.swf: week 2 has no jobs (none submitted between day 7 and day 14"),
     "nothing importable": (_swf(_job(1, 0, procs=64)), 1,
-                           "T.swf: week 1: none of its 1 jobs can be imported"),
+                           "T.swf: week 1: its only job cannot be imported"),
 }
 
 
 @pytest.mark.parametrize("case", sorted(BAD_TRACES))
-def test_cli_bad_trace_exits_2_and_writes_nothing(tmp_path: Path, nodes_file: Path, case):
+def test_cli_bad_trace_exits_2_and_writes_nothing(tmp_path: Path, inventory_file: Path, case):
     text, week, message = BAD_TRACES[case]
     trace = tmp_path / "T.swf"
     trace.write_text(text)
     out = tmp_path / "b.json"
-    result = _invoke("swf", str(trace), "--nodes", str(nodes_file), "--week", str(week),
+    result = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", str(week),
                      "--out", str(out))
     assert result.exit_code == 2
     assert message in result.stderr
     assert "Traceback" not in result.stderr
-    assert set(tmp_path.iterdir()) == {trace, nodes_file}  # no batch, no temp file
+    assert set(tmp_path.iterdir()) == {trace, inventory_file}  # no batch, no temp file
 
 
-def test_cli_missing_node_file(tmp_path: Path):
+def test_cli_missing_inventory_file(tmp_path: Path):
     out = tmp_path / "b.json"
-    missing = tmp_path / "NODES.json"
-    result = _invoke("swf", str(SLICE), "--nodes", str(missing), "--week", "1", "--out", str(out))
+    missing = tmp_path / "INVENTORY.json"
+    result = _invoke("swf", str(SLICE), "--inventory", str(missing), "--week", "1",
+                     "--out", str(out))
     assert result.exit_code == 2
     assert result.stderr.strip() == f"{missing}: no such file"
     assert not out.exists()
 
 
-def test_cli_missing_trace_and_bad_start(tmp_path: Path, nodes_file: Path):
+def test_cli_missing_trace_and_bad_start(tmp_path: Path, inventory_file: Path):
     out = tmp_path / "b.json"
-    missing = _invoke("swf", str(tmp_path / "none.swf"), "--nodes", str(nodes_file),
+    missing = _invoke("swf", str(tmp_path / "none.swf"), "--inventory", str(inventory_file),
                       "--week", "1", "--out", str(out))
     assert missing.exit_code == 2 and "none.swf: no such file" in missing.stderr
-    bad_start = _invoke("swf", str(SLICE), "--nodes", str(nodes_file), "--week", "1",
+    bad_start = _invoke("swf", str(SLICE), "--inventory", str(inventory_file), "--week", "1",
                         "--start", "next monday", "--out", str(out))
     assert bad_start.exit_code == 2 and "--start next monday: not an ISO 8601" in bad_start.stderr
     assert not out.exists()
+
+
+# --------------------------------------------------------------------------- not a trace at all
+
+EXAMPLES = Path(__file__).parent.parent / "examples"
+SWF_RULE = "not an SWF trace (one job per line: 18 whitespace-separated numbers)"
+NOT_TRACES = {
+    "json batch": ((EXAMPLES / "small.json").read_bytes(), f"looks like JSON, {SWF_RULE}"),
+    "csv table": ((EXAMPLES / "jobs-template.csv").read_bytes(),
+                  f"looks like a CSV table, {SWF_RULE}"),
+    "binary with NUL bytes": (bytes(range(256)) * 8, f"looks like a binary file, {SWF_RULE}"),
+    # Seeded bytes without a NUL: caught by the share of bytes that are neither UTF-8 nor text.
+    "binary without NUL": (np.random.default_rng(0).integers(1, 256, 600, dtype=np.uint8)
+                           .tobytes(), f"looks like a binary file, {SWF_RULE}"),
+    "empty file": (b"", f"empty file, {SWF_RULE}"),
+    "blank lines": (b"\n  \n\n", f"empty file, {SWF_RULE}"),
+    "plain text": (b"Job list for next week\nsee the spreadsheet\n",
+                   f"looks like plain text, {SWF_RULE}"),
+    "utf-16 text": ("1 0 0 600 4 -1 -1 4 3600 -1 1 1 1 -1 -1 -1 -1 -1\n".encode("utf-16"),
+                    "UTF-16 text; save it with the UTF-8 encoding"),
+    "header only": (b"; Version: 2.2\n; UnixStartTime: 1000000000\n",
+                    "';' header lines but no job lines (an SWF trace has one job per line: 18"
+                    " whitespace-separated numbers)"),
+    "no line of 18 numbers": (b"; Version: 2.2\n1 0 600 4\n2 5 600 4\n3 9 600 4\n",
+                              "not an SWF trace: none of its 3 lines outside ';' comments is a"
+                              " job line of 18 whitespace-separated numbers (line 2: expected"
+                              " 18 fields, found 4)"),
+}
+
+
+@pytest.mark.parametrize("skip_bad", [False, True])
+@pytest.mark.parametrize("case", sorted(NOT_TRACES))
+def test_cli_file_that_is_not_a_trace_is_one_line(tmp_path: Path, inventory_file: Path, case,
+                                                  skip_bad):
+    data, message = NOT_TRACES[case]
+    trace = tmp_path / "T.swf"
+    trace.write_bytes(data)
+    out = tmp_path / "b.json"
+    result = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", "1",
+                     "--out", str(out), *(["--skip-bad"] if skip_bad else []))
+    assert result.exit_code == 2
+    assert result.stderr.splitlines() == [f"{trace}: {message}"]
+    assert set(tmp_path.iterdir()) == {trace, inventory_file}
+
+
+def test_non_utf8_comment_does_not_stop_a_trace(tmp_path: Path):
+    # A header comment written in Latin-1 (0xE4 is an a-umlaut there); its job lines are numbers.
+    trace = tmp_path / "T.swf"
+    trace.write_bytes(b"; Installation: Universit\xe4t\n" + _swf(_job(1, 0), header="").encode())
+    assert [int(n) for n in read_swf(trace).jobs[:, 0]] == [1]
+
+
+# --------------------------------------------------------------------------- counts and names
+
+
+def test_cli_counts_in_the_right_number(tmp_path: Path, inventory_file: Path):
+    trace = tmp_path / "T.swf"
+    trace.write_text(_swf(_job(1, 0), _job(2, 5, procs=64), "3 9 0", _job(4, 20, preceding=2),
+                          _job(5, 30, preceding=99)))
+    out = tmp_path / "b.json"
+    result = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", "1",
+                     "--skip-bad", "--out", str(out))
+    assert result.exit_code == 0, result.stderr
+    lines = result.stderr.splitlines()
+    assert lines[0].startswith(f"{trace}: imported 3 of 4 jobs of week 1")
+    assert lines[1:] == [
+        "skipped 1 job: larger than the largest node (32 cores, 96 GiB)",
+        "skipped 1 malformed line of the trace",
+        "dropped 1 follows link: the preceding job was skipped",
+        "ignored 1 follows link to jobs of other weeks",
+    ]
+    assert result.stdout == f"wrote {out}: 3 jobs\n"
+    trace.write_text(_swf(_job(1, 0)))
+    one = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", "1",
+                  "--out", str(out))
+    assert "imported 1 of 1 job of week 1" in one.stderr and one.stdout == f"wrote {out}: 1 job\n"
+    beyond = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", "2",
+                     "--out", str(out))
+    assert beyond.stderr == f"{trace}: week 2 is beyond the trace (its submit times cover week 1"\
+        " only)\n"
+
+
+def test_trace_without_one_readable_job_line_says_skip_bad_would_not_help():
+    # Lines that look like job lines (18 numbers) but are all malformed: listed as in any
+    # trace, and no suggestion of --skip-bad, which would import nothing.
+    text = _swf(_job(1, 0, run=-30), _job(2, 5, run=-30))
+    with pytest.raises(InputError) as err:
+        parse_swf(text, "T.swf", skip_bad=True)
+    assert err.value.problems == [
+        "T.swf:2: field 4 (run time) is -30; only -1 (unknown) may be negative",
+        "T.swf:3: field 4 (run time) is -30; only -1 (unknown) may be negative",
+        "T.swf: not one of its 2 job lines could be read, so --skip-bad would import nothing",
+    ]
+
+
+def test_cli_many_malformed_lines_are_summarised_in_the_right_number(tmp_path: Path,
+                                                                     inventory_file: Path):
+    trace = tmp_path / "T.swf"
+    trace.write_text(_swf(_job(1, 0), *["2 5 0"] * 21))
+    result = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", "1",
+                     "--out", str(tmp_path / "b.json"))
+    assert result.exit_code == 2
+    assert result.stderr.splitlines()[-1] == "... and 1 more malformed line (use --skip-bad to"\
+        " skip them)"
+
+
+def test_cli_gib_per_core_sets_the_memory_of_jobs_without_one(tmp_path: Path,
+                                                              inventory_file: Path):
+    trace = tmp_path / "T.swf"
+    trace.write_text(_swf(_job(1, 0, procs=4)))
+    out = tmp_path / "b.json"
+    result = _invoke("swf", str(trace), "--inventory", str(inventory_file), "--week", "1",
+                     "--gib-per-core", "3", "--out", str(out))
+    assert result.exit_code == 0, result.stderr
+    assert [j.memory_mib for j in load_batch(out).jobs] == [12 * 1024]
+
+
+@pytest.mark.parametrize(("args", "message"), [
+    (["--gib-per-core", "0"], "--gib-per-core 0: must be greater than 0"),
+    (["--gib-per-core", "nan"], "--gib-per-core nan: not a number of GiB"),
+    (["--gib-per-core", "inf"], "--gib-per-core inf: not a number of GiB"),
+    (["--gib-per-core", "two"], "--gib-per-core two: not a number of GiB"),
+    (["--week", "0"], "--week 0: weeks are numbered from 1"),
+    (["--week", "1.5"], "--week 1.5: not a whole number"),
+    (["--estimate", "guess"], "--estimate guess: choose requested or actual"),
+])
+def test_cli_bad_option_values_in_our_words(tmp_path: Path, inventory_file: Path, args, message):
+    out = tmp_path / "b.json"
+    week = [] if "--week" in args else ["--week", "1"]
+    result = _invoke("swf", str(SLICE), "--inventory", str(inventory_file), *week,
+                     *args, "--out", str(out))
+    assert result.exit_code == 2
+    assert result.stderr == message + "\n"
+    assert not out.exists()
+
+
+def test_run_time_over_the_planners_limit_is_skipped():
+    # units.MAX_JOB_HOURS is the largest job the model plans; a longer request is skipped,
+    # not left to fail the whole import.
+    text = _swf(_job(1, 0), _job(2, 5, req_time=int(MAX_JOB_HOURS * 3600) + 1))
+    result = week_batch(parse_swf(text, "t.swf"), Inventory.model_validate(NODES), 1)
+    assert [j.name for j in result.batch.jobs] == ["job-1"]
+    assert result.skipped == {"run time over the planner's limit of 10,000 h": 1}
+
+
+def test_batch_problems_name_the_trace_line():
+    # Two jobs each preceded by the other: a cycle, told at the line of the job it starts at.
+    text = _swf(_job(1, 0, preceding=2), _job(2, 5, preceding=1))
+    with pytest.raises(InputError) as err:
+        week_batch(parse_swf(text, "T.swf"), Inventory.model_validate(NODES), 1)
+    assert err.value.problems == [
+        "T.swf:2 (job-1).follows: dependency cycle job-1 -> job-2 -> job-1 (each must end"
+        " before the next starts)"
+    ]
+
+
+# --------------------------------------------------------------------------- the inventory
+
+
+def test_cli_batch_file_as_inventory_is_used_with_a_note(tmp_path: Path):
+    batch = EXAMPLES / "small.json"
+    trace = tmp_path / "T.swf"
+    trace.write_text(_swf(_job(1, 0), _job(2, 60)))
+    out = tmp_path / "b.json"
+    result = _invoke("swf", str(trace), "--inventory", str(batch), "--week", "1",
+                     "--out", str(out))
+    assert result.exit_code == 0, result.stderr
+    n_groups = len(json.loads(batch.read_text())["jobs"])
+    assert result.stderr.splitlines()[0] == (
+        f"{batch}: a batch file: its window and nodes are the inventory, its {n_groups} job"
+        f" groups ignored (the jobs come from {trace})")
+    written = load_batch(out)
+    assert [j.name for j in written.jobs] == ["job-1", "job-2"]
+    assert {n.group for n in written.nodes} == {"cpu", "bigmem", "gpu"}
+
+
+INVENTORY_PROBLEMS = {
+    "empty node list": ('{"nodes": []}', "I.json: nodes: an empty list; at least one entry is"
+                        " needed"),
+    "name with a space": ('{"nodes": [{"name": "cpu node", "cores": 4, "memory_gib": 8}]}',
+                          "I.json: nodes[0].name: 'cpu node' is not a valid name: use only"
+                          " letters, digits and _ . : + - (no spaces)"),
+    "unknown field": ('{"nodes": [{"name": "a", "cores": 4, "memory_gib": 8, "ram": 8}]}',
+                      "I.json: nodes[0].ram: unknown field; the fields here are name, count,"
+                      " cores, memory_gib, gpus, speed, tags, maintenance"),
+    "not whole": ('{"nodes": [{"name": "a", "cores": 4.5, "memory_gib": 8}]}',
+                  "I.json: nodes[0].cores: 4.5 is not a whole number"),
+    "not a list": ('{"nodes": {"name": "a"}}', "I.json: nodes: {...} is not a list [...]"),
+    "bad start": ('{"window": {"start": "next monday"}, "nodes": [{"name": "a", "cores": 4,'
+                  ' "memory_gib": 8}]}',
+                  "I.json: window.start: 'next monday' is not an ISO 8601 date and time"
+                  " (2025-03-03T08:00)"),
+    "unclosed": ('{"nodes": [\n', "I.json:line 2 column 1: not valid JSON: the text ends before"
+                 " the document does (a '}' or ']' is missing)"),
+    "missing comma": ('{"nodes": []\n "window": {}}', "I.json:line 2 column 2: not valid JSON:"
+                      " a comma is missing between two entries"),
+    "single quotes": ("{'nodes': []}", "I.json:line 1 column 2: not valid JSON: a field name in"
+                      " double quotes is expected here (a comma before '}' is one too many)"),
+    "a CSV": ("name,cores\na,1\n", 'I.json: looks like a CSV table, not a JSON inventory'
+              ' ({"window": {...}, "nodes": [...]})'),
+    "not UTF-8": (b'{"nodes": [\n{"name": "n\xe9", "cores": 1, "memory_gib": 1}]}',
+                  "I.json:line 2: not UTF-8 text (byte 0xE9); save the file with the UTF-8"
+                  " encoding"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(INVENTORY_PROBLEMS))
+def test_inventory_problems_in_our_words(tmp_path: Path, case):
+    text, message = INVENTORY_PROBLEMS[case]
+    path = tmp_path / "I.json"
+    path.write_bytes(text if isinstance(text, bytes) else text.encode())
+    with pytest.raises(InputError) as err:
+        load_inventory(path)
+    assert [p.replace(str(tmp_path) + "/", "") for p in err.value.problems] == [message]

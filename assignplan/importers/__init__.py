@@ -1,55 +1,81 @@
 """Importers: turn an accounting trace (SWF) or a job spreadsheet (CSV) into a batch document.
 
-Both importers take the admin's own inventory from a node file, a JSON document
-``{"window": {...}?, "nodes": [...]}`` in the batch's node-group format, and hand back a
-`Batch` that has already passed the same validation and cross-field checks as a batch file,
-so `assignplan solve` accepts what they write unchanged.
+Both importers take the admin's own inventory from an inventory file, a JSON document
+``{"window": {...}?, "nodes": [...]}`` in the batch's node-group format (a whole batch file
+will do: its jobs are ignored), and hand back a `Batch` that has already passed the same
+validation and cross-field checks as a batch file, so `assignplan solve` accepts what they
+write unchanged.
 """
 
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from assignplan.errors import InputError
+from assignplan.importers.problems import json_syntax_problem, validation_problems
+from assignplan.importers.reading import decode_utf8, looks_like, read_bytes, wrong_kind
 from assignplan.model import (
     Batch,
     NodeGroup,
     Window,
     _expand_nodes,
-    _format_validation_error,
     expand_batch,
     parse_batch_text,
-    read_text,
 )
 from assignplan.report.exports import atomic_write_text, check_output_file
+from assignplan.units import counted
+
+INVENTORY_KIND = 'a JSON inventory ({"window": {...}, "nodes": [...]})'
 
 
 class Inventory(BaseModel):
-    """A node file: the cluster's node groups and, optionally, the planning window.
+    """An inventory file: the cluster's node groups and, optionally, the planning window.
 
     The window is optional because a trace replay can take its start from the trace; the CSV
-    importer, whose jobs carry no calendar, requires it.
+    importer, whose jobs carry no calendar, requires it. A batch file is an inventory too: its
+    `jobs` are accepted unread and left out of everything the importers write.
     """
 
     model_config = ConfigDict(strict=True, extra="forbid", frozen=True)
     window: Window | None = None
     nodes: list[NodeGroup] = Field(min_length=1)
+    jobs: Any = Field(default=None, exclude=True,
+                      description="A batch file's jobs, ignored: the importers bring their own.")
+
+    def notes(self, source: str, jobs_source: str) -> list[str]:
+        """What the admin should know about this inventory file (read from `source`)."""
+        if self.jobs is None:
+            return []
+        what = counted(len(self.jobs), "job group") if isinstance(self.jobs, list) else "jobs"
+        return [f"{source}: a batch file: its window and nodes are the inventory, its {what}"
+                f" ignored (the jobs come from {jobs_source})"]
 
 
 def load_inventory(path: Path | str) -> Inventory:
-    """Read and validate a node file; every problem is one line naming the file and JSON path.
+    """Read and validate an inventory file; every problem is one line naming the file and
+    its JSON path (or line and column).
 
     The node checks of a batch (duplicate names, maintenance windows) run here too, so their
-    problems name the node file rather than the jobs' source.
+    problems name the inventory file rather than the jobs' source.
     """
+    data = read_bytes(path)
+    kind = looks_like(data)
+    if kind != "json":
+        raise wrong_kind(path, kind, INVENTORY_KIND)
+    text = decode_utf8(data, path)
+    syntax = json_syntax_problem(text, str(path))
+    if syntax:
+        raise InputError(syntax)
     try:
-        inventory = Inventory.model_validate_json(read_text(path))
+        inventory = Inventory.model_validate_json(text)
     except ValidationError as err:
-        raise InputError([f"{path}: {line}" for line in _format_validation_error(err)]) from None
+        raise InputError([f"{path}: {line}" for line in validation_problems(err, Inventory)]
+                         ) from None
     problems: list[str] = []
     _expand_nodes(inventory, problems)  # reads only `.nodes`, which an Inventory has
     if problems:
@@ -57,15 +83,37 @@ def load_inventory(path: Path | str) -> Inventory:
     return inventory
 
 
-def finish_batch(doc: dict[str, Any], source: str) -> Batch:
+def batch_size(batch: Batch) -> str:
+    """'62 jobs', or '7 job groups (62 jobs)' when `count` groups them."""
+    jobs = sum(group.count for group in batch.jobs)
+    if jobs == len(batch.jobs):
+        return counted(jobs, "job")
+    return f"{counted(len(batch.jobs), 'job group')} ({counted(jobs, 'job')})"
+
+
+def finish_batch(doc: dict[str, Any], source: str, where: list[str] | None = None) -> Batch:
     """Validate a built batch document exactly as a batch file would be, then return it.
 
     Going through the JSON text (not the Python objects) is deliberate: it is the very path
-    `assignplan solve` takes, so what passes here is what solve accepts.
+    `assignplan solve` takes, so what passes here is what solve accepts. A problem of
+    ``jobs[k]`` is told at ``where[k]`` (the row or line the job came from) when given.
     """
-    batch = parse_batch_text(json.dumps(doc, default=str), source)
-    expand_batch(batch, source=source)
+    try:
+        batch = parse_batch_text(json.dumps(doc, default=str), source)
+        expand_batch(batch, source=source)
+    except InputError as err:
+        if where is None:
+            raise
+        raise InputError([_relocate(p, source, where) for p in err.problems]) from None
     return batch
+
+
+def _relocate(problem: str, source: str, where: list[str]) -> str:
+    """``SRC: jobs[5].hours: ...`` -> ``JOBS.csv:row 7 (jobs[5]).hours: ...``."""
+    match = re.match(rf"{re.escape(source)}: jobs\[(\d+)\]", problem)
+    if not match:
+        return problem
+    return where[int(match.group(1))] + problem[match.end():]
 
 
 def batch_json(batch: Batch) -> str:

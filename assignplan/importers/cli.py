@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 from datetime import datetime
-from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
 
@@ -18,15 +17,11 @@ import_app = typer.Typer(
 )
 
 
-class Estimate(StrEnum):
-    requested = "requested"
-    actual = "actual"
-
-
-NodesOpt = Annotated[Path, typer.Option(
-    "--nodes", show_default=False,
-    help='Node file: {"window": {...}, "nodes": [...]} in the batch\'s node format.')]
-OutOpt = Annotated[Path, typer.Option("--out", show_default=False,
+InventoryOpt = Annotated[Path, typer.Option(
+    "--inventory", show_default=False, metavar="INVENTORY.json",
+    help='The nodes and window: {"window": {...}, "nodes": [...]} as in a batch file (a'
+    " batch file will do: its jobs are ignored).")]
+OutOpt = Annotated[Path, typer.Option("--out", show_default=False, metavar="BATCH.json",
                                       help="Batch JSON to write (atomically).")]
 
 
@@ -38,6 +33,15 @@ def _run(work) -> None:
         for line in err.problems:
             typer.echo(line, err=True)
         raise typer.Exit(err.exit_code) from None
+
+
+def _parse_number(option: str, text: str, *, whole: bool, unit: str = "") -> float:
+    """An option's number, parsed here so that a typo is told in our words, not the parser's."""
+    try:
+        return int(text) if whole else float(text)
+    except ValueError:
+        what = "a whole number" if whole else "a number"
+        raise InputError(f"{option} {text}: not {what}{unit}") from None
 
 
 def _parse_start(text: str | None) -> datetime | None:
@@ -53,35 +57,39 @@ def _parse_start(text: str | None) -> datetime | None:
 @import_app.command("swf")
 def swf_command(
     trace: Annotated[Path, typer.Argument(show_default=False, help="SWF accounting trace.")],
-    nodes: NodesOpt,
-    week: Annotated[int, typer.Option(min=1, show_default=False,
+    inventory: InventoryOpt,
+    week: Annotated[str, typer.Option(show_default=False, metavar="K",
                                       help="Week of the trace, from 1: jobs submitted in"
                                       " [(K-1)*7 d, K*7 d) after its start.")],
     out: OutOpt,
     start: Annotated[str | None, typer.Option(
-        help="Window start (ISO 8601). Default: the node file's window, else the trace's"
+        help="Window start (ISO 8601). Default: the inventory's window, else the trace's"
         " UnixStartTime + (K-1) weeks, else 2000-01-03 + (K-1) weeks.")] = None,
-    estimate: Annotated[Estimate, typer.Option(
-        help="Job hours from the requested time or the actual run time.")] = Estimate.requested,
-    memory_per_core_gib: Annotated[float, typer.Option(
-        help="Memory per core when the trace records none.")] = 2.0,
+    estimate: Annotated[str, typer.Option(
+        metavar="requested|actual",
+        help="Job hours from the requested time or the actual run time.")] = "requested",
+    gib_per_core: Annotated[str, typer.Option(
+        metavar="GIB", help="Memory (GiB) per core of a job whose trace line records none."
+    )] = "2",
     skip_bad: Annotated[bool, typer.Option(
-        help="Skip and count malformed lines instead of stopping.")] = False,
+        "--skip-bad", help="Skip and count malformed lines instead of stopping.")] = False,
 ) -> None:
     """Replay one week of a real trace on your inventory: one single-node job per trace job."""
-    from assignplan.importers import write_batch
+    from assignplan.importers import batch_size, write_batch
     from assignplan.importers.swf import import_swf
     from assignplan.report.exports import check_output_file
 
     def work() -> None:
         check_output_file(out, "--out")
-        result = import_swf(trace, nodes, week, start=_parse_start(start),
-                            estimate=estimate.value, memory_per_core_gib=memory_per_core_gib,
-                            skip_bad=skip_bad)
+        result = import_swf(
+            trace, inventory, int(_parse_number("--week", week, whole=True)),
+            start=_parse_start(start), estimate=estimate, skip_bad=skip_bad,
+            gib_per_core=_parse_number("--gib-per-core", gib_per_core, whole=False,
+                                       unit=" of GiB"))
         write_batch(result.batch, out)
         for line in result.report_lines():
             typer.echo(line, err=True)
-        typer.echo(f"wrote {out}: {result.imported} jobs")
+        typer.echo(f"wrote {out}: {batch_size(result.batch)}")
 
     _run(work)
 
@@ -89,22 +97,22 @@ def swf_command(
 @import_app.command("csv")
 def csv_command(
     jobs: Annotated[Path, typer.Argument(
-        show_default=False, help="CSV, one job per row, columns named as the JSON job fields"
-        " (needs/follows separated by ';').")],
-    nodes: Annotated[Path, typer.Option(
-        "--nodes", show_default=False,
-        help='Node file with the window: {"window": {...}, "nodes": [...]}. Required.')],
+        show_default=False, help="CSV, one job per row, columns named as the JSON job fields;"
+        " cells separated by ',', ';' or tabs (needs/follows: names separated by ';' or ',').")],
+    inventory: InventoryOpt,
     out: OutOpt,
 ) -> None:
     """Read a job spreadsheet into a batch, validated like a batch file."""
-    from assignplan.importers import write_batch
+    from assignplan.importers import batch_size, write_batch
     from assignplan.importers.table import import_csv
     from assignplan.report.exports import check_output_file
 
     def work() -> None:
         check_output_file(out, "--out")
-        batch = import_csv(jobs, nodes)
-        write_batch(batch, out)
-        typer.echo(f"wrote {out}: {len(batch.jobs)} jobs")
+        result = import_csv(jobs, inventory)
+        write_batch(result.batch, out)
+        for line in result.notes:
+            typer.echo(line, err=True)
+        typer.echo(f"wrote {out}: {batch_size(result.batch)}")
 
     _run(work)

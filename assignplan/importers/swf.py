@@ -6,13 +6,14 @@ week becomes a single-node job on the admin's own inventory: its processors beco
 requested (or actual) run time becomes hours, its submit time its ready time, and its
 "preceding job" a `follows` link when that job is imported in the same week (the SWF think
 time after it is not modelled: `follows` has no lag). Memory in SWF is KB per processor, read
-as KiB.
+as KiB. A file that is not a trace at all (JSON, a CSV table, a binary file, an empty file)
+is told in one line, not line by line.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Literal
@@ -21,7 +22,9 @@ import numpy as np
 
 from assignplan.errors import InputError
 from assignplan.importers import Inventory, finish_batch, load_inventory
-from assignplan.model import Batch, read_text
+from assignplan.importers.reading import looks_like, read_bytes, wrong_kind
+from assignplan.model import Batch
+from assignplan.units import MAX_JOB_HOURS, counted
 
 FIELDS = (
     "job number", "submit time", "wait time", "run time", "allocated processors",
@@ -32,7 +35,9 @@ FIELDS = (
 (JOB, SUBMIT, WAIT, RUN, ALLOC, CPU, USED_MEM, REQ_PROCS, REQ_TIME, REQ_MEM, STATUS,
  USER, GROUP, EXE, QUEUE, PARTITION, PRECEDING, THINK) = range(len(FIELDS))
 WEEK_S = 7 * 24 * 3600
-# Without a start in the node file or the trace, week 1 starts on a fixed Monday so that the
+SWF_LINE = "one job per line: 18 whitespace-separated numbers"
+SWF_KIND = f"an SWF trace ({SWF_LINE})"
+# Without a start in the inventory file or the trace, week 1 starts on a fixed Monday so that the
 # same command always writes the same batch.
 FIXED_START = datetime(2000, 1, 3, tzinfo=UTC)
 MAX_LISTED = 20  # malformed lines listed one by one before the rest are summarised
@@ -67,7 +72,13 @@ class Trace:
 
 
 def parse_swf(text: str, source: str = "<swf>", *, skip_bad: bool = False) -> Trace:
-    """Parse SWF text; malformed lines are errors naming their line, or skipped if asked."""
+    """Parse SWF text; malformed lines are errors naming their line, or skipped if asked.
+
+    Text in which not one line is a job line is not a trace: one line says what it looks like.
+    """
+    kind = looks_like(text[:8192].encode("utf-8"))
+    if kind in ("empty", "binary", "json"):
+        raise wrong_kind(source, kind, SWF_KIND)
     rows: list[list[float]] = []
     lines: list[int] = []
     bad: list[str] = []
@@ -89,17 +100,44 @@ def parse_swf(text: str, source: str = "<swf>", *, skip_bad: bool = False) -> Tr
             continue
         rows.append(values)
         lines.append(lineno)
-    if bad and not skip_bad:
-        raise InputError(_listed(bad, "malformed lines (use --skip-bad to skip them)"))
     if not rows:
-        raise InputError(f"{source}: no job lines" + (" that could be read" if bad else ""))
+        raise _not_a_trace(source, kind, bad)
+    if bad and not skip_bad:
+        raise InputError(_listed(bad, "malformed line", "(use --skip-bad to skip them)"))
     jobs = np.asarray(rows, dtype=np.float64)
     return Trace(source, jobs, np.asarray(lines, dtype=np.int64), unix_start, tuple(bad))
 
 
 def read_swf(path: Path | str, *, skip_bad: bool = False) -> Trace:
-    """Read and parse an SWF file (see `parse_swf`)."""
-    return parse_swf(read_text(path), str(path), skip_bad=skip_bad)
+    """Read and parse an SWF file (see `parse_swf`).
+
+    Bytes that are not UTF-8 are read as replacement characters: in a trace they can only sit
+    in ';' comments (a job line holds numbers), so a comment in another encoding does no harm.
+    """
+    data = read_bytes(path)
+    kind = looks_like(data)
+    if kind in ("binary", "utf16"):
+        raise wrong_kind(path, kind, SWF_KIND)
+    return parse_swf(data.decode("utf-8", errors="replace"), str(path), skip_bad=skip_bad)
+
+
+def _not_a_trace(source: str, kind: str, bad: list[str]) -> InputError:
+    """The problem of text without a single job line that could be read: one line, unless its
+    first line looks like a trace line, when the malformed lines are listed as in a trace."""
+    if not bad:
+        return InputError(f"{source}: ';' header lines but no job lines (an SWF trace has"
+                          f" {SWF_LINE})")
+    if kind in ("csv", "text"):
+        return wrong_kind(source, kind, SWF_KIND)
+    if kind == "swf":
+        return InputError(_listed(bad, "malformed line", "") + [
+            f"{source}: not one of its {counted(len(bad), 'job line')} could be read, so"
+            " --skip-bad would import nothing"])
+    first = bad[0].removeprefix(f"{source}:")
+    return InputError(
+        f"{source}: not an SWF trace: none of its {counted(len(bad), 'line')} outside ';'"
+        f" comments is a job line of 18 whitespace-separated numbers (line {first})"
+    )
 
 
 def _header_start(line: str, lineno: int, source: str) -> int | None:
@@ -143,10 +181,11 @@ def _check_unique(number: int, lineno: int, source: str, first_line: dict[int, i
     first_line[number] = lineno
 
 
-def _listed(problems: list[str], what: str) -> list[str]:
+def _listed(problems: list[str], noun: str, hint: str) -> list[str]:
     out = problems[:MAX_LISTED]
     if len(problems) > MAX_LISTED:
-        out.append(f"... and {len(problems) - MAX_LISTED} more {what}")
+        more = counted(len(problems) - MAX_LISTED, "more " + noun)
+        out.append(f"... and {more} {hint}".rstrip())
     return out
 
 
@@ -165,6 +204,7 @@ class WeekImport:
     bad_lines: int = 0
     dropped_follows: int = 0  # preceding job in the week but skipped
     outside_follows: int = 0  # preceding job in another week
+    notes: tuple[str, ...] = ()  # about the inventory file
 
     @property
     def imported(self) -> int:
@@ -172,21 +212,19 @@ class WeekImport:
 
     def report_lines(self) -> list[str]:
         """One line per fact the admin should know, for stderr."""
-        lines = [
-            f"{self.source}: imported {self.imported} of {self.submitted} jobs of week"
-            f" {self.week} (window starts {self.batch.window.start.isoformat()})"
+        lines = list(self.notes) + [
+            f"{self.source}: imported {self.imported:,} of {counted(self.submitted, 'job')}"
+            f" of week {self.week} (window starts {self.batch.window.start.isoformat()})"
         ]
-        lines += [f"skipped {n} jobs: {reason}" for reason, n in self.skipped.items()]
+        lines += [f"skipped {counted(n, 'job')}: {reason}" for reason, n in self.skipped.items()]
         if self.bad_lines:
-            lines.append(f"skipped {self.bad_lines} malformed lines of the trace")
+            lines.append(f"skipped {counted(self.bad_lines, 'malformed line')} of the trace")
         if self.dropped_follows:
-            lines.append(
-                f"dropped {self.dropped_follows} follows links: the preceding job was skipped"
-            )
+            lines.append(f"dropped {counted(self.dropped_follows, 'follows link')}: the"
+                         " preceding job was skipped")
         if self.outside_follows:
-            lines.append(
-                f"ignored {self.outside_follows} follows links to jobs of other weeks"
-            )
+            lines.append(f"ignored {counted(self.outside_follows, 'follows link')} to jobs of"
+                         " other weeks")
         return lines
 
 
@@ -197,35 +235,39 @@ def week_batch(
     *,
     start: datetime | None = None,
     estimate: Estimate = "requested",
-    memory_per_core_gib: float = 2.0,
+    gib_per_core: float = 2.0,
 ) -> WeekImport:
     """Batch of the jobs submitted in week `week` (1-based) of the trace, on `inventory`.
 
-    Window start: `start`, else the node file's window start, else the trace's UnixStartTime
-    plus (week-1) weeks, else a fixed Monday plus (week-1) weeks. Window length: the node
-    file's, else 168 h. Each job is skipped for the first of these reasons that applies:
-    cancelled before it started, no processor count, no run time estimate, no node can hold it.
+    Window start: `start`, else the inventory's window start, else the trace's UnixStartTime
+    plus (week-1) weeks, else a fixed Monday plus (week-1) weeks. Window length: the
+    inventory's, else 168 h. Each job is skipped for the first of these reasons that applies:
+    cancelled before it started, no processor count, no run time estimate, a run time over the
+    planner's limit, no node can hold it.
     """
-    _check_options(trace, week, estimate, memory_per_core_gib)
-    rows = trace.jobs[(trace.jobs[:, SUBMIT] // WEEK_S) == week - 1]
+    _check_options(trace, week, estimate, gib_per_core)
+    in_week = (trace.jobs[:, SUBMIT] // WEEK_S) == week - 1
+    rows = trace.jobs[in_week]
     if not len(rows):
         raise InputError(
             f"{trace.source}: week {week} has no jobs (none submitted between day"
             f" {7 * (week - 1)} and day {7 * week} of the trace)"
         )
-    cores, mib, secs = _demands(rows, estimate, memory_per_core_gib)
+    cores, mib, secs = _demands(rows, estimate, gib_per_core)
     keep, skipped = _classify(rows, cores, mib, secs, inventory, estimate)
     if not keep.any():
+        none = "its only job cannot" if len(rows) == 1 else f"none of its {len(rows):,} jobs can"
         raise InputError(
-            [f"{trace.source}: week {week}: none of its {len(rows)} jobs can be imported"]
-            + [f"skipped {n} jobs: {reason}" for reason, n in skipped.items()]
+            [f"{trace.source}: week {week}: {none} be imported"]
+            + [f"skipped {counted(n, 'job')}: {reason}" for reason, n in skipped.items()]
         )
     jobs, dropped, outside = _job_docs(rows, keep, cores, mib, secs, (week - 1) * WEEK_S)
-    window = _window(trace, inventory, week, start)
+    lines = trace.line[in_week][keep]
     batch = finish_batch(
-        {"window": window, "nodes": [g.model_dump(mode="json") for g in inventory.nodes],
-         "jobs": jobs},
+        {"window": _window(trace, inventory, week, start),
+         "nodes": [g.model_dump(mode="json") for g in inventory.nodes], "jobs": jobs},
         f"{trace.source} week {week}",
+        [f"{trace.source}:{line} ({job['name']})" for line, job in zip(lines, jobs, strict=True)],
     )
     return WeekImport(batch, week, trace.source, len(rows), skipped, len(trace.bad),
                       dropped, outside)
@@ -233,47 +275,52 @@ def week_batch(
 
 def import_swf(
     trace_path: Path | str,
-    nodes_path: Path | str,
+    inventory_path: Path | str,
     week: int,
     *,
     start: datetime | None = None,
     estimate: Estimate = "requested",
-    memory_per_core_gib: float = 2.0,
+    gib_per_core: float = 2.0,
     skip_bad: bool = False,
 ) -> WeekImport:
-    """Read the node file and the trace, and build the batch of one week (see `week_batch`)."""
-    inventory = load_inventory(nodes_path)
+    """Read the inventory file and the trace, and build the batch of one week (see
+    `week_batch`)."""
+    inventory = load_inventory(inventory_path)
     trace = read_swf(trace_path, skip_bad=skip_bad)
-    return week_batch(trace, inventory, week, start=start, estimate=estimate,
-                      memory_per_core_gib=memory_per_core_gib)
+    result = week_batch(trace, inventory, week, start=start, estimate=estimate,
+                        gib_per_core=gib_per_core)
+    notes = inventory.notes(str(inventory_path), str(trace_path))
+    return replace(result, notes=tuple(notes))
 
 
-def _check_options(trace: Trace, week: int, estimate: str, memory_per_core_gib: float) -> None:
+def _check_options(trace: Trace, week: int, estimate: str, gib_per_core: float) -> None:
     if estimate not in ("requested", "actual"):
         raise InputError(f"--estimate {estimate}: choose requested or actual")
-    if not memory_per_core_gib > 0:
-        raise InputError(f"--memory-per-core-gib {memory_per_core_gib}: must be greater than 0")
+    if not math.isfinite(gib_per_core):
+        raise InputError(f"--gib-per-core {gib_per_core}: not a number of GiB")
+    if gib_per_core <= 0:
+        raise InputError(f"--gib-per-core {gib_per_core:g}: must be greater than 0")
     if week < 1:
         raise InputError(f"--week {week}: weeks are numbered from 1")
     if week > trace.n_weeks:
+        cover = ("week 1 only" if trace.n_weeks == 1 else f"weeks 1 to {trace.n_weeks}")
         raise InputError(
-            f"{trace.source}: week {week} is beyond the trace (its submit times cover weeks"
-            f" 1 to {trace.n_weeks})"
+            f"{trace.source}: week {week} is beyond the trace (its submit times cover {cover})"
         )
 
 
 def _demands(
-    rows: np.ndarray, estimate: Estimate, memory_per_core_gib: float
+    rows: np.ndarray, estimate: Estimate, gib_per_core: float
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Cores, memory (whole MiB) and run seconds per job; <= 0 where unknown.
 
     Cores: requested processors, else allocated. Memory: the per-processor KB (taken as KiB)
-    times cores, rounded up to whole MiB, else `memory_per_core_gib` per core.
+    times cores, rounded up to whole MiB, else `gib_per_core` per core.
     """
     cores = np.where(rows[:, REQ_PROCS] > 0, rows[:, REQ_PROCS], rows[:, ALLOC])
     per_proc_kib = rows[:, REQ_MEM if estimate == "requested" else USED_MEM]
     recorded = np.ceil(np.round(per_proc_kib * cores / 1024, 6))
-    default = np.ceil(np.round(memory_per_core_gib * 1024 * cores, 6))
+    default = np.ceil(np.round(gib_per_core * 1024 * cores, 6))
     mib = np.maximum(1, np.where(per_proc_kib > 0, recorded, default))
     if estimate == "requested":
         secs = rows[:, REQ_TIME]
@@ -301,6 +348,8 @@ def _classify(
         ("cancelled before they started", cancelled),
         ("no processor count", cores <= 0),
         ("no requested time" if estimate == "requested" else "no run time", secs <= 0),
+        (f"run time over the planner's limit of {MAX_JOB_HOURS:,.0f} h",
+         secs > MAX_JOB_HOURS * 3600),
         (f"larger than the largest node ({node_cores.max()} cores, {node_mib.max() / 1024:g}"
          " GiB)", ~fits),
     ]

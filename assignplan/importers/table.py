@@ -1,79 +1,96 @@
 """Job spreadsheets: a CSV with one job (group) per row, columns named as the JSON job fields.
 
-Header is spreadsheet row 1; each later row is one entry of the batch's `jobs` list. Empty
-cells take the field's default; `needs` and `follows` hold names separated by ';'. Rows are
-validated by the same pydantic model as JSON input, and every problem names its row (the CSV
-line number) and column, e.g. ``JOBS.csv:row 7 (jobs[5]).memory_gib: must be greater than 0``.
+Header is spreadsheet row 1; each later row is one entry of the batch's `jobs` list. Cells
+are separated by ',', ';' or a tab, whichever the header row uses; header names are read
+without regard to case or surrounding spaces. Empty cells take the field's default; `needs`
+and `follows` hold names separated by ';' or ','. Rows are validated by the same model as
+JSON input, and every problem names its row (the spreadsheet row) and column, e.g.
+``JOBS.csv:row 7 (jobs[5]).memory_gib: must be greater than 0``.
 """
 
 from __future__ import annotations
 
+import csv
 import io
 import math
 import re
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import pandas as pd
 from pydantic import ValidationError
 
 from assignplan.errors import InputError
 from assignplan.importers import Inventory, finish_batch, load_inventory
-from assignplan.model import Batch, JobGroup, _format_validation_error, read_text
+from assignplan.importers.problems import validation_problems
+from assignplan.importers.reading import NUMBER, decode_utf8, looks_like, read_bytes, wrong_kind
+from assignplan.model import Batch, JobGroup
 
 COLUMNS = tuple(JobGroup.model_fields)
 REQUIRED = tuple(name for name, f in JobGroup.model_fields.items() if f.is_required())
 LIST_COLUMNS = ("needs", "follows")
 INT_COLUMNS = ("count", "cores", "gpus")
 FLOAT_COLUMNS = ("memory_gib", "hours", "ready_h", "due_h", "weight")
-_PANDAS_WIDTH = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
+SEPARATORS = (",", ";", "\t")  # in order of preference when a header fits several
+CSV_KIND = "a CSV table (a header row naming the columns, then one job per row)"
+_LIST_SPLIT = re.compile(r"[;,]")
 
 
-def import_csv(jobs_path: Path | str, nodes_path: Path | str) -> Batch:
-    """Batch of the jobs in a CSV file on the inventory and window of a node file."""
-    inventory = load_inventory(nodes_path)
-    return csv_batch(read_text(jobs_path), inventory, str(jobs_path), str(nodes_path))
+@dataclass(frozen=True)
+class TableImport:
+    """A spreadsheet turned into a batch, with what the admin should know about the inputs."""
+
+    batch: Batch
+    notes: tuple[str, ...] = ()
+
+
+def import_csv(jobs_path: Path | str, inventory_path: Path | str) -> TableImport:
+    """Batch of the jobs in a CSV file on the inventory and window of an inventory file."""
+    inventory = load_inventory(inventory_path)
+    data = read_bytes(jobs_path)
+    kind = looks_like(data)
+    if kind in ("binary", "utf16"):
+        raise wrong_kind(jobs_path, kind, CSV_KIND)
+    batch = csv_batch(decode_utf8(data, jobs_path), inventory, str(jobs_path),
+                      str(inventory_path))
+    return TableImport(batch, tuple(inventory.notes(str(inventory_path), str(jobs_path))))
 
 
 def csv_batch(text: str, inventory: Inventory, source: str = "<csv>",
-              nodes_source: str = "<nodes>") -> Batch:
+              inventory_source: str = "<inventory>") -> Batch:
     """Validate the CSV's jobs and combine them with the inventory's window and nodes.
 
-    The window is required in the node file: a spreadsheet carries no calendar.
+    The window is required in the inventory file: a spreadsheet carries no calendar.
     """
     if inventory.window is None:
-        raise InputError(f"{nodes_source}: window: required field is missing (a CSV import"
-                         " takes the planning window from the node file)")
+        raise InputError(f"{inventory_source}: window: required field is missing (a CSV import"
+                         " takes the planning window from the inventory file)")
     jobs, rows = parse_jobs_csv(text, source)
     doc = {
         "window": inventory.window.model_dump(mode="json"),
         "nodes": [g.model_dump(mode="json") for g in inventory.nodes],
         "jobs": [job.model_dump(mode="json") for job in jobs],
     }
-    try:
-        return finish_batch(doc, source)
-    except InputError as err:
-        raise InputError([_locate(p, source, rows) for p in err.problems]) from None
+    return finish_batch(doc, source, [f"{source}:row {r} (jobs[{k}])" for k, r in enumerate(rows)])
 
 
 def parse_jobs_csv(text: str, source: str = "<csv>") -> tuple[list[JobGroup], list[int]]:
     """The validated job groups of a CSV text and the spreadsheet row of each."""
-    table = _read_table(text, source)
-    header = [str(h).strip() for h in table.iloc[0]]
-    used = _check_header(header, table, source)
+    records = _read_records(text, source)
+    columns = _check_header(records, source)
     jobs: list[JobGroup] = []
     rows: list[int] = []
     problems: list[str] = []
-    for k in range(1, len(table)):
-        cells = {header[c]: str(table.iat[k, c]).strip() for c in used}
+    for k, record in enumerate(records[1:], start=2):
+        cells = {name: record[c].strip() if c < len(record) else "" for c, name in columns.items()}
         if not any(cells.values()):
             continue  # a blank line between rows is not a job
-        row, where = k + 1, f"{source}:row {k + 1} (jobs[{len(rows)}])"
+        where = f"{source}:row {k} (jobs[{len(rows)}])"
         try:
             jobs.append(JobGroup.model_validate(_job_doc(cells)))
         except ValidationError as err:
-            problems += [f"{where}.{line}" for line in _format_validation_error(err)]
-        rows.append(row)
+            problems += [f"{where}.{line}" for line in validation_problems(err, JobGroup)]
+        rows.append(k)
     if problems:
         raise InputError(problems)
     if not rows:
@@ -81,57 +98,89 @@ def parse_jobs_csv(text: str, source: str = "<csv>") -> tuple[list[JobGroup], li
     return jobs, rows
 
 
-def _read_table(text: str, source: str) -> pd.DataFrame:
-    """Every cell as a string; the header is row 0 so row k is spreadsheet row k + 1."""
+def _read_records(text: str, source: str) -> list[list[str]]:
+    """Every record of the table (a blank line is an empty record, so record k + 1 is
+    spreadsheet row k + 1); the separator is the one the header row uses."""
+    text = text.removeprefix("\ufeff")
+    kind = looks_like(text[:8192].encode("utf-8"))
+    if kind in ("empty", "binary", "json", "swf"):
+        raise wrong_kind(source, kind, CSV_KIND)
+    separator = _separator(next(line for line in text.splitlines() if line.strip()))
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=separator, strict=True)
+    records: list[list[str]] = []
     try:
-        return pd.read_csv(io.StringIO(text), header=None, dtype=str, keep_default_na=False,
-                           skip_blank_lines=False)
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{source}: empty file; expected a header row naming the columns"
+        records.extend(reader)
+    except csv.Error as exc:
+        raise InputError(f"{source}:row {len(records) + 1}: {_quote_problem(str(exc))}"
                          ) from None
-    except pd.errors.ParserError as exc:
-        width = _PANDAS_WIDTH.search(str(exc))
-        if width:
-            expected, line, found = width.groups()
-            raise InputError(f"{source}:row {line}: expected {expected} cells like the header,"
-                             f" found {found}") from None
-        raise InputError(f"{source}: not a readable CSV file ({exc})") from None
+    for k, record in enumerate(records[1:], start=2):
+        extra = [cell for cell in record[len(records[0]):] if cell.strip()]
+        if extra:
+            raise InputError(f"{source}:row {k}: expected {len(records[0])} cells like the"
+                             f" header, found {len(record)}")
+    return records
 
 
-def _check_header(header: list[str], table: pd.DataFrame, source: str) -> list[int]:
-    """Indices of the columns to read; unknown, duplicate or missing columns are errors.
+def _separator(header: str) -> str:
+    """The separator that splits the header row into the most known column names."""
+    def known(sep: str) -> tuple[int, int]:
+        names = [_column_key(name) for name in header.split(sep)]
+        return sum(name in COLUMNS for name in names), len(names)
 
-    A column without a header and without any value (a trailing comma) is ignored.
-    """
+    return max(SEPARATORS, key=known)  # max keeps the first of equals: ',' before ';'
+
+
+def _quote_problem(message: str) -> str:
+    """What a CSV reading error means, in our words."""
+    if "unexpected end of data" in message:
+        return ("a quoted cell is never closed: a '\"' opens it and no '\"' ends it (a '\"'"
+                " inside a quoted cell is written twice)")
+    if "expected after" in message:
+        return ("text after the closing '\"' of a quoted cell (a '\"' inside a quoted cell is"
+                " written twice)")
+    if "field larger than field limit" in message:
+        return f"a cell longer than {csv.field_size_limit():,} characters"
+    return "not readable as a CSV row (check its quotes)"
+
+
+def _column_key(name: str) -> str:
+    return name.strip().strip('"').strip().lower()
+
+
+def _check_header(records: list[list[str]], source: str) -> dict[int, str]:
+    """Column index -> field name of the columns to read; unknown, duplicate or missing
+    columns are errors. A column without a header and without any value is ignored."""
+    header = records[0]
     problems: list[str] = []
-    used: list[int] = []
-    for c, name in enumerate(header):
+    columns: dict[int, str] = {}
+    for c, written in enumerate(header):
+        name = _column_key(written)
         if not name:
-            if (table.iloc[1:, c].str.strip() != "").any():
+            if any(c < len(r) and r[c].strip() for r in records[1:]):
                 problems.append(f"{source}: column {c + 1} has values but no header")
         elif name not in COLUMNS:
-            problems.append(f"{source}: column '{name}': unknown column; the columns are"
-                            f" {', '.join(COLUMNS)}")
-        elif name in header[:c]:
-            problems.append(f"{source}: column '{name}': appears more than once")
+            problems.append(f"{source}: column '{written.strip()}': unknown column; the columns"
+                            f" are {', '.join(COLUMNS)}")
+        elif name in columns.values():
+            problems.append(f"{source}: column '{written.strip()}': appears more than once")
         else:
-            used.append(c)
+            columns[c] = name
     problems += [f"{source}: column '{name}': required column is missing"
-                 for name in REQUIRED if name not in header]
+                 for name in REQUIRED if name not in columns.values()]
     if problems:
         raise InputError(problems)
-    return used
+    return columns
 
 
 def _job_doc(cells: dict[str, str]) -> dict[str, Any]:
-    """A job's fields from its non-empty cells; unconvertible cells stay strings so the
-    model's own message ("must be a valid integer") reports them."""
+    """A job's fields from its non-empty cells; unconvertible cells stay strings so that the
+    validation reports them ("'two' is not a whole number")."""
     doc: dict[str, Any] = {}
     for name, cell in cells.items():
         if not cell:
             continue
         if name in LIST_COLUMNS:
-            doc[name] = [part.strip() for part in cell.split(";") if part.strip()]
+            doc[name] = [part.strip() for part in _LIST_SPLIT.split(cell) if part.strip()]
         elif name in INT_COLUMNS:
             doc[name] = _number(cell, whole=True)
         elif name in FLOAT_COLUMNS:
@@ -142,10 +191,9 @@ def _job_doc(cells: dict[str, str]) -> dict[str, Any]:
 
 
 def _number(cell: str, *, whole: bool) -> int | float | str:
-    try:
-        value = float(cell)
-    except ValueError:
-        return cell
+    if not NUMBER.fullmatch(cell):
+        return cell  # not '1,5', not '1_000', not 'nan': a number as every spreadsheet writes it
+    value = float(cell)
     if not math.isfinite(value):
         return cell
     if whole:
@@ -154,20 +202,13 @@ def _number(cell: str, *, whole: bool) -> int | float | str:
     return value
 
 
-def _locate(problem: str, source: str, rows: list[int]) -> str:
-    """Turn ``SRC: jobs[5]...`` from the batch checks into ``SRC:row 7 (jobs[5])...``."""
-    match = re.match(rf"{re.escape(source)}: jobs\[(\d+)\]", problem)
-    if not match:
-        return problem
-    k = int(match.group(1))
-    return f"{source}:row {rows[k]} (jobs[{k}])" + problem[match.end():]
-
-
 def batch_to_csv(batch: Batch) -> str:
     """The batch's job list as CSV text in the import format (every column, every row)."""
-    cells = [[_cell(getattr(job, name)) for name in COLUMNS] for job in batch.jobs]
-    frame = pd.DataFrame(cells, columns=list(COLUMNS), dtype=str)
-    return frame.to_csv(index=False, lineterminator="\n")
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(COLUMNS)
+    writer.writerows([_cell(getattr(job, name)) for name in COLUMNS] for job in batch.jobs)
+    return out.getvalue()
 
 
 def _cell(value: Any) -> str:
@@ -181,5 +222,5 @@ def _cell(value: Any) -> str:
 
 
 def inventory_of(batch: Batch) -> Inventory:
-    """The window and nodes of a batch, as a node file holds them (for the round trip)."""
+    """The window and nodes of a batch, as an inventory file holds them (for the round trip)."""
     return Inventory(window=batch.window, nodes=batch.nodes)
