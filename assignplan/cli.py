@@ -199,7 +199,7 @@ def solve(
         exports.write_json(out, to_plan_doc(inst, result).model_dump(mode="json"))
     if csv is not None:
         exports.write_csv_tables(csv, summary, nodes, jobs)
-    _write_report(inst, result, report, png)
+    _write_report(expanded, to_plan_doc(inst, result), inst, result, report, png)
     if as_json:
         typer.echo(json.dumps(summary, indent=2))
     else:
@@ -253,22 +253,32 @@ def report(
 
     check_output_file(out, "--out")
     check_output_dir(png, "--png")
-    inst = build_instance(load_batch(batch))
+    expanded = load_batch(batch)
+    inst = build_instance(expanded)
     try:
-        result = result_from_doc(inst, load_plan(plan))
+        doc = load_plan(plan)
+        result = result_from_doc(inst, doc)
     except InputError as err:
         raise InputError([p if p.startswith(str(plan)) else f"{plan}: {p}"
                           for p in err.problems]) from None
-    _write_report(inst, result, out, png)
+    _write_report(expanded, doc, inst, result, out, png)
 
 
-def _write_report(inst, result, html_path: Path | None, png_dir: Path | None) -> None:
-    from assignplan.report.charts import write_png_charts
+def _write_report(expanded, doc, inst, result, html_path: Path | None,
+                  png_dir: Path | None) -> None:
+    """The HTML report (saying what the independent checker finds in `doc`) and the PNGs."""
+    from assignplan.check import check_plan
     from assignplan.report.html import write_html_report
+    from assignplan.report.png import write_png_charts
+    from assignplan.units import counted
 
     if html_path is not None:
-        size = write_html_report(html_path, inst, result)
+        violations = check_plan(expanded, doc)
+        size = write_html_report(html_path, inst, result, violations)
         typer.echo(f"wrote {html_path} ({size / 1024:,.0f} KiB)", err=True)
+        if violations:
+            typer.echo(f"{html_path}: the plan fails the check"
+                       f" ({counted(len(violations), 'violation')}); the report says so", err=True)
     if png_dir is not None:
         png_dir.mkdir(parents=True, exist_ok=True)
         for path in write_png_charts(png_dir, inst, result):
