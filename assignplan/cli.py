@@ -194,7 +194,7 @@ def solve(
     check_output_dir(png, "--png")
     settings = method_settings(method, generations, ga_settings, force)
     steps = Steps(not quiet and not as_json and not to_stdout)
-    inst = _read_instance(batch, steps)
+    expanded, inst = _read_instance(batch, steps)
     deadline = time.perf_counter() + budget  # the budget covers everything after reading
     # The planning stack (numba, solvers) loads only once the input is known to be good.
     from assignplan.bounds import lower_bound
@@ -208,8 +208,8 @@ def solve(
         result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
                      settings=settings, progress=tick, bound=bound)
     with all_or_nothing():
-        wrote = _write_outputs(inst, result, out=None if to_stdout else out, csv=csv,
-                               report=report, png=png)
+        wrote = _write_outputs(expanded, inst, result, out=None if to_stdout else out,
+                               csv=csv, report=report, png=png)
     _print_outputs(inst, result, wrote, as_json=as_json, show_all=show_all,
                    plan_to_stdout=to_stdout)
 
@@ -221,16 +221,18 @@ def _method_step(steps: Steps, method: str):
 
 
 def _read_instance(batch: Path, steps: Steps):
-    """The batch file read, checked and turned into arrays (one spinner while it lasts)."""
+    """(expanded batch, instance): the batch file read, checked and turned into arrays (one
+    spinner while it lasts)."""
     from assignplan.instance import build_instance
     from assignplan.model import load_batch
 
     with steps.step(f"reading {batch}"):
-        return build_instance(load_batch(batch))
+        expanded = load_batch(batch)
+        return expanded, build_instance(expanded)
 
 
-def _write_outputs(inst, result, *, out: Path | None, csv: Path | None, report: Path | None,
-                   png: Path | None) -> list[str]:
+def _write_outputs(expanded, inst, result, *, out: Path | None, csv: Path | None,
+                   report: Path | None, png: Path | None) -> list[str]:
     """Every file of one plan (call inside `files.all_or_nothing`); returns the lines that
     say what was written."""
     from assignplan.plan import to_plan_doc
@@ -245,7 +247,8 @@ def _write_outputs(inst, result, *, out: Path | None, csv: Path | None, report: 
         exports.write_csv_tables(csv, summary, stats.node_frame(inst, result),
                                  stats.job_frame(inst, result))
         wrote.append(f"wrote {csv}/jobs.csv, nodes.csv and summary.csv")
-    return wrote + _write_report(inst, result, report, png)
+    return wrote + _write_report(expanded, to_plan_doc(inst, result), inst, result, report,
+                                 png)
 
 
 def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: bool,
@@ -284,7 +287,7 @@ def compare(
     from assignplan.files import all_or_nothing, check_output_file
 
     check_output_file(out, "--out")
-    inst = _read_instance(batch, Steps(False))
+    _, inst = _read_instance(batch, Steps(False))
     from assignplan.compare import best_result, compare_methods, compare_records
     from assignplan.report.exports import write_json
     from assignplan.report.tables import compare_notes, compare_table, make_console
@@ -319,35 +322,42 @@ def report(
 ) -> None:
     """Write a self-contained HTML report (timeline, utilisation, tables) of a plan."""
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
-    from assignplan.instance import build_instance
-    from assignplan.model import load_batch, load_plan
+    from assignplan.model import load_plan
     from assignplan.plan import result_from_doc
 
     check_output_file(out, "--out")
     check_output_dir(png, "--png")
-    inst = build_instance(load_batch(batch))
+    expanded, inst = _read_instance(batch, Steps(False))
     try:
-        result = result_from_doc(inst, load_plan(plan))
+        doc = load_plan(plan)
+        result = result_from_doc(inst, doc)
     except InputError as err:
         raise InputError([p if p.startswith(str(plan)) else f"{plan}: {p}"
                           for p in err.problems]) from None
     with all_or_nothing():
-        wrote = _write_report(inst, result, out, png)
+        wrote = _write_report(expanded, doc, inst, result, out, png)
     for line in wrote:
         typer.echo(line, err=True)
 
 
-def _write_report(inst, result, html_path: Path | None, png_dir: Path | None) -> list[str]:
-    """Write the HTML report and the PNG charts; the 'wrote ...' lines to print once every
-    output of the command is in place."""
+def _write_report(expanded, doc, inst, result, html_path: Path | None,
+                  png_dir: Path | None) -> list[str]:
+    """Write the HTML report (saying what the independent checker finds in `doc`) and the
+    PNG charts; the lines to print once every output of the command is in place."""
+    from assignplan.check import check_plan
     from assignplan.files import ensure_folder
-    from assignplan.report.charts import write_png_charts
     from assignplan.report.html import write_html_report
+    from assignplan.report.png import write_png_charts
+    from assignplan.units import counted
 
     wrote = []
     if html_path is not None:
-        size = write_html_report(html_path, inst, result)
+        violations = check_plan(expanded, doc)
+        size = write_html_report(html_path, inst, result, violations)
         wrote.append(f"wrote {html_path} ({size / 1024:,.0f} KiB)")
+        if violations:
+            wrote.append(f"{html_path}: the plan fails the check"
+                         f" ({counted(len(violations), 'violation')}); the report says so")
     if png_dir is not None:
         ensure_folder(png_dir)
         wrote += [f"wrote {path}" for path in write_png_charts(png_dir, inst, result)]

@@ -17,8 +17,11 @@ import matplotlib.image as mpimg
 import numpy as np
 import pytest
 
+from assignplan.check import check_plan
+from assignplan.model import load_batch
+from assignplan.plan import to_plan_doc
 from assignplan.report.html import page_budget, write_html_report
-from tests.test_report_html import BUDGET_10K, large_plan, sequential_plan, week
+from tests.test_report_html import BUDGET_10K, WEEK, large_plan, sequential_plan, week
 
 CHROMIUM = Path("/usr/bin/chromium")
 CHROMEDRIVER = Path("/usr/bin/chromedriver")
@@ -129,9 +132,16 @@ def _variant(name: str):
 def test_week_report_renders(browser, tmp_path, variant):
     inst, result = _variant(variant)
     page = tmp_path / "week.html"
-    write_html_report(page, inst, result)
+    # The sequential plan ignores maintenance: its page opens with the failed check.
+    violations = check_plan(load_batch(WEEK), to_plan_doc(inst, result))
+    write_html_report(page, inst, result, violations)
     log = _load(browser, page)
     assert _errors(log) == []
+    banner = browser.execute_script(
+        "const b = document.getElementById('check');"
+        "return [b.className, b.getBoundingClientRect().top, b.textContent];")
+    assert banner[0] == ("banner fail" if violations else "banner ok")
+    assert banner[1] < 150  # the first thing under the title
     assert browser.execute_script(COUNT_BARS) == inst.n_jobs
     assert browser.execute_script(DISTINCT_BARS) == inst.n_jobs
     box = browser.execute_script(
@@ -150,7 +160,7 @@ def test_week_report_renders(browser, tmp_path, variant):
 def test_ten_thousand_job_report_renders(browser, tmp_path):
     inst, result = large_plan()
     page = tmp_path / "large.html"
-    size = write_html_report(page, inst, result)
+    size = write_html_report(page, inst, result, [])
     assert size <= min(BUDGET_10K, page_budget(inst.n_jobs, inst.n_nodes))
     assert _errors(_load(browser, page)) == []
     assert browser.execute_script(COUNT_BARS) == inst.n_jobs == 10_000

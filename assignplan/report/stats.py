@@ -18,17 +18,6 @@ from assignplan.units import clock, hours_of, iso
 LISTED = 10  # late jobs and jobs past the window named in the summary, the worst first
 
 
-def available_minutes(inst: Instance, horizon: int) -> np.ndarray:
-    """int64[N]: minutes in [0, horizon) each node is outside maintenance."""
-    avail = np.full(inst.n_nodes, max(0, horizon), dtype=np.int64)
-    for i in range(inst.n_nodes):
-        lo, hi = inst.maint_ptr[i], inst.maint_ptr[i + 1]
-        s = np.clip(inst.maint_start[lo:hi], 0, horizon)
-        e = np.clip(inst.maint_end[lo:hi], 0, horizon)
-        avail[i] -= int(np.sum(e - s))
-    return avail
-
-
 def peak_usage(assign: np.ndarray, start: np.ndarray, end: np.ndarray, demand: np.ndarray,
                n_nodes: int) -> np.ndarray:
     """float64[N]: the largest simultaneous demand on each node (event sweep, ends first).
@@ -87,8 +76,8 @@ def summary(inst: Instance, result: PlanResult) -> dict:
     """The plan's headline figures (the keys of `solve --json`)."""
     mk, tard, compl = objective(inst, result.end)
     cap = inst.capacity.astype(np.float64)
-    avail_mk = available_minutes(inst, mk).astype(np.float64)
-    avail_win = available_minutes(inst, inst.window_minutes).astype(np.float64)
+    avail_mk = inst.available_minutes(mk).astype(np.float64)
+    avail_win = inst.available_minutes(inst.window_minutes).astype(np.float64)
     used_mk = _work_within(inst, result, mk).sum(axis=0)
     used_win = _work_within(inst, result, inst.window_minutes).sum(axis=0)
     cap_mk = cap.T @ avail_mk
@@ -140,7 +129,7 @@ def node_frame(inst: Instance, result: PlanResult) -> pd.DataFrame:
     jobs = np.bincount(result.assign, minlength=n)
     core_min = np.bincount(result.assign, weights=inst.demand[:, 0] * dur, minlength=n)
     gpu_min = np.bincount(result.assign, weights=inst.demand[:, 2] * dur, minlength=n)
-    avail = available_minutes(inst, mk).astype(np.float64)
+    avail = inst.available_minutes(mk).astype(np.float64)
     peak_cores = peak_usage(result.assign, result.start, result.end, inst.demand[:, 0], n)
     peak_mem = peak_usage(result.assign, result.start, result.end, inst.demand[:, 1], n)
     busy_until = np.zeros(n, dtype=np.int64)

@@ -89,13 +89,6 @@ def _work(inst: Instance, jobs: np.ndarray, nodes: np.ndarray) -> np.ndarray:
     return inst.duration[jobs, nodes] * job_share(inst, jobs, nodes)
 
 
-def available_minutes(inst: Instance, horizon: int) -> np.ndarray:
-    """int64[N]: minutes of [0, horizon) outside each node's maintenance windows."""
-    lost = np.clip(np.minimum(inst.maint_end, horizon) - inst.maint_start, 0, None)
-    node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
-    return horizon - np.bincount(node, weights=lost, minlength=inst.n_nodes).astype(np.int64)
-
-
 def resource_work(inst: Instance, assign: np.ndarray) -> np.ndarray:
     """int64[P, N, 3]: W_pir = sum_{j: a_pj = i} d_jr * p_ji (resource-minutes per node)."""
     n_pop, n_jobs = assign.shape
@@ -115,14 +108,14 @@ def shed_overload(assign: np.ndarray, inst: Instance, index: EligibleIndex, hori
     """int64[P, J]: jobs moved off nodes that cannot finish their work by `horizon`.
 
     Node i is overloaded when W_ir > cap_ir * A_i for some resource r (W from
-    `resource_work`, A_i = `available_minutes`): its jobs then cannot all end by the horizon,
-    whatever their order (work conservation), so the plan is already worse than one ending
-    there. Its jobs, in random order, move to the eligible node k with room
+    `resource_work`, A_i = `Instance.available_minutes`): its jobs then cannot all end by
+    the horizon, whatever their order (work conservation), so the plan is already worse than
+    one ending there. Its jobs, in random order, move to the eligible node k with room
     (W_k + d_j p_jk <= cap_k A_k for every r) and the lowest resulting max_r W_kr / (cap_kr A_k),
     until it fits. Passes repeat until no job can move (a fixed point: total excess over the
     limits strictly falls with each move).
     """
-    limit = inst.capacity * available_minutes(inst, horizon)[:, None]  # int64[N, 3]
+    limit = inst.capacity * inst.available_minutes(horizon)[:, None]  # int64[N, 3]
     work = resource_work(inst, assign)
     over = (work > limit[None]).any(axis=2)
     if not over.any():
