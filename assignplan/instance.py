@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime
+from typing import NamedTuple
 
 import numpy as np
 
@@ -20,6 +21,26 @@ from assignplan.model import (
 
 RESOURCES = ("cores", "memory", "gpus")
 NO_DUE = np.iinfo(np.int64).max // 4  # far beyond any makespan: never late
+
+
+class Arrays(NamedTuple):
+    """The instance's arrays as the compiled kernels take them: one structured argument
+    (see `Instance` for shapes and units)."""
+
+    capacity: np.ndarray
+    demand: np.ndarray
+    duration: np.ndarray
+    eligible: np.ndarray
+    ready: np.ndarray
+    due: np.ndarray
+    weight: np.ndarray
+    pred_ptr: np.ndarray
+    pred_idx: np.ndarray
+    succ_ptr: np.ndarray
+    succ_idx: np.ndarray
+    maint_ptr: np.ndarray
+    maint_start: np.ndarray
+    maint_end: np.ndarray
 
 
 @dataclass(frozen=True, eq=False)
@@ -64,6 +85,12 @@ class Instance:
     maint_start: np.ndarray
     maint_end: np.ndarray
     order: np.ndarray
+
+    @property
+    def arrays(self) -> Arrays:
+        """The arrays the kernels read, as one `Arrays` (built on each call: cheap, and
+        always that of this instance, also after `dataclasses.replace`)."""
+        return Arrays(*(getattr(self, name) for name in Arrays._fields))
 
     @property
     def n_jobs(self) -> int:

@@ -155,14 +155,22 @@ def _ready_time(j, ready, end, pred_ptr, pred_idx):
     return t0
 
 
+@njit(cache=True, inline="always")
+def duration_of(A, j, i):
+    """Minutes job j runs on node i (the one place the kernels read durations)."""
+    return np.int64(A.duration[j, i])
+
+
 @njit(cache=True)
-def _sgs(assign, order, demand, duration, ready, pred_ptr, pred_idx, capacity,
-         maint_ptr, maint_start, maint_end, start):
+def _sgs(A, assign, order, ready, pred_ptr, pred_idx, maint_start, maint_end, start):
     """Serial SGS for one assignment; writes start int64[J], returns False if a job failed.
 
-    A job fails when it is too big for its node or a predecessor comes later in `order`;
-    its start (and every later one) is left at -1.
+    A: the instance's arrays (`instance.Arrays`); ready times, predecessors and maintenance
+    are separate arguments because forward-backward improvement runs the same scheme on the
+    time-mirrored batch. A job fails when it is too big for its node or a predecessor comes
+    later in `order`; its start (and every later one) is left at -1.
     """
+    demand, capacity, maint_ptr = A.demand, A.capacity, A.maint_ptr
     n_jobs = assign.shape[0]
     n_nodes = capacity.shape[0]
     seg_cap = np.empty(n_nodes, np.int64)
@@ -188,7 +196,7 @@ def _sgs(assign, order, demand, duration, ready, pred_ptr, pred_idx, capacity,
         t0 = _ready_time(j, ready, end, pred_ptr, pred_idx)
         if t0 < 0:
             return False
-        dur = np.int64(duration[j, i])
+        dur = duration_of(A, j, i)
         d0 = demand[j, 0]
         d1 = demand[j, 1]
         d2 = demand[j, 2]
@@ -203,13 +211,14 @@ def _sgs(assign, order, demand, duration, ready, pred_ptr, pred_idx, capacity,
 
 
 @njit(cache=True)
-def _fitness(start, assign, duration, due, weight, out):
+def _fitness(A, start, assign, out):
     """out[:] = (C_max, sum w_j max(0, C_j - d_j) over jobs with a due time, sum w_j C_j)."""
+    due, weight = A.due, A.weight
     mk = np.int64(0)
     tard = 0.0
     compl = 0.0
     for j in range(start.shape[0]):
-        c = start[j] + np.int64(duration[j, assign[j]])
+        c = start[j] + duration_of(A, j, assign[j])
         if c > mk:
             mk = c
         if due[j] != NO_DUE and c > due[j]:
@@ -218,29 +227,6 @@ def _fitness(start, assign, duration, due, weight, out):
     out[0] = mk
     out[1] = tard
     out[2] = compl
-
-
-def _sgs_population(assign, order, demand, duration, ready, due, weight, pred_ptr, pred_idx,
-                   capacity, maint_ptr, maint_start, maint_end, start_out, fitness_out):
-    """Build and score P schedules in parallel; each individual has its own workspace.
-
-    assign: int64[P, J] node per job; order: int64[J]; start_out: int64[P, J] (or [P, 0] to
-    skip writing starts); fitness_out: float64[P, 3] = (makespan, weighted tardiness,
-    weighted completion) in minutes, +inf in every column for an individual that failed.
-    """
-    n_pop = assign.shape[0]
-    n_jobs = assign.shape[1]
-    keep = start_out.shape[1] == n_jobs
-    for p in prange(n_pop):
-        start = np.empty(n_jobs, np.int64)
-        ok = _sgs(assign[p], order, demand, duration, ready, pred_ptr, pred_idx, capacity,
-                  maint_ptr, maint_start, maint_end, start)
-        if ok:
-            _fitness(start, assign[p], duration, due, weight, fitness_out[p])
-        else:
-            fitness_out[p, :] = np.inf
-        if keep:
-            start_out[p, :] = start
 
 
 @njit(cache=True)
@@ -281,8 +267,7 @@ def _lex_better(a, b):
 
 
 @njit(cache=True)
-def _justify(assign, demand, duration, ready, zeros, pred_ptr, pred_idx, succ_ptr, succ_idx,
-             capacity, maint_ptr, maint_start, maint_end, due, weight, rounds, start, fit):
+def _justify(A, assign, zeros, rounds, start, fit):
     """Forward-backward improvement (double justification) of one schedule, in place.
 
     V. Valls, F. Ballestin, S. Quintanilla, "Justification and RCPSP: A technique that pays",
@@ -312,9 +297,9 @@ def _justify(assign, demand, duration, ready, zeros, pred_ptr, pred_idx, succ_pt
     n_jobs = assign.shape[0]
     dur = np.empty(n_jobs, np.int64)
     for j in range(n_jobs):
-        dur[j] = duration[j, assign[j]]
-    m_start = np.empty_like(maint_start)
-    m_end = np.empty_like(maint_end)
+        dur[j] = duration_of(A, j, assign[j])
+    m_start = np.empty_like(A.maint_start)
+    m_end = np.empty_like(A.maint_end)
     cur = start.copy()
     back = np.empty(n_jobs, np.int64)
     fwd = np.empty(n_jobs, np.int64)
@@ -325,17 +310,16 @@ def _justify(assign, demand, duration, ready, zeros, pred_ptr, pred_idx, succ_pt
         for j in range(n_jobs):
             key[j] = T - (cur[j] + dur[j])
         order_b = np.argsort(key, kind="mergesort")
-        _mirror_windows(T, maint_ptr, maint_start, maint_end, m_start, m_end)
-        if not _sgs(assign, order_b, demand, duration, zeros, succ_ptr, succ_idx, capacity,
-                    maint_ptr, m_start, m_end, back):
+        _mirror_windows(T, A.maint_ptr, A.maint_start, A.maint_end, m_start, m_end)
+        if not _sgs(A, assign, order_b, zeros, A.succ_ptr, A.succ_idx, m_start, m_end, back):
             return  # cannot happen for a feasible input (see above): keep it unchanged
         for j in range(n_jobs):
             key[j] = T - back[j] - dur[j]
         order_f = np.argsort(key, kind="mergesort")
-        if not _sgs(assign, order_f, demand, duration, ready, pred_ptr, pred_idx, capacity,
-                    maint_ptr, maint_start, maint_end, fwd):
+        if not _sgs(A, assign, order_f, A.ready, A.pred_ptr, A.pred_idx, A.maint_start,
+                    A.maint_end, fwd):
             return
-        _fitness(fwd, assign, duration, due, weight, f)
+        _fitness(A, fwd, assign, f)
         if _lex_better(f, fit):
             start[:] = fwd
             fit[:] = f
@@ -346,11 +330,12 @@ def _justify(assign, demand, duration, ready, zeros, pred_ptr, pred_idx, succ_pt
 
 
 @njit(cache=True)
-def _node_spread(start, assign, duration, n_nodes):
+def _node_spread(A, start, assign):
     """sum_i F_i^2 over the nodes' finish times F_i (0 for an empty node), in minutes^2."""
+    n_nodes = A.capacity.shape[0]
     fin = np.zeros(n_nodes, np.int64)
     for j in range(start.shape[0]):
-        e = start[j] + np.int64(duration[j, assign[j]])
+        e = start[j] + duration_of(A, j, assign[j])
         if e > fin[assign[j]]:
             fin[assign[j]] = e
     total = 0.0
@@ -360,22 +345,23 @@ def _node_spread(start, assign, duration, n_nodes):
 
 
 @njit(cache=True)
-def _tail_area(start, assign, duration, demand, capacity):
+def _tail_area(A, start, assign):
     """sum over the jobs j ending at the makespan of p_j * max_r d_jr / cap_ir (minutes).
 
     On a packing-like batch (equal durations) this is the work left over the first layer
     of nodes: lower = fuller nodes below it, so it falls with every exchange that packs a
     node tighter even while the makespan and the node finishes stay put.
     """
+    demand, capacity = A.demand, A.capacity
     ms = np.int64(0)
     for j in range(start.shape[0]):
-        e = start[j] + np.int64(duration[j, assign[j]])
+        e = start[j] + duration_of(A, j, assign[j])
         if e > ms:
             ms = e
     total = 0.0
     for j in range(start.shape[0]):
         i = assign[j]
-        dur = np.int64(duration[j, i])
+        dur = duration_of(A, j, i)
         if start[j] + dur == ms:
             share = 0.0
             for r in range(3):
@@ -385,16 +371,16 @@ def _tail_area(start, assign, duration, demand, capacity):
     return total
 
 
-def _sgs_population_justified(assign, order, demand, duration, ready, due, weight, pred_ptr,
-                             pred_idx, succ_ptr, succ_idx, capacity, maint_ptr, maint_start,
-                             maint_end, rounds, start_out, fitness_out):
-    """`sgs_population` with a decoding order per individual and forward-backward improvement.
+def _sgs_population(A, assign, order, rounds, start_out, fitness_out):
+    """Build and score P schedules; each individual has its own workspace.
 
-    order: int64[P, J] or int64[1, J] (one order for all); rounds: int, 0 = plain SGS;
-    other arrays as in `sgs_population`. Each schedule is built in its individual's order,
-    then justified (`_justify`); fitness and starts are those of the justified schedule.
-    fitness_out may be float64[P, 4]: column 3 then gets `_node_spread` of that schedule;
-    float64[P, 5]: column 4 also gets `_tail_area`.
+    A: the instance's arrays (`instance.Arrays`); assign: int64[P, J] node per job; order:
+    int64[P, J] a decoding order per individual, or int64[1, J] one for all; rounds: rounds
+    of forward-backward improvement (`_justify`), 0 = the plain serial SGS; start_out:
+    int64[P, J] (or [P, 0] to skip writing starts); fitness_out: float64[P, C] with columns
+    (makespan, weighted tardiness, weighted completion) in minutes, then with C >= 4 the
+    `_node_spread` and with C >= 5 the `_tail_area` of the scored schedule; +inf in every
+    column for an individual that failed.
     """
     n_pop = assign.shape[0]
     n_jobs = assign.shape[1]
@@ -403,31 +389,27 @@ def _sgs_population_justified(assign, order, demand, duration, ready, due, weigh
     step = 0 if order.shape[0] == 1 else 1  # row p * step: shared or per individual
     for p in prange(n_pop):
         start = np.empty(n_jobs, np.int64)
-        ok = _sgs(assign[p], order[p * step], demand, duration, ready, pred_ptr,
-                  pred_idx, capacity, maint_ptr, maint_start, maint_end, start)
+        ok = _sgs(A, assign[p], order[p * step], A.ready, A.pred_ptr, A.pred_idx,
+                  A.maint_start, A.maint_end, start)
         if ok:
-            _fitness(start, assign[p], duration, due, weight, fitness_out[p])
+            _fitness(A, start, assign[p], fitness_out[p])
             if rounds > 0:
-                _justify(assign[p], demand, duration, ready, zeros, pred_ptr, pred_idx,
-                         succ_ptr, succ_idx, capacity, maint_ptr, maint_start, maint_end, due,
-                         weight, rounds, start, fitness_out[p, :3])
+                _justify(A, assign[p], zeros, rounds, start, fitness_out[p, :3])
             if fitness_out.shape[1] >= 4:
-                fitness_out[p, 3] = _node_spread(start, assign[p], duration, capacity.shape[0])
+                fitness_out[p, 3] = _node_spread(A, start, assign[p])
             if fitness_out.shape[1] >= 5:
-                fitness_out[p, 4] = _tail_area(start, assign[p], duration, demand, capacity)
+                fitness_out[p, 4] = _tail_area(A, start, assign[p])
         else:
             fitness_out[p, :] = np.inf
         if keep:
             start_out[p, :] = start
 
 
-# Two compilations of each body: threads pay off for a population, but waking the pool costs
+# Two compilations of the body: threads pay off for a population, but waking the pool costs
 # milliseconds on a busy machine (measured ~8 ms a call with 2 shared cores), more than a
 # single plan or a local-search batch takes to build; prange is a plain range in the serial one.
 sgs_population = njit(cache=True, parallel=True)(_sgs_population)
 sgs_population_serial = njit(cache=True)(_sgs_population)
-sgs_population_justified = njit(cache=True, parallel=True)(_sgs_population_justified)
-sgs_population_justified_serial = njit(cache=True)(_sgs_population_justified)
 
 
 @njit(cache=True)
@@ -455,14 +437,16 @@ def _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i, need):
 
 
 @njit(cache=True)
-def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, capacity,
-                maint_ptr, maint_start, maint_end, assign, start):
+def greedy_list(A, order, eligible, assign, start):
     """List scheduling: each job in `order` to the eligible node where it finishes earliest.
 
+    A: the instance's arrays; eligible: bool[J, N] (A.eligible, or a narrower choice).
     Ties: earliest start, then lowest node index. Writes assign and start int64[J].
     Per-node room is unknown up front, so slices start small and grow (see `_grow`).
     Returns False if some job has no node or a predecessor comes later in `order`.
     """
+    demand, capacity = A.demand, A.capacity
+    maint_ptr, maint_start, maint_end = A.maint_ptr, A.maint_start, A.maint_end
     n_jobs = order.shape[0]
     n_nodes = capacity.shape[0]
     seg_cap = np.empty(n_nodes, np.int64)
@@ -482,7 +466,7 @@ def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, ca
     start[:] = -1
     for q in range(n_jobs):
         j = order[q]
-        t0 = _ready_time(j, ready, end, pred_ptr, pred_idx)
+        t0 = _ready_time(j, A.ready, end, A.pred_ptr, A.pred_idx)
         if t0 < 0:
             return False
         d0 = demand[j, 0]
@@ -495,7 +479,7 @@ def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, ca
         for i in range(n_nodes):
             if not eligible[j, i]:
                 continue
-            dur = np.int64(duration[j, i])
+            dur = duration_of(A, j, i)
             if best_i >= 0 and t0 + dur > best_e:  # cannot finish earlier here
                 continue
             s, k = earliest_start(seg_t, seg_f, seg_lo[i], seg_n[i], t0, dur, d0, d1, d2)
@@ -513,7 +497,7 @@ def greedy_list(order, eligible, demand, duration, ready, pred_ptr, pred_idx, ca
         if seg_n[i] + 2 > seg_cap[i]:
             seg_t, seg_f, used = _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i,
                                        seg_n[i] + 2)
-        dur = np.int64(duration[j, i])
+        dur = duration_of(A, j, i)
         seg_n[i] = place(seg_t, seg_f, seg_lo[i], seg_n[i], best_k, best_s, dur, d0, d1, d2)
         assign[j] = i
         start[j] = best_s

@@ -1,7 +1,8 @@
 """Schedule builder: start times from an assignment (serial SGS), for one plan or a population.
 
-A thin, checked face over `kernels.sgs_population`; every array is handed over in the one
-dtype/layout the kernel was compiled for, so numba keeps a single cached specialisation.
+A thin, checked face over `kernels.sgs_population`: the instance's arrays go over as one
+structured argument (`Instance.arrays`), each in the one dtype/layout the kernel was compiled
+for, so numba keeps a single cached specialisation.
 """
 
 from __future__ import annotations
@@ -50,30 +51,16 @@ def check_assign(inst: Instance, assign: np.ndarray) -> np.ndarray:
 
 
 def _run(inst: Instance, assign2d: np.ndarray, order: np.ndarray, keep_starts: bool,
-         justify: bool, spread: bool = False, tail: bool = False
-         ) -> tuple[np.ndarray, np.ndarray]:
+         justify: bool, columns: int = 3) -> tuple[np.ndarray, np.ndarray]:
     n_pop = assign2d.shape[0]
-    start = np.empty((n_pop, inst.n_jobs if keep_starts else 0), dtype=np.int64)
-    fitness = np.empty((n_pop, 5 if tail else 4 if spread else 3), dtype=np.float64)
-    serial = n_pop * inst.n_jobs < SERIAL_BELOW
-    if order.ndim == 1 and not justify and not spread and not tail:  # the plain path
-        kernel = kernels.sgs_population_serial if serial else kernels.sgs_population
-        kernel(
-            assign2d, order, inst.demand, inst.duration, inst.ready, inst.due, inst.weight,
-            inst.pred_ptr, inst.pred_idx, inst.capacity, inst.maint_ptr, inst.maint_start,
-            inst.maint_end, start, fitness,
-        )
-        return start, fitness
-    if order.ndim == 2 and order.shape[0] != n_pop:
+    if order.ndim == 2 and order.shape[0] not in (1, n_pop):
         raise ValueError(f"order has {order.shape[0]} rows, the population {n_pop}")
-    kernel = (kernels.sgs_population_justified_serial if serial
-              else kernels.sgs_population_justified)
-    kernel(
-        assign2d, order.reshape(-1, inst.n_jobs), inst.demand, inst.duration, inst.ready,
-        inst.due, inst.weight, inst.pred_ptr, inst.pred_idx, inst.succ_ptr, inst.succ_idx,
-        inst.capacity, inst.maint_ptr, inst.maint_start, inst.maint_end,
-        JUSTIFY_ROUNDS if justify else 0, start, fitness,
-    )
+    start = np.empty((n_pop, inst.n_jobs if keep_starts else 0), dtype=np.int64)
+    fitness = np.empty((n_pop, columns), dtype=np.float64)
+    serial = n_pop * inst.n_jobs < SERIAL_BELOW
+    kernel = kernels.sgs_population_serial if serial else kernels.sgs_population
+    kernel(inst.arrays, assign2d, order.reshape(-1, inst.n_jobs),
+           JUSTIFY_ROUNDS if justify else 0, start, fitness)
     return start, fitness
 
 
@@ -115,7 +102,7 @@ def evaluate_population(inst: Instance, assign2d: np.ndarray,
     if assign2d.ndim != 2:
         raise ValueError("population must be a 2-D array [pop_size, n_jobs]")
     _, fitness = _run(inst, assign2d, check_order(inst, order), keep_starts=False,
-                      justify=justify, spread=spread, tail=tail)
+                      justify=justify, columns=5 if tail else 4 if spread else 3)
     return fitness
 
 

@@ -31,12 +31,8 @@ def greedy_assign(inst: Instance, order: np.ndarray | None = None,
     order = check_order(inst, order)
     assign = np.empty(inst.n_jobs, dtype=np.int64)
     start = np.empty(inst.n_jobs, dtype=np.int64)
-    ok = kernels.greedy_list(
-        order, inst.eligible if eligible is None else eligible, inst.demand, inst.duration,
-        inst.ready, inst.pred_ptr,
-        inst.pred_idx, inst.capacity, inst.maint_ptr, inst.maint_start, inst.maint_end,
-        assign, start,
-    )
+    ok = kernels.greedy_list(inst.arrays, order, inst.eligible if eligible is None else eligible,
+                             assign, start)
     if not ok:  # cannot happen for a checked batch: every job has an eligible node
         raise SolveError("greedy: a job has no node that can hold it")
     return assign, start

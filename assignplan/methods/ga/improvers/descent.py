@@ -29,7 +29,7 @@ import numpy as np
 from numba import njit
 
 from assignplan.instance import Instance
-from assignplan.kernels import earliest_start, init_node, place
+from assignplan.kernels import duration_of, earliest_start, init_node, place
 from assignplan.methods.ga.critical import waiting_head
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
@@ -40,12 +40,13 @@ TOO_LATE = np.int64(1) << 62  # a trial's end when it would delay a job with suc
 
 
 @njit(cache=True)
-def _decode_node(i, seq, n, skip, extra, earliest, latest, demand, duration, capacity,
-                 maint_ptr, maint_start, maint_end, seg_t, seg_f, seg_lo, seg_n, end):
+def _decode_node(A, i, seq, n, skip, extra, earliest, latest, seg_t, seg_f, seg_lo, seg_n,
+                 end):
     """Serial SGS of node i alone: jobs seq[:n] in that order except `skip`, then `extra`
     (each -1 for none). Writes end[j] of each job placed; returns the node's last end, 0 if
     it is empty, TOO_LATE if some job would end after latest[j]."""
-    init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+    init_node(i, seg_t, seg_f, seg_lo, seg_n, A.capacity, A.maint_ptr, A.maint_start,
+              A.maint_end)
     last = np.int64(0)
     for q in range(n + 1):
         if q < n:
@@ -56,13 +57,12 @@ def _decode_node(i, seq, n, skip, extra, earliest, latest, demand, duration, cap
             j = extra
             if j < 0:
                 break
-        dur = np.int64(duration[j, i])
-        s, k = earliest_start(seg_t, seg_f, 0, seg_n[i], earliest[j], dur, demand[j, 0],
-                               demand[j, 1], demand[j, 2])
+        dur = duration_of(A, j, i)
+        d = A.demand[j]
+        s, k = earliest_start(seg_t, seg_f, 0, seg_n[i], earliest[j], dur, d[0], d[1], d[2])
         if s < 0 or s + dur > latest[j]:
             return TOO_LATE
-        seg_n[i] = place(seg_t, seg_f, 0, seg_n[i], k, s, dur, demand[j, 0], demand[j, 1],
-                          demand[j, 2])
+        seg_n[i] = place(seg_t, seg_f, 0, seg_n[i], k, s, dur, d[0], d[1], d[2])
         end[j] = s + dur
         if s + dur > last:
             last = s + dur
@@ -97,14 +97,14 @@ def _take_out(lists, fill, i, j):
 
 
 @njit(cache=True)
-def _descend(assign, start, eligible, earliest, latest, demand, duration, capacity, maint_ptr,
-             maint_start, maint_end, budget, target):
+def _descend(A, assign, start, earliest, latest, budget, target):
     """The descent in place on assign/start int64[J] (a feasible plan). Returns (moves kept,
     node decodes spent); stops when no move or swap off the last-ending node helps, or after
     `budget` decodes. With `target` >= 0: one step off that node instead (every touched node
     still ending before the makespan), whatever `latest` asks of its jobs."""
+    eligible, maint_ptr = A.eligible, A.maint_ptr
     n_jobs = assign.shape[0]
-    n_nodes = capacity.shape[0]
+    n_nodes = A.capacity.shape[0]
     count = np.zeros(n_nodes, np.int64)
     for j in range(n_jobs):
         count[assign[j]] += 1
@@ -116,7 +116,7 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
     for j in np.argsort(start, kind="mergesort"):
         i = assign[j]
         _put(lists, fill, i, j)
-        end[j] = start[j] + np.int64(duration[j, i])
+        end[j] = start[j] + duration_of(A, j, i)
         ends[i] = max(ends[i], end[j])
     windows = 0
     for i in range(n_nodes):
@@ -139,9 +139,8 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
         third = -1
         for qa in range(fill[crit] - 1, -1, -1):  # the last-starting jobs first
             j = lists[crit, qa]
-            a_end = _decode_node(crit, lists[crit], fill[crit], j, -1, earliest, latest,
-                                 demand, duration, capacity, maint_ptr, maint_start, maint_end,
-                                 seg_t, seg_f, seg_lo, seg_n, trial)
+            a_end = _decode_node(A, crit, lists[crit], fill[crit], j, -1, earliest, latest, seg_t,
+                                 seg_f, seg_lo, seg_n, trial)
             spent += 1
             if a_end >= ms:
                 continue
@@ -151,9 +150,8 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                     break
                 if k == crit or not eligible[j, k] or fill[k] + 1 >= width:
                     continue
-                b_end = _decode_node(k, lists[k], fill[k], -1, j, earliest, latest, demand,
-                                     duration, capacity, maint_ptr, maint_start, maint_end,
-                                     seg_t, seg_f, seg_lo, seg_n, trial)
+                b_end = _decode_node(A, k, lists[k], fill[k], -1, j, earliest, latest, seg_t,
+                                     seg_f, seg_lo, seg_n, trial)
                 spent += 1
                 if b_end < ms:  # move j to k
                     _take_out(lists, fill, crit, j)
@@ -165,17 +163,14 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                     break
                 for qm in range(fill[k]):  # j in place of m on k; m to crit or a third node
                     m = lists[k, qm]
-                    b2 = _decode_node(k, lists[k], fill[k], m, j, earliest, latest, demand,
-                                      duration, capacity, maint_ptr, maint_start, maint_end,
-                                      seg_t, seg_f, seg_lo, seg_n, trial)
+                    b2 = _decode_node(A, k, lists[k], fill[k], m, j, earliest, latest, seg_t,
+                                      seg_f, seg_lo, seg_n, trial)
                     spent += 1
                     if b2 >= ms:
                         continue
                     if eligible[m, crit]:  # a swap
-                        a2 = _decode_node(crit, lists[crit], fill[crit], j, m, earliest,
-                                          latest, demand, duration, capacity, maint_ptr,
-                                          maint_start, maint_end, seg_t, seg_f, seg_lo, seg_n,
-                                          trial)
+                        a2 = _decode_node(A, crit, lists[crit], fill[crit], j, m, earliest, latest,
+                                          seg_t, seg_f, seg_lo, seg_n, trial)
                         spent += 1
                         if a2 < ms:
                             _relocate(lists, fill, assign, crit, j, k, m, crit)
@@ -192,10 +187,8 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
                                 or fill[third] + 1 >= width:
                             continue
                         tried += 1
-                        c_end = _decode_node(third, lists[third], fill[third], -1, m, earliest,
-                                             latest, demand, duration, capacity, maint_ptr,
-                                             maint_start, maint_end, seg_t, seg_f, seg_lo,
-                                             seg_n, trial)
+                        c_end = _decode_node(A, third, lists[third], fill[third], -1, m, earliest,
+                                             latest, seg_t, seg_f, seg_lo, seg_n, trial)
                         spent += 1
                         if c_end < ms:
                             _relocate(lists, fill, assign, crit, j, k, m, third)
@@ -217,12 +210,11 @@ def _descend(assign, start, eligible, earliest, latest, demand, duration, capaci
         for i in (crit, k, third):  # the kept rebuild, written out (trials overwrote `trial`)
             if i < 0:
                 continue
-            _decode_node(i, lists[i], fill[i], -1, -1, earliest, latest, demand, duration,
-                         capacity, maint_ptr, maint_start, maint_end, seg_t, seg_f, seg_lo,
+            _decode_node(A, i, lists[i], fill[i], -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
                          seg_n, end)
             for q in range(fill[i]):
                 jj = lists[i, q]
-                start[jj] = end[jj] - np.int64(duration[jj, i])
+                start[jj] = end[jj] - duration_of(A, jj, i)
         if target >= 0:
             break
     return moves, spent
@@ -240,9 +232,7 @@ def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
     latest = np.where(has_succ, end, TOO_LATE - 1).astype(np.int64)
     new_assign = np.array(assign, dtype=np.int64)
     new_start = np.array(start, dtype=np.int64)
-    moves, spent = _descend(new_assign, new_start, inst.eligible, earliest, latest,
-                            inst.demand, inst.duration, inst.capacity, inst.maint_ptr,
-                            inst.maint_start, inst.maint_end, budget, -1)
+    moves, spent = _descend(inst.arrays, new_assign, new_start, earliest, latest, budget, -1)
     head = waiting_head(inst, new_start, inst.end_times(new_assign, new_start))
     if head >= 0 and spent < budget:
         # the makespan job waits, through a chain of follows, for `head`, which itself waited
@@ -251,10 +241,8 @@ def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
         end = inst.end_times(new_assign, new_start)
         latest = np.where(has_succ, end, TOO_LATE - 1).astype(np.int64)
         latest[head] = end[head] - 1
-        pulled, _ = _descend(new_assign, new_start, inst.eligible, earliest, latest,
-                             inst.demand, inst.duration, inst.capacity, inst.maint_ptr,
-                             inst.maint_start, inst.maint_end, budget - spent,
-                             int(new_assign[head]))
+        pulled, _ = _descend(inst.arrays, new_assign, new_start, earliest, latest,
+                             budget - spent, int(new_assign[head]))
         moves += pulled
     return new_assign, new_start, int(moves)
 
