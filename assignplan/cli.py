@@ -235,17 +235,18 @@ def _write_outputs(expanded, inst, result, *, out: Path | None, csv: Path | None
                    report: Path | None, png: Path | None) -> list[str]:
     """Every file of one plan (call inside `files.all_or_nothing`); returns the lines that
     say what was written."""
+    from assignplan import metrics
     from assignplan.plan import to_plan_doc
-    from assignplan.report import exports, stats
+    from assignplan.report import exports
 
     wrote = []
     if out is not None:
         exports.write_json(out, to_plan_doc(inst, result).model_dump(mode="json"))
         wrote.append(f"wrote {out}")
     if csv is not None:
-        summary = stats.summary(inst, result)
-        exports.write_csv_tables(csv, summary, stats.node_frame(inst, result),
-                                 stats.job_frame(inst, result))
+        summary = metrics.summary(inst, result)
+        exports.write_csv_tables(csv, summary, metrics.node_frame(inst, result),
+                                 metrics.job_frame(inst, result))
         wrote.append(f"wrote {csv}/jobs.csv, nodes.csv and summary.csv")
     return wrote + _write_report(expanded, to_plan_doc(inst, result), inst, result, report,
                                  png)
@@ -255,8 +256,9 @@ def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: b
                    plan_to_stdout: bool) -> None:
     """The terminal's share: what was written (stderr), then the plan, the JSON summary or
     the tables (stdout)."""
+    from assignplan import metrics
     from assignplan.plan import to_plan_doc
-    from assignplan.report import stats, tables
+    from assignplan.report import tables
 
     for line in wrote:
         typer.echo(line, err=True)
@@ -264,13 +266,13 @@ def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: b
         typer.echo(json.dumps(to_plan_doc(inst, result).model_dump(mode="json"), indent=2,
                               ensure_ascii=False))
         return
-    summary = stats.summary(inst, result)
+    summary = metrics.summary(inst, result)
     summary["wall_seconds"] = round(time.perf_counter() - _STARTED[0], 3)
     if as_json:
         typer.echo(json.dumps(summary, indent=2))
     else:
-        tables.print_plan(tables.make_console(), summary, stats.node_frame(inst, result),
-                          stats.job_frame(inst, result), show_all=show_all)
+        tables.print_plan(tables.make_console(), summary, metrics.node_frame(inst, result),
+                          metrics.job_frame(inst, result), show_all=show_all)
 
 
 @app.command()

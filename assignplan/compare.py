@@ -8,8 +8,8 @@ import numpy as np
 
 from assignplan.errors import AssignplanError
 from assignplan.instance import NO_DUE, Instance
+from assignplan.metrics import summary
 from assignplan.plan import PlanResult, gap_pct, objective
-from assignplan.report.stats import summary
 
 
 @dataclass(frozen=True)

@@ -29,8 +29,8 @@ from assignplan.importers import Inventory, load_inventory  # noqa: E402
 from assignplan.importers.swf import REQ_TIME, RUN, STATUS, Trace, read_swf, week_batch  # noqa: E402
 from assignplan.instance import build_instance  # noqa: E402
 from assignplan.methods.greedy import solve_greedy  # noqa: E402
+from assignplan.metrics import summary  # noqa: E402
 from assignplan.model import Batch, expand_batch  # noqa: E402
-from assignplan.report.stats import summary  # noqa: E402
 from benchmarks.bench_builder import write_section  # noqa: E402
 
 SECTION = "## Real weeks from the KTH-SP2 trace"

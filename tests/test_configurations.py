@@ -13,7 +13,7 @@ import pytest
 from ortools.linear_solver import pywraplp
 
 from assignplan.bounds import lower_bound
-from assignplan.configurations import configuration_bound
+from assignplan.bounds.configurations import configuration_bound
 from assignplan.methods.exact import solve_exact
 from tests.strategies import instance_of
 

@@ -22,6 +22,7 @@ from assignplan import solve as planner
 from assignplan.check import Violation, check_plan
 from assignplan.cli import app
 from assignplan.instance import Instance, build_instance
+from assignplan.metrics import summary
 from assignplan.model import Batch, HistoryRow, PlanDoc, expand_batch, load_batch, load_plan
 from assignplan.plan import PlanResult, make_result, result_from_doc, to_plan_doc
 from assignplan.report.axes import LEFT, PLOT, grid_step, time_ticks
@@ -37,7 +38,6 @@ from assignplan.report.html import page_budget, render_html_report, write_html_r
 from assignplan.report.palette import OKABE_ITO, PALETTE, group_colours
 from assignplan.report.png import scene_figure, write_png_charts
 from assignplan.report.scene import Rects, Scene, Text
-from assignplan.report.stats import summary
 from assignplan.report.svg import render_svg
 from assignplan.report.timeline import BAR_PAD, ROW_PX, timeline_scene
 from assignplan.units import clock

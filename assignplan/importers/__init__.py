@@ -17,6 +17,7 @@ from typing import Any
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from assignplan.errors import InputError
+from assignplan.files import atomic_write_text, check_output_file
 from assignplan.importers.problems import json_syntax_problem, validation_problems
 from assignplan.importers.reading import decode_utf8, looks_like, read_bytes, wrong_kind
 from assignplan.model import (
@@ -27,7 +28,6 @@ from assignplan.model import (
     expand_batch,
     parse_batch_text,
 )
-from assignplan.report.exports import atomic_write_text, check_output_file
 from assignplan.units import counted
 
 INVENTORY_KIND = 'a JSON inventory ({"window": {...}, "nodes": [...]})'

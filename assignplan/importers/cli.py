@@ -75,9 +75,9 @@ def swf_command(
         "--skip-bad", help="Skip and count malformed lines instead of stopping.")] = False,
 ) -> None:
     """Replay one week of a real trace on your inventory: one single-node job per trace job."""
+    from assignplan.files import check_output_file
     from assignplan.importers import batch_size, write_batch
     from assignplan.importers.swf import import_swf
-    from assignplan.report.exports import check_output_file
 
     def work() -> None:
         check_output_file(out, "--out")
@@ -103,9 +103,9 @@ def csv_command(
     out: OutOpt,
 ) -> None:
     """Read a job spreadsheet into a batch, validated like a batch file."""
+    from assignplan.files import check_output_file
     from assignplan.importers import batch_size, write_batch
     from assignplan.importers.table import import_csv
-    from assignplan.report.exports import check_output_file
 
     def work() -> None:
         check_output_file(out, "--out")

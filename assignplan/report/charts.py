@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 
 from assignplan.instance import Instance
+from assignplan.metrics import node_frame
 from assignplan.plan import PlanResult
 from assignplan.report.axes import (
     LEFT,
@@ -23,7 +24,6 @@ from assignplan.report.axes import (
 from assignplan.report.figures import binned_curve, utilisation_curves
 from assignplan.report.palette import RESOURCE_COLOURS
 from assignplan.report.scene import Dots, Line, Polyline, Rects, Scene, Text
-from assignplan.report.stats import node_frame
 from assignplan.report.timeline import timeline_scene
 from assignplan.units import clock, offset_text
 

@@ -1,4 +1,4 @@
-"""Files a plan is written to: PLAN.json, CSV tables; every write is atomic."""
+"""A plan's files besides the report: PLAN.json and the CSV tables (written atomically)."""
 
 from __future__ import annotations
 
@@ -7,13 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from assignplan.files import (  # noqa: F401  (writers and checks used by the report modules)
-    atomic_write,
-    atomic_write_text,
-    check_output_dir,
-    check_output_file,
-    ensure_folder,
-)
+from assignplan.files import atomic_write, atomic_write_text, ensure_folder
 
 
 def write_json(path: Path | str, payload: dict | list) -> None:

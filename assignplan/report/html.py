@@ -21,13 +21,13 @@ import pandas as pd
 
 from assignplan import __version__
 from assignplan.check import Violation
+from assignplan.files import atomic_write_text
 from assignplan.instance import Instance
+from assignplan.metrics import bound_source_text, job_frame, node_frame, summary
 from assignplan.plan import PlanResult
 from assignplan.report.charts import plan_scenes
-from assignplan.report.exports import atomic_write_text
 from assignplan.report.figures import NODE_ROW_LIMIT
 from assignplan.report.scene import stylesheet
-from assignplan.report.stats import bound_source_text, job_frame, node_frame, summary
 from assignplan.report.svg import render_svg
 from assignplan.units import clock, counted
 

@@ -13,10 +13,10 @@ from pathlib import Path
 
 import numpy as np
 
+from assignplan.files import atomic_write
 from assignplan.instance import Instance
 from assignplan.plan import PlanResult
 from assignplan.report.charts import plan_scenes
-from assignplan.report.exports import atomic_write
 from assignplan.report.palette import INK
 from assignplan.report.scene import WIDTH, Dots, Line, Polyline, Rects, Scene, Style, Text, resolve
 

@@ -8,7 +8,7 @@ import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
-from assignplan.report.stats import LISTED, bound_source_text
+from assignplan.metrics import LISTED, bound_source_text
 from assignplan.units import counted
 
 

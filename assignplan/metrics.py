@@ -1,4 +1,4 @@
-"""Figures of a plan: the summary, the per-node and the per-job frames every output renders.
+"""Figures of a plan as data: the summary, the per-node and the per-job frames.
 
 All figures are computed once here from the instance and the result; tables, CSV, JSON and
 charts only format them. Utilisation is measured against *available* capacity: a node in

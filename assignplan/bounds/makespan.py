@@ -8,7 +8,7 @@ from dataclasses import dataclass
 import networkx as nx
 import numpy as np
 
-from assignplan.configurations import configuration_bound
+from assignplan.bounds.configurations import configuration_bound
 from assignplan.instance import RESOURCES, Instance
 
 MAX_CLASSES = 300  # node-set classes examined beyond the whole cluster (largest load first)
