@@ -26,8 +26,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
-from generate import SCALES, batch_doc, generate  # noqa: E402
-
+from assignplan.generate import SCALES, batch_doc, generate  # noqa: E402
 from assignplan.instance import Instance, build_instance  # noqa: E402
 from assignplan.methods.greedy import greedy_assign  # noqa: E402
 from assignplan.model import Batch, expand_batch  # noqa: E402
@@ -142,7 +141,7 @@ def main(argv: list[str] | None = None) -> int:
     text = "\n".join([
         SECTION, "",
         "A placement = one job given its start on its node's free-capacity profile (serial "
-        "SGS). Batches from `benchmarks/generate.py` (seed 1). Builder rows evaluate a "
+        "SGS). Batches from `assignplan/generate.py` (seed 1). Builder rows evaluate a "
         "population of random eligible assignments per call (`evaluate_population`); the "
         "greedy rows time one `greedy_assign` (it probes every eligible node per job, so its "
         "rate counts jobs placed, not probes). Median of "

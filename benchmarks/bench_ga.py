@@ -29,7 +29,8 @@ sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
 from bench_builder import write_section  # noqa: E402
-from generate import batch_doc, generate  # noqa: E402
+
+from assignplan.generate import batch_doc, generate  # noqa: E402
 
 SECTION = "## Genetic algorithm"
 COMMAND = ".venv/bin/python benchmarks/bench_ga.py"
@@ -106,7 +107,7 @@ def main(argv: list[str] | None = None) -> int:
     load = ", ".join(f"{x:.1f}" for x in os.getloadavg())
     text = "\n".join([
         SECTION, "",
-        "Batches from `benchmarks/generate.py` (`<scale>-<seed>`; `-opt`: known-optimum batch, "
+        "Batches from `assignplan/generate.py` (`<scale>-<seed>`; `-opt`: known-optimum batch, "
         "optimum by construction). Gap % is to the known optimum where there is one, else to "
         "the lower bound (`bounds.lower_bound`), which may be well below the true optimum on "
         "heterogeneous batches. ga: default settings"

@@ -34,7 +34,7 @@ from assignplan.model import Batch, expand_batch  # noqa: E402
 from benchmarks.bench_builder import write_section  # noqa: E402
 
 SECTION = "## Real weeks from the KTH-SP2 trace"
-DEFAULT_TRACE = REPO.parent / "shared" / "data" / "swf" / "KTH-SP2-1996-2.1-cln.swf"
+DEFAULT_TRACE = REPO / "tests" / "data" / "published" / "swf" / "KTH-SP2-1996-2.1-cln.swf"
 # Spread over the year; 34 is the busiest week of the trace (1,207 submitted jobs).
 DEFAULT_WEEKS = (2, 13, 20, 34, 45)
 TIGHT_DIVISOR = 4

@@ -4,7 +4,7 @@ Usage (from the repository root):
     .venv/bin/python benchmarks/bench_reference.py [--exact-seconds 3] [--ga-generations 1000]
         [--ga-stagnation 150] [--ga-seconds 30] [--seed 0] [--classes u120,t60,...] [--no-write]
 
-Instances are read unmodified from tests/data/reference/ and reduced by benchmarks/reductions.py
+Instances are read unmodified from tests/data/published/ and reduced by assignplan/published.py
 (bin packing: z* nodes of C cores, 1-hour jobs, solved = a 1-hour plan; P||Cmax: m whole-node
 machines, solved = makespan C* hours). Results, not asserts; every plan is also run through the
 independent checker, and a plan below a published optimum is reported as a bug.
@@ -28,9 +28,7 @@ from assignplan.errors import SolveError  # noqa: E402
 from assignplan.instance import Instance, build_instance  # noqa: E402
 from assignplan.model import ExpandedBatch, expand_batch, parse_batch_text  # noqa: E402
 from assignplan.plan import PlanResult, to_plan_doc  # noqa: E402
-from assignplan.solve import solve  # noqa: E402
-from benchmarks.bench_builder import write_section  # noqa: E402
-from benchmarks.reductions import (  # noqa: E402
+from assignplan.published import (  # noqa: E402
     HOUR,
     bin_packing_batch,
     graham_lpt_family,
@@ -40,8 +38,10 @@ from benchmarks.reductions import (  # noqa: E402
     read_optima,
     read_pcmax,
 )
+from assignplan.solve import solve  # noqa: E402
+from benchmarks.bench_builder import write_section  # noqa: E402
 
-DATA = REPO / "tests" / "data" / "reference"
+DATA = REPO / "tests" / "data" / "published"
 RESULTS = REPO / "benchmarks" / "RESULTS.md"
 SECTION = "## Published reference instances"
 METHODS = ("greedy", "ga", "exact")
@@ -91,7 +91,8 @@ def pcmax_cases(n_jobs: int) -> list[Case]:
 
 
 def graham_cases() -> list[Case]:
-    """Graham's LPT family for m = 3..6 (optimum 3m hours; family from memory, see reductions)."""
+    """Graham's LPT family for m = 3..6 (optimum 3m hours; family from memory, see
+    `published.graham_lpt_family`)."""
     return [Case(f"graham_m{m}", pcmax_batch(graham_lpt_family(m), m), 3 * m * HOUR, True)
             for m in range(3, 7)]
 
@@ -183,8 +184,8 @@ def table(rows: list[Row], args: argparse.Namespace, bugs: list[str], total: flo
     lines = [
         SECTION, "",
         f"Command: `{command}` ({total:.0f} s in all, 2 cores shared with other work).",
-        "Instances: tests/data/reference/ (unmodified copies; see its README), reduced by"
-        " `benchmarks/reductions.py`. Bin packing: z* nodes of C cores (z* = BPPLIB optimum),"
+        "Instances: tests/data/published/ (unmodified copies; see its README), reduced by"
+        " `assignplan/published.py`. Bin packing: z* nodes of C cores (z* = BPPLIB optimum),"
         " one 1-hour job per item; solved = a 1-hour plan (with fewer nodes no plan is under"
         " 2 h, so the gap of an unsolved one is 100 %). P‖Cmax: m whole-node machines;"
         " solved = makespan C* hours (the file's OPT line; NU_3_0050_10_4's OPT is unconfirmed).",

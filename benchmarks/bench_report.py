@@ -28,9 +28,9 @@ sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
 from bench_builder import write_section  # noqa: E402
-from generate import batch_doc, generate  # noqa: E402
 
 from assignplan import planner  # noqa: E402
+from assignplan.generate import batch_doc, generate  # noqa: E402
 from assignplan.instance import build_instance  # noqa: E402
 from assignplan.model import Batch, expand_batch  # noqa: E402
 from assignplan.report import png  # noqa: E402
@@ -108,9 +108,9 @@ def main(argv: list[str] | None = None) -> int:
     rows = measure()
     text = "\n".join([
         SECTION, "",
-        "The greedy plan of `benchmarks/generate.py --scale large --seed 3` (10,000 jobs, 1,000"
-        " nodes): the whole HTML page, its charts (timeline, utilisation, per node) drawn from"
-        " the same scenes by each renderer (tables and cards are the same in every row). The"
+        "The greedy plan of `python -m assignplan.generate --scale large --seed 3` (10,000 jobs,"
+        " 1,000 nodes): the whole HTML page, its charts (timeline, utilisation, per node) drawn"
+        " from the same scenes by each renderer (tables and cards are the same in every row). The"
         " report uses the first. Render times on the shared 2-CPU machine of the other sections.",
         "",
         "| charts rendered as | page | timeline chart | jobs with hover text | render time |",

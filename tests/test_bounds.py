@@ -29,7 +29,7 @@ from assignplan.plan import to_plan_doc
 from tests.strategies import instance_of, random_batch_doc
 from tests.test_check import serial_plan
 
-DATA = Path(__file__).parent / "data" / "bounds"
+DATA = Path(__file__).parent / "data" / "published"
 WEEK = {"start": "2026-12-07T00:00:00", "hours": 168.0}
 
 
@@ -138,13 +138,17 @@ def _read_pcmax(path: Path) -> tuple[list[int], int, int]:
     return times, m, opt
 
 
-PCMAX = sorted(p for p in (DATA / "pcmax").glob("*.txt"))
+# the instances whose OPT an exact check confirmed when gathered (optima.csv, `verified`)
+PCMAX = [DATA / "pcmax" / f"{name}.txt" for name in (
+    "NU_1_0010_05_0", "NU_2_0050_10_0", "U_1_0010_05_0", "U_1_0010_05_1", "U_1_0010_05_2",
+    "U_1_0010_05_3", "U_1_0010_05_4", "U_1_0050_25_8", "U_2_0010_05_0", "U_2_0050_10_0",
+    "U_3_0010_05_0")]
 
 
 @pytest.mark.parametrize("path", PCMAX, ids=[p.stem for p in PCMAX])
 def test_published_pcmax_instances(path):
     # França, Gendreau, Laporte, Müller (1994) instances with OPT lines, exactly confirmed when
-    # gathered (tests/data/bounds/README.md). Hours -> minutes: every bound scales by 60.
+    # gathered (tests/data/published/README.md). Hours -> minutes: every bound scales by 60.
     times, m, opt = _read_pcmax(path)
     with open(DATA / "pcmax" / "optima.csv", newline="") as f:
         row = next(r for r in csv.DictReader(f) if r["instance"] == path.stem)
@@ -308,7 +312,8 @@ def _read_bpp(path: Path) -> tuple[list[int], int]:
     return [int(x) for x in lines[2 : 2 + n]], cap
 
 
-BPP = sorted((DATA / "binpacking").glob("*.txt"))
+BPP = [DATA / "binpacking" / f"{name}.txt" for name in (
+    "Falkenauer_t60_00", "Falkenauer_u120_08", "N1C1W1_A", "N1W1B1R0", "N1W1B1R1", "N1W1B1R2")]
 
 
 @pytest.mark.parametrize("path", BPP, ids=[p.stem for p in BPP])

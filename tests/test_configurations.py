@@ -17,7 +17,7 @@ from assignplan.bounds.configurations import configuration_bound
 from assignplan.methods.exact import solve_exact
 from tests.strategies import instance_of
 
-DATA = Path(__file__).parent / "data" / "bounds" / "binpacking"
+DATA = Path(__file__).parent / "data" / "published" / "binpacking"
 WEEK = {"start": "2026-12-07T00:00:00", "hours": 168.0}
 
 

@@ -18,13 +18,13 @@ from assignplan.instance import Instance
 from assignplan.methods.exact import horizon, solve_exact
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import PlanResult, make_result, objective, to_plan_doc
-from benchmarks.reductions import bin_packing_batch, read_bpp
+from assignplan.published import bin_packing_batch, read_bpp
 from tests.strategies import instance_of, random_batch_doc
 
 DATA = Path(__file__).parent / "data"
-# Reference files shared with test_bounds.py; provenance in tests/data/bounds/README.md.
-PCMAX = DATA / "bounds" / "pcmax"
-WORKED = DATA / "examples" / "worked_examples.json"
+# Reference files shared with test_bounds.py; provenance in tests/data/published/README.md.
+PCMAX = DATA / "published" / "pcmax"
+WORKED = DATA / "published" / "examples" / "worked_examples.json"
 
 FAST = {"budget": 5.0, "workers": 1, "seed": 0}  # tiny models solve in milliseconds
 
@@ -144,7 +144,7 @@ def graham_family(m: int) -> list[int]:
 def test_graham_lpt_worst_case_optimum(m):
     # R. L. Graham, "Bounds on multiprocessing timing anomalies", SIAM J. Appl. Math. 17(2),
     # 1969: on this family the optimum is 3m (LPT gives 4m - 1). The family is quoted from
-    # standard knowledge of the result (see tests/data/bounds/README.md).
+    # standard knowledge of the result (see tests/data/published/README.md).
     batch, inst = instance_of(identical_whole_node(m, graham_family(m)))
     res = solve_exact(inst, lower_bound=0, **FAST)
     assert (res.makespan, res.status) == (180 * m, "optimal")
@@ -378,7 +378,7 @@ def test_exact_never_worse_than_its_hint_even_when_out_of_time():
     """Falkenauer u120_00 on 48 nodes of 150 cores (E. Falkenauer, J. Heuristics 2, 1996, via
     BPPLIB): CP-SAT finds no plan of its own in a split second, so the greedy hint's plan
     stands, decoded by the builder; it is feasible and never worse than greedy."""
-    data = Path(__file__).parent / "data" / "reference" / "binpacking"
+    data = Path(__file__).parent / "data" / "published" / "binpacking"
     batch, inst = instance_of(bin_packing_batch(read_bpp(data / "Falkenauer_u120_00.txt"), 48))
     bound = lower_bound(inst).value
     greedy = solve_greedy(inst, lower_bound=bound)

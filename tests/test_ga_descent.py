@@ -13,8 +13,8 @@ from assignplan.methods.ga.improvers.descent import descend, descent_step
 from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.greedy import greedy_assign
 from assignplan.plan import make_result, to_plan_doc
+from assignplan.published import graham_lpt_family, pcmax_batch
 from assignplan.schedule import build_schedule, evaluate_population
-from benchmarks.reductions import graham_lpt_family, pcmax_batch
 from tests.strategies import batches, instance_of, random_batch_doc
 
 HOUR = 60

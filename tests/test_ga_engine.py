@@ -12,12 +12,12 @@ from pydantic import ValidationError
 
 from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
+from assignplan.generate import batch_doc, generate
 from assignplan.methods.ga import ga_settings, run_island, solve_ga
 from assignplan.methods.ga.seeding import greedy_variant_orders
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import objective, to_plan_doc
 from assignplan.schedule import evaluate_population
-from benchmarks.generate import batch_doc, generate
 from tests.strategies import batches, instance_of, random_batch_doc
 
 SMALL = ga_settings(mu=8, lam=8, generations=15, local_evaluations=8, greedy_variants=2)

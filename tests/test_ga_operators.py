@@ -342,8 +342,8 @@ def test_packing_exchange_fills_a_node_the_plain_moves_cannot():
     # bins of 10 cores: {6, 5 | 4, 5} overflows node 0 and no single move fits; exchanging
     # the late 5 for the 4 gives {6, 4 | 5, 5}, the 1-hour packing (Falkenauer-style exchange)
     from assignplan.methods.ga.improvers.moves import improve
+    from assignplan.published import BinPacking, bin_packing_batch
     from assignplan.schedule import evaluate_population
-    from benchmarks.reductions import BinPacking, bin_packing_batch
 
     _, inst = instance_of(bin_packing_batch(BinPacking("t", 10, (6, 5, 4, 5)), 2))
     assign = np.array([0, 0, 1, 1])

@@ -17,8 +17,8 @@ from assignplan.methods.ga.improvers.repack import (
 from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.greedy import greedy_assign
 from assignplan.plan import make_result, to_plan_doc
+from assignplan.published import graham_lpt_family, pcmax_batch
 from assignplan.schedule import build_schedule, check_order
-from benchmarks.reductions import graham_lpt_family, pcmax_batch
 from tests.strategies import batches, instance_of
 
 HOUR = 60

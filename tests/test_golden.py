@@ -22,8 +22,8 @@ from assignplan.methods.ga import ga_settings
 from assignplan.methods.greedy import greedy_assign
 from assignplan.model import ExpandedBatch, expand_batch, load_batch, parse_batch_text
 from assignplan.plan import to_plan_doc
+from assignplan.published import pcmax_batch, read_pcmax
 from assignplan.solve import solve
-from benchmarks.reductions import pcmax_batch, read_pcmax
 
 ROOT = Path(__file__).resolve().parents[1]
 GOLDEN = ROOT / "tests" / "data" / "golden"
@@ -38,8 +38,8 @@ def _batch(name: str) -> ExpandedBatch:
         return load_batch(ROOT / "examples" / "small.json")
     if name == "generated-200":
         return load_batch(GOLDEN / "generated-200.json")
-    # published P||Cmax instance (source: tests/data/reference/README.md), reduced here
-    pcmax = read_pcmax(ROOT / "tests" / "data" / "reference" / "pcmax" / "U_2_0050_25_8.txt")
+    # published P||Cmax instance (source: tests/data/published/README.md), reduced here
+    pcmax = read_pcmax(ROOT / "tests" / "data" / "published" / "pcmax" / "U_2_0050_25_8.txt")
     doc = pcmax_batch(pcmax.times, pcmax.machines)
     return expand_batch(parse_batch_text(json.dumps(doc)))
 

@@ -12,13 +12,13 @@ from hypothesis import given, settings
 
 from assignplan.bounds import lower_bound  # written by another helper; ImportError = defect
 from assignplan.check import check_plan  # idem: the test must fail loudly, never skip
+from assignplan.generate import batch_doc, generate
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import to_plan_doc
 from assignplan.schedule import build_schedule
-from benchmarks.generate import batch_doc, generate
 from tests.strategies import batches, instance_of
 
-DATA = Path(__file__).parent / "data" / "examples" / "worked_examples.json"
+DATA = Path(__file__).parent / "data" / "published" / "examples" / "worked_examples.json"
 
 
 def identical_whole_node(m: int, hours: list[float]) -> dict:

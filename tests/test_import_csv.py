@@ -28,7 +28,8 @@ from assignplan.model import expand_batch, load_batch, parse_batch_text
 ROOT = Path(__file__).parent.parent
 TEMPLATE = ROOT / "examples" / "jobs-template.csv"
 INVENTORY = ROOT / "examples" / "inventory-24x32.json"
-SWF_SLICE = Path(__file__).parent / "data" / "swf" / "KTH-SP2-1996-2.1-cln.first2023lines.swf"
+SWF_SLICE = (Path(__file__).parent / "data" / "published" / "swf"
+             / "KTH-SP2-1996-2.1-cln.first2023lines.swf")
 HEADER = "name,count,cores,memory_gib,hours,gpus,needs,follows,ready_h,due_h,weight\n"
 
 

@@ -19,12 +19,12 @@ from assignplan.importers.swf import parse_swf, read_swf, week_batch
 from assignplan.model import expand_batch, load_batch
 from assignplan.units import MAX_JOB_HOURS
 
-DATA = Path(__file__).parent / "data" / "swf"
+DATA = Path(__file__).parent / "data" / "published" / "swf"
 # Published source: Parallel Workloads Archive, KTH-SP2-1996-2.1-cln (Feitelson, Tsafrir,
-# Krakov, JPDC 74(10), 2014); the slice is its first 2023 lines, see tests/data/swf/README.md.
+# Krakov, JPDC 74(10), 2014); the slice is its first 2023 lines (tests/data/published/swf/).
 SLICE = DATA / "KTH-SP2-1996-2.1-cln.first2023lines.swf"
 SLICE_LINES = 2023
-PUBLISHED = Path("/work/shared/data/swf/KTH-SP2-1996-2.1-cln.swf")
+PUBLISHED = DATA / "KTH-SP2-1996-2.1-cln.swf"
 WEEK = 7 * 24 * 3600
 
 # Two node sizes so that both the cores and the memory limit can reject a job.
@@ -96,8 +96,6 @@ def _independent_count(path: Path, week: int, mib_per_core: int) -> Counter:
 
 
 def test_slice_is_the_head_of_the_published_trace():
-    if not PUBLISHED.exists():
-        pytest.skip("the published trace is not on this machine")
     head = PUBLISHED.read_bytes().splitlines(keepends=True)[:SLICE_LINES]
     assert SLICE.read_bytes() == b"".join(head)
 

@@ -17,8 +17,7 @@ from assignplan.instance import Instance, build_instance
 from assignplan.methods.ga import GASettings, ga_settings
 from assignplan.model import ExpandedBatch, expand_batch, parse_batch_text
 from assignplan.plan import PlanResult, to_plan_doc
-from assignplan.solve import solve
-from benchmarks.reductions import (
+from assignplan.published import (
     HOUR,
     bin_packing_batch,
     graham_lpt_family,
@@ -28,8 +27,9 @@ from benchmarks.reductions import (
     read_optima,
     read_pcmax,
 )
+from assignplan.solve import solve
 
-DATA = Path(__file__).parent / "data" / "reference"
+DATA = Path(__file__).parent / "data" / "published"
 BPP_OPT = read_optima(DATA / "binpacking" / "optima.csv", "optimal_bins")
 PCMAX_OPT = read_optima(DATA / "pcmax" / "optima.csv", "optimal_makespan")
 PCMAX_VERIFIED = read_column(DATA / "pcmax" / "optima.csv", "verified")
@@ -152,7 +152,7 @@ def test_bin_packing_optima_respect_the_capacity_bound():
 def test_reduction_makespan_is_one_hour_iff_the_items_pack():
     # Sizes 6, 5, 5, 4 with C = 10 need 2 bins ({6, 4}, {5, 5}): 1 h on 2 nodes, and exactly
     # 2 h on 1 node, as `bin_packing_batch` claims (> 60 min proven means >= 120 min).
-    from benchmarks.reductions import BinPacking
+    from assignplan.published import BinPacking
 
     bpp = BinPacking("tiny", 10, (6, 5, 5, 4))
     for nodes, expected in ((2, HOUR), (1, 2 * HOUR)):

@@ -85,7 +85,7 @@ def week() -> tuple[Instance, PlanResult]:
 @functools.cache
 def large_plan() -> tuple[Instance, PlanResult]:
     """A real greedy plan of the benchmark generator's 10,000-job, 1,000-node batch."""
-    from benchmarks.generate import batch_doc, generate
+    from assignplan.generate import batch_doc, generate
 
     inst = _instance(batch_doc(generate("large", 3)))
     assert inst.n_jobs == 10_000

@@ -1,6 +1,7 @@
-"""Seeded generator of invented batch documents for benchmarks: heterogeneous or known-optimum.
+"""Seeded generator of invented batch documents: heterogeneous weeks, or batches whose optimum
+is known by construction (for tests and benchmarks; never a published instance).
 
-    python benchmarks/generate.py --scale medium --seed 1 [--known-optimum] --out batch.json
+    python -m assignplan.generate --scale medium --seed 1 [--known-optimum] --out batch.json
 
 `generate(scale, seed, known_optimum)` returns a batch document (a dict in our JSON format).
 With ``known_optimum=True`` the dict also carries ``"_known_optimum_h"``, the optimal makespan
