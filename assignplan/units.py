@@ -93,6 +93,14 @@ def iso(start: datetime, minute: int | float) -> str | None:
     return None if when is None else when.isoformat()
 
 
+def number(value: float | None, digits: int = 1, suffix: str = "") -> str:
+    """A figure for a table or a card: thousands separated, `digits` decimals, '–' for
+    a missing or NaN value."""
+    if value is None or value != value:  # NaN is the one value unequal to itself
+        return "–"
+    return f"{value:,.{digits}f}{suffix}"
+
+
 def counted(n: int, noun: str, plural: str | None = None) -> str:
     """'1 job', '2 jobs', '1,204 jobs': a count with its noun in the right number."""
     return f"{n:,} {noun if n == 1 else (plural or noun + 's')}"

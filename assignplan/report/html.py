@@ -11,7 +11,6 @@ one `rect[data-job]` in the timeline.
 
 from __future__ import annotations
 
-import math
 from collections import Counter
 from collections.abc import Sequence
 from html import escape
@@ -29,7 +28,7 @@ from assignplan.report.charts import plan_scenes
 from assignplan.report.figures import NODE_ROW_LIMIT
 from assignplan.report.scene import stylesheet
 from assignplan.report.svg import render_svg
-from assignplan.units import clock, counted
+from assignplan.units import clock, counted, number
 
 OPEN_TABLE_ROWS = 500  # longer job tables start folded, so the charts stay in reach
 FIRST_VIOLATIONS = 5  # violations quoted in the banner of a plan that fails the check
@@ -70,12 +69,6 @@ footer{margin-top:30px;color:var(--muted);font-size:12px}
 """
 
 
-def _num(value, digits: int = 1, suffix: str = "") -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "–"
-    return f"{value:,.{digits}f}{suffix}"
-
-
 def _card(label: str, value: str, sub: str, tone: str = "") -> str:
     cls = f"card {tone}".strip()
     return f'<div class="{cls}"><small>{label}</small><b>{value}</b><span>{sub}</span></div>'
@@ -87,23 +80,23 @@ def summary_cards(inst: Instance, s: dict) -> str:
     seed = "" if s["seed"] is None else f", seed {s['seed']}"
     mk, ends = round(s["makespan_h"] * 60), clock(inst.window_start, inst.window_minutes)
     cards = [
-        _card("makespan", f"{_num(s['makespan_h'], 1)} h",
+        _card("makespan", f"{number(s['makespan_h'], 1)} h",
               f"ends {clock(inst.window_start, mk)}, {'inside' if inside else 'PAST'} the"
               f" window (to {ends})", "ok" if inside else "warn"),
-        _card("lower bound", f"{_num(s['lower_bound_h'], 1)} h",
-              f"gap {_num(s['gap_pct'], 2)} % above the bound"
+        _card("lower bound", f"{number(s['lower_bound_h'], 1)} h",
+              f"gap {number(s['gap_pct'], 2)} % above the bound"
               + (f"; set by {escape(why)}" if (why := bound_source_text(
                   s.get("lower_bound_set_by"))) else "")),
         *(
-            _card(f"{name} utilisation", _num(s[f"{key}_utilisation_pct"], 1, " %"),
-                  f"over the makespan; {_num(s[f'{key}_utilisation_window_pct'], 1, ' %')}"
+            _card(f"{name} utilisation", number(s[f"{key}_utilisation_pct"], 1, " %"),
+                  f"over the makespan; {number(s[f'{key}_utilisation_window_pct'], 1, ' %')}"
                   " over the window (of the capacity outside maintenance)")
             for name, key in (("core", "core"), ("memory", "memory"), ("GPU", "gpu"))
         ),
         _card("past the window", f"{s['jobs_past_window']:,}", "jobs ending after it",
               "warn" if s["jobs_past_window"] else "ok"),
         _card("late jobs", f"{s['late_jobs']:,}",
-              f"weighted tardiness {_num(s['weighted_tardiness_h'], 2)} h",
+              f"weighted tardiness {number(s['weighted_tardiness_h'], 2)} h",
               "warn" if s["late_jobs"] else "ok"),
         _card("method", escape(f"{s['method']}"),
               f"{escape(s['status'])}, solved in {s['seconds']:.2f} s{seed}"),
@@ -170,9 +163,9 @@ def node_table_html(inst: Instance, nodes: pd.DataFrame) -> str:
     head = ("<tr><th>node<th>kind<th>jobs<th>core-h<th>core util<th>peak cores"
             "<th>peak memory GiB<th>GPU util<th>busy until</tr>")
     rows = [
-        f"<tr><td>{escape(r.node)}<td>{escape(r.kind)}<td>{r.jobs:,}<td>{_num(r.core_hours, 1)}"
-        f"<td>{_num(r.core_utilisation_pct, 1, ' %')}<td>{r.peak_cores}/{r.cores}"
-        f"<td>{r.peak_memory_gib:g}/{r.memory_gib:g}<td>{_num(r.gpu_utilisation_pct, 1, ' %')}"
+        f"<tr><td>{escape(r.node)}<td>{escape(r.kind)}<td>{r.jobs:,}<td>{number(r.core_hours, 1)}"
+        f"<td>{number(r.core_utilisation_pct, 1, ' %')}<td>{r.peak_cores}/{r.cores}"
+        f"<td>{r.peak_memory_gib:g}/{r.memory_gib:g}<td>{number(r.gpu_utilisation_pct, 1, ' %')}"
         f"<td>{_when(inst, r.busy_until_h) if r.jobs else 'idle'}"
         for r in nodes.itertuples(index=False)
     ]

@@ -2,20 +2,12 @@
 
 from __future__ import annotations
 
-import math
-
 import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
 from assignplan.metrics import LISTED, bound_source_text
-from assignplan.units import counted
-
-
-def _num(value, digits: int = 1, suffix: str = "") -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "–"
-    return f"{value:,.{digits}f}{suffix}"
+from assignplan.units import counted, number
 
 
 def summary_table(s: dict) -> Table:
@@ -28,23 +20,23 @@ def summary_table(s: dict) -> Table:
     rows = [
         ("method", f"{s['method']} ({s['status']})"),
         ("jobs / nodes", f"{counted(s['jobs'], 'job')} on {counted(s['nodes'], 'node')}"),
-        ("makespan", f"{_num(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
+        ("makespan", f"{number(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
                      f"({fits} the {window_h:g} h window)"),
-        ("lower bound", f"{_num(s['lower_bound_h'], 2)} h (gap {_num(s['gap_pct'], 2)} %)"
+        ("lower bound", f"{number(s['lower_bound_h'], 2)} h (gap {number(s['gap_pct'], 2)} %)"
                         + (f", set by {why}" if (why := bound_source_text(
                             s.get('lower_bound_set_by'))) else "")),
         ("utilisation over makespan",
-         f"cores {_num(s['core_utilisation_pct'], 1, ' %')}, memory "
-         f"{_num(s['memory_utilisation_pct'], 1, ' %')}, "
-         f"GPUs {_num(s['gpu_utilisation_pct'], 1, ' %')}"),
+         f"cores {number(s['core_utilisation_pct'], 1, ' %')}, memory "
+         f"{number(s['memory_utilisation_pct'], 1, ' %')}, "
+         f"GPUs {number(s['gpu_utilisation_pct'], 1, ' %')}"),
         ("utilisation over window",
-         f"cores {_num(s['core_utilisation_window_pct'], 1, ' %')}, memory "
-         f"{_num(s['memory_utilisation_window_pct'], 1, ' %')}, GPUs "
-         f"{_num(s['gpu_utilisation_window_pct'], 1, ' %')}"),
+         f"cores {number(s['core_utilisation_window_pct'], 1, ' %')}, memory "
+         f"{number(s['memory_utilisation_window_pct'], 1, ' %')}, GPUs "
+         f"{number(s['gpu_utilisation_window_pct'], 1, ' %')}"),
         ("jobs ending past window", f"{s['jobs_past_window']:,}"
          + _listed(s["past_window"], s["jobs_past_window"], "past_h", "past it")),
         ("late jobs", f"{s['late_jobs']:,} "
-                      f"(weighted tardiness {_num(s['weighted_tardiness_h'], 2)} h)"
+                      f"(weighted tardiness {number(s['weighted_tardiness_h'], 2)} h)"
          + _listed(s["late"], s["late_jobs"], "late_h", "late")),
         ("time", _time_text(s)),
     ]
@@ -79,9 +71,9 @@ def node_table(nodes: pd.DataFrame) -> Table:
         t.add_column(col, justify=justify)
     for r in nodes.itertuples(index=False):
         t.add_row(
-            r.node, f"{r.jobs:,}", _num(r.core_hours, 1), _num(r.core_utilisation_pct, 1, " %"),
+            r.node, f"{r.jobs:,}", number(r.core_hours, 1), number(r.core_utilisation_pct, 1, " %"),
             f"{r.peak_cores}/{r.cores}", f"{r.peak_memory_gib:g}/{r.memory_gib:g}",
-            _num(r.gpu_utilisation_pct, 1, " %"), r.busy_until or "idle",
+            number(r.gpu_utilisation_pct, 1, " %"), r.busy_until or "idle",
         )
     return t
 
@@ -100,7 +92,7 @@ def job_table(jobs: pd.DataFrame, limit: int | None = 30) -> Table:
         flag = "late" if r.late else ""
         if r.past_window:
             flag = (flag + ", " if flag else "") + "past window"
-        t.add_row(r.job, r.node, r.start, r.end, _num(r.hours, 2), str(r.cores),
+        t.add_row(r.job, r.node, r.start, r.end, number(r.hours, 2), str(r.cores),
                   f"{r.memory_gib:g}", flag, style="red" if r.late else None)
     return t
 
@@ -128,11 +120,11 @@ def compare_table(records: list[dict]) -> Table:
                 "core util", "late jobs", "seconds", "status"):
         t.add_column(col, justify="left" if col in ("method", "status") else "right")
     for r in records:
-        t.add_row(r["method"], _num(r["makespan_h"], 2), _num(r["gap_pct"], 2, " %"),
-                  _num(r["gap_best_pct"], 2, " %"), _num(r["gap_optimum_pct"], 2, " %"),
-                  _num(r["core_utilisation_pct"], 1, " %"),
+        t.add_row(r["method"], number(r["makespan_h"], 2), number(r["gap_pct"], 2, " %"),
+                  number(r["gap_best_pct"], 2, " %"), number(r["gap_optimum_pct"], 2, " %"),
+                  number(r["core_utilisation_pct"], 1, " %"),
                   "–" if r["late_jobs"] is None else str(r["late_jobs"]),
-                  _num(r["seconds"], 2), r["status"])
+                  number(r["seconds"], 2), r["status"])
     return t
 
 
