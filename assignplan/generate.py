@@ -19,7 +19,8 @@ from pathlib import Path
 
 import numpy as np
 
-SCALES = {"small": (200, 20), "medium": (2_000, 200), "large": (10_000, 1_000)}
+SCALES = {"small": (200, 20), "medium": (2_000, 200), "large": (10_000, 1_000),
+          "site": (50_000, 5_000), "national": (100_000, 10_000)}
 
 # kind: cores, memory GiB, GPUs, speed, tags, share of the nodes
 NODE_KINDS = {
@@ -172,7 +173,8 @@ def _known_optimum(n_jobs: int, n_nodes: int, *, rng: np.random.Generator) -> di
 
 def generate(scale: str, seed: int, known_optimum: bool = False) -> dict:
     """An invented batch document at `scale` (small 200 x 20, medium 2,000 x 200,
-    large 10,000 x 1,000 jobs x nodes), reproducible from `seed`.
+    large 10,000 x 1,000, site 50,000 x 5,000, national 100,000 x 10,000 jobs x nodes),
+    reproducible from `seed`.
 
     known_optimum=True: the dict also holds ``_known_optimum_h`` (see the module docstring);
     the job count can fall short of the scale only if a node's rectangle cannot be cut further.

@@ -25,12 +25,17 @@ NO_DUE = np.iinfo(np.int64).max // 4  # far beyond any makespan: never late
 
 class Arrays(NamedTuple):
     """The instance's arrays as the compiled kernels take them: one structured argument
-    (see `Instance` for shapes and units)."""
+    (see `Instance` and `Eligibility` for shapes and units)."""
 
     capacity: np.ndarray
     demand: np.ndarray
-    duration: np.ndarray
-    eligible: np.ndarray
+    dur: np.ndarray
+    node_speed: np.ndarray
+    job_class: np.ndarray
+    node_type: np.ndarray
+    class_ok: np.ndarray
+    class_ptr: np.ndarray
+    class_nodes: np.ndarray
     ready: np.ndarray
     due: np.ndarray
     weight: np.ndarray
@@ -44,15 +49,90 @@ class Arrays(NamedTuple):
 
 
 @dataclass(frozen=True, eq=False)
+class Eligibility:
+    """Which node can hold which job, kept per class: job j may run on node i iff
+    ``ok[job_class[j], node_type[i]]``.
+
+    A node type is a set of nodes no job tells apart (same cores, memory, GPUs and tags, or a
+    finer split such as the ga's node groups); a job class is a set of jobs with the same
+    eligible types. Both are few (a handful of node types, at most a few dozen classes on
+    real inventories) whatever the batch's size, so nothing here is O(jobs x nodes):
+
+    - ``job_class``: int32[J]; ``node_type``: int32[N]; ``ok``: bool[E, T];
+    - ``ptr``/``nodes``: CSR of each class's nodes, ascending: class e's nodes are
+      ``nodes[ptr[e]:ptr[e + 1]]`` (int64[E + 1], int32[sum over classes]).
+    """
+
+    job_class: np.ndarray
+    node_type: np.ndarray
+    ok: np.ndarray
+    ptr: np.ndarray
+    nodes: np.ndarray
+
+    @staticmethod
+    def build(job_class: np.ndarray, node_type: np.ndarray, ok: np.ndarray) -> Eligibility:
+        """From the class tables, with unused classes dropped and equal classes merged."""
+        ok = np.asarray(ok, dtype=bool)
+        rows, inverse = np.unique(ok[np.asarray(job_class)], axis=0, return_inverse=True)
+        job_class = inverse.reshape(-1).astype(np.int32)
+        node_type = np.asarray(node_type, dtype=np.int32)
+        member = rows[:, node_type]  # bool[E, N]: E is small, see the class docstring
+        ptr = np.zeros(len(rows) + 1, dtype=np.int64)
+        ptr[1:] = np.cumsum(member.sum(axis=1))
+        nodes = np.nonzero(member)[1].astype(np.int32)
+        return Eligibility(job_class, node_type, rows, ptr, nodes)
+
+    @staticmethod
+    def from_matrix(matrix: np.ndarray) -> Eligibility:
+        """From a full bool[J, N] matrix (tests and small batches: it is O(J x N))."""
+        matrix = np.asarray(matrix, dtype=bool)
+        _, node_type = np.unique(np.packbits(matrix.T, axis=1), axis=0, return_inverse=True)
+        node_type = node_type.reshape(-1)
+        rep = np.array([np.flatnonzero(node_type == t)[0] for t in range(node_type.max() + 1)])
+        return Eligibility.build(np.arange(matrix.shape[0]), node_type, matrix[:, rep])
+
+    def of(self, jobs: np.ndarray | int, nodes: np.ndarray | int) -> np.ndarray:
+        """bool[...]: may each job run on each node (jobs and nodes broadcast together)."""
+        return self.ok[self.job_class[jobs], self.node_type[nodes]]
+
+    def nodes_of(self, j: int) -> np.ndarray:
+        """int32[k]: job j's eligible nodes, ascending."""
+        e = self.job_class[j]
+        return self.nodes[self.ptr[e] : self.ptr[e + 1]]
+
+    def counts(self) -> np.ndarray:
+        """int64[J]: how many nodes can hold each job."""
+        return np.diff(self.ptr)[self.job_class]
+
+    def matrix(self) -> np.ndarray:
+        """bool[J, N] (tests and small batches only: it is O(J x N))."""
+        return self.ok[self.job_class][:, self.node_type]
+
+    def narrowed(self, keep: np.ndarray, node_group: np.ndarray) -> Eligibility:
+        """The eligibility with job class e also barred from node group g where
+        ``keep[e, g]`` is False (`node_group` int[N] must refine the node types)."""
+        n_groups = int(node_group.max()) + 1
+        group_type = np.zeros(n_groups, dtype=np.int64)
+        group_type[node_group] = self.node_type
+        return Eligibility.build(self.job_class, node_group,
+                                 self.ok[:, group_type] & np.asarray(keep, dtype=bool))
+
+
+@dataclass(frozen=True, eq=False)
 class Instance:
     """Array form of a batch.
 
-    Shapes: J jobs, N nodes, R = 3 resources (cores, memory MiB, GPUs).
+    Shapes: J jobs, N nodes, R = 3 resources (cores, memory MiB, GPUs), S distinct node
+    speeds; nothing is O(J x N) (see `Eligibility`).
 
     - ``capacity``: int64[N, 3]; ``demand``: int64[J, 3]
-    - ``speed``: float64[N]; ``hours``: float64[J] (reference hours)
-    - ``duration``: int32[J, N] minutes, ``ceil(hours*60/speed)``; meaningful where eligible
-    - ``eligible``: bool[J, N], the node can hold the job (cores, memory, GPUs, tags)
+    - ``speeds``: float64[S] the distinct speeds; ``node_speed``: int32[N] index into them
+    - ``hours``: float64[J] (reference hours); ``dur``: int32[J, S] minutes,
+      ``ceil(hours*60/speed)`` (`units.duration_minutes`): job j runs
+      ``dur[j, node_speed[i]]`` minutes on node i
+    - ``elig``: `Eligibility`, which node can hold which job
+    - ``node_class``: int32[N], nodes interchangeable for every job (same type, speed and
+      maintenance)
     - ``ready``: int64[J] earliest start minute; ``due``: int64[J] (``NO_DUE`` if none)
     - ``weight``: float64[J]
     - ``pred_ptr``/``pred_idx``: CSR of predecessors (``follows``), int64
@@ -70,10 +150,12 @@ class Instance:
     window_minutes: int
     capacity: np.ndarray
     demand: np.ndarray
-    speed: np.ndarray
+    speeds: np.ndarray
+    node_speed: np.ndarray
     hours: np.ndarray
-    duration: np.ndarray
-    eligible: np.ndarray
+    dur: np.ndarray
+    elig: Eligibility
+    node_class: np.ndarray
     ready: np.ndarray
     due: np.ndarray
     weight: np.ndarray
@@ -90,7 +172,11 @@ class Instance:
     def arrays(self) -> Arrays:
         """The arrays the kernels read, as one `Arrays` (built on each call: cheap, and
         always that of this instance, also after `dataclasses.replace`)."""
-        return Arrays(*(getattr(self, name) for name in Arrays._fields))
+        e = self.elig
+        return Arrays(self.capacity, self.demand, self.dur, self.node_speed, e.job_class,
+                      e.node_type, e.ok, e.ptr, e.nodes, self.ready, self.due, self.weight,
+                      self.pred_ptr, self.pred_idx, self.succ_ptr, self.succ_idx,
+                      self.maint_ptr, self.maint_start, self.maint_end)
 
     @property
     def n_jobs(self) -> int:
@@ -99,6 +185,27 @@ class Instance:
     @property
     def n_nodes(self) -> int:
         return len(self.node_names)
+
+    @property
+    def speed(self) -> np.ndarray:
+        """float64[N]: each node's relative speed."""
+        return self.speeds[self.node_speed]
+
+    @property
+    def duration(self) -> np.ndarray:
+        """int32[J, N]: every job's duration on every node (tests and small batches only:
+        it is O(J x N); methods use `duration_on`)."""
+        return self.dur[:, self.node_speed]
+
+    @property
+    def eligible(self) -> np.ndarray:
+        """bool[J, N] (tests and small batches only: it is O(J x N); methods use
+        `elig.of`)."""
+        return self.elig.matrix()
+
+    def duration_on(self, jobs: np.ndarray | int, nodes: np.ndarray | int) -> np.ndarray:
+        """int32[...]: minutes each job runs on each node (jobs and nodes broadcast)."""
+        return self.dur[jobs, self.node_speed[nodes]]
 
     def predecessors(self, j: int) -> np.ndarray:
         return self.pred_idx[self.pred_ptr[j] : self.pred_ptr[j + 1]]
@@ -109,7 +216,7 @@ class Instance:
     def durations(self, assign: np.ndarray) -> np.ndarray:
         """int64[..., J]: each job's duration on its node under `assign` int64[..., J]."""
         jobs = np.broadcast_to(np.arange(self.n_jobs), np.shape(assign))
-        return self.duration[jobs, assign].astype(np.int64)
+        return self.duration_on(jobs, assign).astype(np.int64)
 
     def end_times(self, assign: np.ndarray, start: np.ndarray) -> np.ndarray:
         """int64[..., J]: start + duration on the assigned node (the one end-time rule)."""
@@ -123,10 +230,19 @@ class Instance:
         return max(0, horizon) - np.bincount(node, weights=lost,
                                              minlength=self.n_nodes).astype(np.int64)
 
+    def class_speeds(self) -> np.ndarray:
+        """bool[E, S]: which speeds the nodes of each job class offer."""
+        e = self.elig
+        out = np.zeros((len(e.ok), len(self.speeds)), dtype=bool)
+        cls = np.repeat(np.arange(len(e.ok)), np.diff(e.ptr))
+        out[cls, self.node_speed[e.nodes]] = True
+        return out
+
     def min_duration(self) -> np.ndarray:
         """int64[J]: each job's shortest duration over its eligible nodes."""
         big = np.iinfo(np.int32).max
-        return np.where(self.eligible, self.duration, big).min(axis=1).astype(np.int64)
+        offered = self.class_speeds()[self.elig.job_class]
+        return np.where(offered, self.dur, big).min(axis=1).astype(np.int64)
 
 
 def _csr(lists: list[list[int]]) -> tuple[np.ndarray, np.ndarray]:
@@ -163,11 +279,10 @@ def build_instance(batch: ExpandedBatch) -> Instance:
     nodes, jobs = batch.nodes, batch.jobs
     capacity = np.array([[n.cores, n.memory_mib, n.gpus] for n in nodes], dtype=np.int64)
     demand = np.array([[j.cores, j.memory_mib, j.gpus] for j in jobs], dtype=np.int64)
-    speed = np.array([n.speed for n in nodes], dtype=np.float64)
     hours = np.array([j.hours for j in jobs], dtype=np.float64)
-
-    duration = duration_minutes(hours[:, None], speed[None, :]).astype(np.int32)
-    eligible = _eligibility(batch, capacity, demand)
+    speeds, node_speed = np.unique(np.array([n.speed for n in nodes], dtype=np.float64),
+                                   return_inverse=True)
+    dur = duration_minutes(hours[:, None], speeds[None, :]).astype(np.int32)
 
     index = {j.name: k for k, j in enumerate(jobs)}
     preds = [sorted({index[p] for p in j.follows}) for j in jobs]
@@ -196,10 +311,12 @@ def build_instance(batch: ExpandedBatch) -> Instance:
         window_minutes=ceil_minutes(batch.window_hours * 60),
         capacity=capacity,
         demand=demand,
-        speed=speed,
+        speeds=speeds,
+        node_speed=node_speed.reshape(-1).astype(np.int32),
         hours=hours,
-        duration=duration,
-        eligible=eligible,
+        dur=dur,
+        elig=_eligibility(batch, capacity, demand),
+        node_class=_node_classes(capacity, node_speed.reshape(-1), nodes),
         ready=ready,
         due=due,
         weight=np.array([j.weight for j in jobs], dtype=np.float64),
@@ -214,14 +331,35 @@ def build_instance(batch: ExpandedBatch) -> Instance:
     )
 
 
-def _eligibility(batch: ExpandedBatch, capacity: np.ndarray, demand: np.ndarray) -> np.ndarray:
-    """bool[J, N]: resources by broadcasting; tags only for the few distinct `needs` sets."""
-    eligible = np.all(demand[:, None, :] <= capacity[None, :, :], axis=2)
-    by_needs: dict[frozenset[str], np.ndarray] = {}
-    for jj, job in enumerate(batch.jobs):
-        if not job.needs:
-            continue
-        if job.needs not in by_needs:
-            by_needs[job.needs] = np.array([job.needs <= n.tags for n in batch.nodes])
-        eligible[jj] &= by_needs[job.needs]
-    return eligible
+def _eligibility(batch: ExpandedBatch, capacity: np.ndarray, demand: np.ndarray
+                 ) -> Eligibility:
+    """Node types (capacity and tags) and, per distinct demand and needs of the jobs, the
+    types that can hold it; broadcasting over kinds x types, never jobs x nodes."""
+    type_key = {}
+    node_type = np.empty(len(batch.nodes), dtype=np.int32)
+    for i, n in enumerate(batch.nodes):
+        node_type[i] = type_key.setdefault((n.cores, n.memory_mib, n.gpus, n.tags),
+                                           len(type_key))
+    type_cap = np.array([k[:3] for k in type_key], dtype=np.int64).reshape(-1, 3)
+    type_tags = [k[3] for k in type_key]
+    kind_key: dict = {}
+    job_kind = np.empty(len(batch.jobs), dtype=np.int64)
+    for j, job in enumerate(batch.jobs):
+        job_kind[j] = kind_key.setdefault((job.cores, job.memory_mib, job.gpus, job.needs),
+                                          len(kind_key))
+    kind_demand = np.array([k[:3] for k in kind_key], dtype=np.int64).reshape(-1, 3)
+    ok = np.all(kind_demand[:, None, :] <= type_cap[None, :, :], axis=2)
+    for k, key in enumerate(kind_key):
+        if key[3]:
+            ok[k] &= [key[3] <= tags for tags in type_tags]
+    return Eligibility.build(job_kind, node_type, ok)
+
+
+def _node_classes(capacity: np.ndarray, node_speed: np.ndarray, nodes) -> np.ndarray:
+    """int32[N]: nodes with the same capacity, speed, tags and maintenance share a class."""
+    key: dict = {}
+    out = np.empty(len(nodes), dtype=np.int32)
+    for i, n in enumerate(nodes):
+        out[i] = key.setdefault((tuple(capacity[i]), int(node_speed[i]), n.tags,
+                                 tuple(sorted(n.maintenance))), len(key))
+    return out

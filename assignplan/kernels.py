@@ -158,7 +158,13 @@ def _ready_time(j, ready, end, pred_ptr, pred_idx):
 @njit(cache=True, inline="always")
 def duration_of(A, j, i):
     """Minutes job j runs on node i (the one place the kernels read durations)."""
-    return np.int64(A.duration[j, i])
+    return np.int64(A.dur[j, A.node_speed[i]])
+
+
+@njit(cache=True, inline="always")
+def eligible_of(A, j, i):
+    """Node i can hold job j (`instance.Eligibility`)."""
+    return A.class_ok[A.job_class[j], A.node_type[i]]
 
 
 @njit(cache=True)
@@ -437,11 +443,12 @@ def _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i, need):
 
 
 @njit(cache=True)
-def greedy_list(A, order, eligible, assign, start):
+def greedy_list(A, order, job_class, class_ptr, class_nodes, assign, start):
     """List scheduling: each job in `order` to the eligible node where it finishes earliest.
 
-    A: the instance's arrays; eligible: bool[J, N] (A.eligible, or a narrower choice).
-    Ties: earliest start, then lowest node index. Writes assign and start int64[J].
+    A: the instance's arrays; job_class/class_ptr/class_nodes: where each job may go (the
+    CSR of `instance.Eligibility`: A's own, or a narrower choice); only those nodes are
+    probed. Ties: earliest start, then lowest node index. Writes assign and start int64[J].
     Per-node room is unknown up front, so slices start small and grow (see `_grow`).
     Returns False if some job has no node or a predecessor comes later in `order`.
     """
@@ -476,9 +483,9 @@ def greedy_list(A, order, eligible, assign, start):
         best_s = np.int64(0)
         best_k = -1
         best_e = np.int64(0)
-        for i in range(n_nodes):
-            if not eligible[j, i]:
-                continue
+        c = job_class[j]
+        for q in range(class_ptr[c], class_ptr[c + 1]):
+            i = class_nodes[q]
             dur = duration_of(A, j, i)
             if best_i >= 0 and t0 + dur > best_e:  # cannot finish earlier here
                 continue

@@ -45,7 +45,7 @@ def check_assign(inst: Instance, assign: np.ndarray) -> np.ndarray:
         raise ValueError(f"assignment has {assign.shape[-1]} jobs, the batch {inst.n_jobs}")
     if assign.size and (assign.min() < 0 or assign.max() >= inst.n_nodes):
         raise ValueError("assignment names a node index out of range")
-    if not inst.eligible[np.arange(inst.n_jobs), assign].all():
+    if not inst.elig.of(np.broadcast_to(np.arange(inst.n_jobs), assign.shape), assign).all():
         raise ValueError("assignment puts a job on a node that cannot hold it")
     return assign
 

@@ -40,13 +40,14 @@ def makespan(inst, assign, start) -> int:
 def test_plain_jobs_leave_the_special_node_to_the_jobs_that_need_it():
     batch, inst = instance_of(crowded_fast_node())
     assert makespan(inst, *greedy_assign(inst)) == 6.5 * 60
-    allowed = balanced_eligibility(inst)
-    assert allowed is not None
+    narrowed = balanced_eligibility(inst)
+    assert narrowed is not None
+    allowed = narrowed.matrix()
     plain = np.array([name.startswith("plain") for name in inst.job_names])
     gpu_node = inst.capacity[:, 2] > 0
     assert not allowed[np.ix_(plain, gpu_node)].any()
     assert allowed[np.ix_(~plain, gpu_node)].all()
-    assign, start = greedy_assign(inst, inst.order, allowed)
+    assign, start = greedy_assign(inst, inst.order, narrowed)
     assert makespan(inst, assign, start) == 4.5 * 60
     plan = to_plan_doc(inst, make_result(inst, "greedy", assign, start, 0, status="feasible"))
     assert check_plan(batch, plan) == []
@@ -79,12 +80,13 @@ def test_balanced_and_reserved_choices_keep_a_node_for_every_job_and_plans_pass_
     reserved = reserved_eligibility(inst)
     if reserved is not None:  # a reservation never raises the relaxation's load
         assert class_split(inst, reserved)[3] <= class_split(inst)[3] * (1 + 1e-6)
-    for allowed in (balanced_eligibility(inst), reserved):
-        if allowed is None:
+    for narrowed in (balanced_eligibility(inst), reserved):
+        if narrowed is None:
             continue
+        allowed = narrowed.matrix()
         assert not (allowed & ~inst.eligible).any()
         assert allowed.any(axis=1).all()
-        assign, start = greedy_assign(inst, inst.order, allowed)
+        assign, start = greedy_assign(inst, inst.order, narrowed)
         assert allowed[np.arange(inst.n_jobs), assign].all()
         plan = to_plan_doc(inst, make_result(inst, "greedy", assign, start, 0,
                                              status="feasible"))
@@ -126,14 +128,15 @@ def roomy_plain_nodes(plain_jobs: int) -> dict:
 
 def test_scarce_group_is_reserved_while_the_others_can_absorb_its_guests():
     _, inst = instance_of(roomy_plain_nodes(12))
-    allowed = reserved_eligibility(inst)
-    assert allowed is not None
+    reserved = reserved_eligibility(inst)
+    assert reserved is not None
+    allowed = reserved.matrix()
     plain = np.array([name.startswith("plain") for name in inst.job_names])
     gpu_node = inst.capacity[:, 2] > 0
     assert not allowed[np.ix_(plain, gpu_node)].any()  # plain jobs: plain nodes only
     assert allowed[np.ix_(plain, ~gpu_node)].all()
     assert allowed[np.ix_(~plain, gpu_node)].all()  # the GPU jobs keep their node
-    assert abs(class_split(inst, allowed)[3] - 6 * 60) < 1e-6
+    assert abs(class_split(inst, reserved)[3] - 6 * 60) < 1e-6
     assert abs(class_split(inst)[3] - 6 * 60) < 1e-6
     # 16 plain jobs: 8 h on the plain nodes alone, but (16 x 2 + 2 x 3) / 5 = 7.6 h with
     # the GPU node's help, so nothing is reserved
@@ -157,8 +160,9 @@ def test_a_group_its_own_jobs_leave_mostly_idle_stays_open():
                      "hours": 2.0, "needs": ["x"]}]}
     _, inst = instance_of(doc)
     assert abs(class_split(inst)[3] - 10 * 60) < 1e-6
-    allowed = reserved_eligibility(inst)
-    assert allowed is not None
+    reserved = reserved_eligibility(inst)
+    assert reserved is not None
+    allowed = reserved.matrix()
     plain = np.array([name.startswith("plain") for name in inst.job_names])
     gpu_node = inst.capacity[:, 2] > 0
     tagged = np.array([name.startswith("tagged") for name in inst.node_names])

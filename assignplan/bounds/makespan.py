@@ -87,7 +87,7 @@ def lower_bound(inst: Instance, *, deadline: float | None = None) -> LowerBound:
     est, fin = head_times(inst)
     fin_ready = _earliest_finish(inst, np.arange(inst.n_jobs), inst.ready)
     parts = {"job": int(fin_ready.max()), "critical_path": int(fin.max())}
-    ref = _min_over_eligible(inst, inst.speed)
+    ref = _reference_minutes(inst)
     classes = _node_set_classes(inst, ref)
     parts.update(_resource_bounds(inst, est, ref, classes))
     parts["configurations"] = _configuration_part(inst, est, ref, classes,
@@ -107,44 +107,56 @@ def time_grid(inst: Instance) -> int:
     start times every start is then a multiple of g, and so is every end, the makespan
     included. A lower bound B therefore rounds up to g * ceil(B / g).
     """
-    values = [inst.duration[inst.eligible].astype(np.int64), inst.ready, inst.maint_end]
+    offered = inst.class_speeds()[inst.elig.job_class]  # bool[J, S]: speeds a job can run at
+    values = [inst.dur[offered].astype(np.int64), inst.ready, inst.maint_end]
     return max(1, int(np.gcd.reduce(np.concatenate(values))))
 
 
 # --------------------------------------------------------------------------- per job, per chain
 
 
-def _maintenance_table(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
-    """int64[N, K] window starts and ends per node, padded with windows that never overlap."""
-    counts = np.diff(inst.maint_ptr)
+def _class_nodes(inst: Instance) -> np.ndarray:
+    """int64[C]: one node of each node class (`Instance.node_class`): nodes of a class have
+    the same speed, capacity, tags and maintenance, so what holds for it holds for them."""
+    _, first = np.unique(inst.node_class, return_index=True)
+    return first.astype(np.int64)
+
+
+def _maintenance_table(inst: Instance, nodes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """int64[len(nodes), K] window starts and ends of `nodes`, padded with windows that
+    never overlap."""
+    counts = np.diff(inst.maint_ptr)[nodes]
     width = int(counts.max()) if len(counts) else 0
-    starts = np.full((inst.n_nodes, width), _BIG, dtype=np.int64)
-    ends = np.full((inst.n_nodes, width), _BIG, dtype=np.int64)
-    for i in np.flatnonzero(counts):
-        lo, hi = inst.maint_ptr[i], inst.maint_ptr[i + 1]
-        starts[i, : hi - lo] = inst.maint_start[lo:hi]
-        ends[i, : hi - lo] = inst.maint_end[lo:hi]
+    starts = np.full((len(nodes), width), _BIG, dtype=np.int64)
+    ends = np.full((len(nodes), width), _BIG, dtype=np.int64)
+    for r in np.flatnonzero(counts):
+        lo, hi = inst.maint_ptr[nodes[r]], inst.maint_ptr[nodes[r] + 1]
+        starts[r, : hi - lo] = inst.maint_start[lo:hi]
+        ends[r, : hi - lo] = inst.maint_end[lo:hi]
     return starts, ends
 
 
 def _earliest_finish(inst: Instance, jobs: np.ndarray, t0: np.ndarray,
-                     table: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
-    """int64[len(jobs)]: min over eligible nodes of the earliest end of each job from `t0`.
+                     table: tuple | None = None) -> np.ndarray:
+    """int64[len(jobs)]: min over eligible nodes of the earliest end of each job from `t0`,
+    computed once per node class (its nodes all give the same end).
 
     Windows are sorted and disjoint, so one pass in start order suffices: after a push to the
     end of window k, every earlier window ends before the new start.
     """
-    starts, ends = _maintenance_table(inst) if table is None else table
+    reps = _class_nodes(inst)
+    starts, ends = _maintenance_table(inst, reps) if table is None else table
     out = np.empty(len(jobs), dtype=np.int64)
-    step = max(1, _CHUNK_CELLS // max(1, inst.n_nodes))
+    step = max(1, _CHUNK_CELLS // max(1, len(reps)))
     for lo in range(0, len(jobs), step):
         rows = jobs[lo : lo + step]
-        dur = inst.duration[rows].astype(np.int64)
+        dur = inst.duration_on(rows[:, None], reps[None, :]).astype(np.int64)
         t = np.broadcast_to(np.asarray(t0[lo : lo + step], dtype=np.int64)[:, None], dur.shape)
         for k in range(starts.shape[1]):
             hit = (t < ends[:, k]) & (starts[:, k] < t + dur)
             t = np.where(hit, ends[:, k], t)
-        out[lo : lo + step] = np.where(inst.eligible[rows], t + dur, _BIG).min(axis=1)
+        eligible = inst.elig.of(rows[:, None], reps[None, :])
+        out[lo : lo + step] = np.where(eligible, t + dur, _BIG).min(axis=1)
     return out
 
 
@@ -162,7 +174,7 @@ def head_times(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
     graph.add_nodes_from(range(inst.n_jobs))
     dst = np.repeat(np.arange(inst.n_jobs), np.diff(inst.pred_ptr))
     graph.add_edges_from(zip(inst.pred_idx.tolist(), dst.tolist(), strict=True))
-    table = _maintenance_table(inst)
+    table = _maintenance_table(inst, _class_nodes(inst))
     est = inst.ready.astype(np.int64).copy()
     fin = np.zeros(inst.n_jobs, dtype=np.int64)
     for generation in nx.topological_generations(graph):
@@ -178,25 +190,21 @@ def head_times(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
 # --------------------------------------------------------------------------- resources
 
 
-def _min_over_eligible(inst: Instance, node_weight: np.ndarray) -> np.ndarray:
-    """float64[J]: min over eligible nodes i of duration_ji * node_weight_i."""
-    out = np.empty(inst.n_jobs, dtype=np.float64)
-    step = max(1, _CHUNK_CELLS // max(1, inst.n_nodes))
-    for lo in range(0, inst.n_jobs, step):
-        dur = inst.duration[lo : lo + step] * node_weight[None, :]
-        out[lo : lo + step] = np.where(inst.eligible[lo : lo + step], dur, np.inf).min(axis=1)
-    return out
+def _reference_minutes(inst: Instance) -> np.ndarray:
+    """float64[J]: min over eligible nodes i of duration_ji * speed_i (a job's run time in
+    reference minutes: at least hours_j * 60), over the speeds its class's nodes offer."""
+    work = inst.dur * inst.speeds[None, :]
+    offered = inst.class_speeds()[inst.elig.job_class]
+    return np.where(offered, work, np.inf).min(axis=1)
 
 
 def _max_capacity(inst: Instance) -> np.ndarray:
     """int64[J, R]: the largest capacity of each resource among each job's eligible nodes."""
-    out = np.empty((inst.n_jobs, len(RESOURCES)), dtype=np.int64)
-    step = max(1, _CHUNK_CELLS // max(1, inst.n_nodes))
-    for lo in range(0, inst.n_jobs, step):
-        elig = inst.eligible[lo : lo + step]
-        for r in range(len(RESOURCES)):
-            out[lo : lo + step, r] = np.where(elig, inst.capacity[None, :, r], -1).max(axis=1)
-    return out
+    e = inst.elig
+    cls = np.repeat(np.arange(len(e.ok)), np.diff(e.ptr))
+    per_class = np.full((len(e.ok), len(RESOURCES)), -1, dtype=np.int64)
+    np.maximum.at(per_class, cls, inst.capacity[e.nodes])
+    return per_class[e.job_class]
 
 
 def _supply(inst: Instance, nodes: np.ndarray, start: int, cap: np.ndarray):
@@ -344,12 +352,14 @@ def clique_bound(p: np.ndarray, est: np.ndarray, n_hosts: int) -> int:
 
 
 def _unique_node_sets(inst: Instance) -> tuple[np.ndarray, np.ndarray]:
-    """Distinct eligibility rows as packed uint64 words, and each job's row index."""
-    packed = np.packbits(inst.eligible, axis=1)
+    """Distinct eligibility rows (the node sets of the job classes) as packed uint64 words,
+    in the rows' byte order, and each job's row index."""
+    e = inst.elig
+    packed = np.packbits(e.ok[:, e.node_type], axis=1)
     pad = (-packed.shape[1]) % 8
-    packed = np.pad(packed, ((0, 0), (0, pad))).view(np.uint64)
+    packed = np.ascontiguousarray(np.pad(packed, ((0, 0), (0, pad)))).view(np.uint64)
     rows, inverse = np.unique(packed, axis=0, return_inverse=True)
-    return rows, inverse.reshape(-1)
+    return rows, inverse.reshape(-1)[e.job_class]
 
 
 def _node_set_classes(inst: Instance, ref: np.ndarray):

@@ -56,10 +56,10 @@ def add_job(m: cp_model.CpModel, inst: Instance, j: int, nodes: np.ndarray, lo: 
         slots.jobs[i].append(j)
         slots.presence[i].append(x)
         slots.intervals[i].append(m.new_optional_fixed_size_interval_var(
-            s, int(inst.duration[j, i]), x, f"iv{j}_{i}"))
+            s, int(inst.duration_on(j, i)), x, f"iv{j}_{i}"))
     m.add_exactly_one(presence.values())
     m.add(e == s + cp_model.LinearExpr.weighted_sum(
-        list(presence.values()), [int(inst.duration[j, i]) for i in presence]))
+        list(presence.values()), [int(inst.duration_on(j, i)) for i in presence]))
     return s, e, presence
 
 
@@ -87,7 +87,7 @@ def add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[in
         cap = int(inst.capacity[i, r])
         m.add_cumulative(intervals + maint, [int(a) for a in demand[:, r]] + [cap] * len(maint),
                          cap)
-    work = demand * inst.duration[jobs, i].astype(np.int64)[:, None]
+    work = demand * inst.duration_on(np.asarray(jobs, dtype=np.int64), i).astype(np.int64)[:, None]
     for r in np.flatnonzero(work.sum(axis=0) > 0):
         m.add(cp_model.LinearExpr.weighted_sum(x, [int(a) for a in work[:, r]])
               <= int(inst.capacity[i, r]) * makespan)

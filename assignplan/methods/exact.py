@@ -51,7 +51,8 @@ def horizon(inst: Instance) -> int:
     is a feasible plan ending by H. (A hint is not trusted for the horizon: a wrong hint would
     make the model infeasible, whereas CP-SAT merely ignores a wrong hint.)
     """
-    longest = np.where(inst.eligible, inst.duration, 0).max(axis=1).astype(np.int64)
+    offered = inst.class_speeds()[inst.elig.job_class]
+    longest = np.where(offered, inst.dur, 0).max(axis=1).astype(np.int64)
     free_from = max(int(inst.ready.max(initial=0)), int(inst.maint_end.max(initial=0)))
     return free_from + int(longest.sum())
 
@@ -74,7 +75,7 @@ def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> 
     slots = NodeSlots(n_nodes)
     start, end, presence = [], [], []
     for j in range(n_jobs):
-        s, e, x = add_job(m, inst, j, np.flatnonzero(inst.eligible[j]), int(inst.ready[j]),
+        s, e, x = add_job(m, inst, j, inst.elig.nodes_of(j), int(inst.ready[j]),
                           big, slots)
         start.append(s)
         end.append(e)

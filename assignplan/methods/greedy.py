@@ -15,24 +15,24 @@ import numpy as np
 
 from assignplan import kernels
 from assignplan.errors import SolveError
-from assignplan.instance import Instance
+from assignplan.instance import Eligibility, Instance
 from assignplan.plan import PlanResult, make_result
 from assignplan.schedule import check_order
 
 
 def greedy_assign(inst: Instance, order: np.ndarray | None = None,
-                  eligible: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                  eligible: Eligibility | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(assign, start), both int64[J]: list scheduling of jobs in `order` (default inst.order).
 
     Each job goes to the eligible node with the earliest finish s_i + p_ji, s_i being its
     earliest feasible start there; ties to the earlier start, then the lower node index.
-    `eligible` (bool[J, N], inside inst.eligible with a node per job) narrows the choice.
+    `eligible` (inside `inst.elig`, with a node for every job) narrows the choice.
     """
     order = check_order(inst, order)
     assign = np.empty(inst.n_jobs, dtype=np.int64)
     start = np.empty(inst.n_jobs, dtype=np.int64)
-    ok = kernels.greedy_list(inst.arrays, order, inst.eligible if eligible is None else eligible,
-                             assign, start)
+    e = inst.elig if eligible is None else eligible
+    ok = kernels.greedy_list(inst.arrays, order, e.job_class, e.ptr, e.nodes, assign, start)
     if not ok:  # cannot happen for a checked batch: every job has an eligible node
         raise SolveError("greedy: a job has no node that can hold it")
     return assign, start

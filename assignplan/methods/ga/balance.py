@@ -16,6 +16,8 @@ from __future__ import annotations
 import numpy as np
 from ortools.linear_solver import pywraplp
 
+from assignplan.instance import Eligibility, Instance
+
 USED = 1e-6  # share of a class's work above which a group counts as used by the relaxation
 RESERVE_SLACK = 1e-6  # relative rise of the relaxation's load a reservation may cause
 RESERVE_FILL = 0.9  # share of that load a group's own jobs must fill for it to be reserved
@@ -26,39 +28,64 @@ def _row_ids(rows: np.ndarray) -> np.ndarray:
     return np.unique(rows, axis=0, return_inverse=True)[1].reshape(-1).astype(np.int64)
 
 
-def node_groups(inst) -> np.ndarray:
+def _in_first_seen_order(labels: np.ndarray) -> np.ndarray:
+    """The distinct values of `labels` in the order they first appear."""
+    values, first = np.unique(labels, return_index=True)
+    return values[np.argsort(first, kind="stable")]
+
+
+def _node_bits(elig: Eligibility) -> np.ndarray:
+    """uint8[N, .]: each node's column of the job x node eligibility, packed, as it compares.
+
+    Two nodes' full columns (one bit per job, in job order) first differ at the first job
+    whose class tells them apart, which is that class's first job: so comparing the columns
+    over the classes in order of first appearance orders the nodes exactly as the full
+    columns would, with E bits a node instead of J."""
+    classes = _in_first_seen_order(elig.job_class)
+    return np.packbits(elig.ok[classes][:, elig.node_type].T, axis=1)
+
+
+def _class_ids(elig: Eligibility) -> np.ndarray:
+    """int64[J]: jobs with the same eligible nodes share an id, in the order of their rows of
+    the job x node eligibility (packed bits, node order), computed per class and node type
+    the same way as `_node_bits`."""
+    types = _in_first_seen_order(elig.node_type)
+    return _row_ids(np.packbits(elig.ok[:, types], axis=1))[elig.job_class]
+
+
+def node_groups(inst: Instance) -> np.ndarray:
     """int64[N]: nodes with the same capacity, speed and eligible jobs share a group.
 
     Compared as bytes (eligibility packed 8 to a byte, numbers big-endian, so the order is
-    the numeric one): on 10,000 x 1,000 that is 1.3 MB, not an 80 MB int64 table."""
+    the numeric one)."""
     speed = np.round(inst.speed * 1e6).astype(">i8")[:, None]
-    key = np.concatenate([np.packbits(inst.eligible.T, axis=1),
-                          inst.capacity.astype(">i8").view(np.uint8),
+    key = np.concatenate([_node_bits(inst.elig), inst.capacity.astype(">i8").view(np.uint8),
                           speed.view(np.uint8)], axis=1)
     return _row_ids(key)
 
 
-def class_split(inst, eligible: np.ndarray | None = None
+def class_split(inst: Instance, eligible: Eligibility | None = None
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """(class int64[J], group int64[N], share float64[C, G], T): the relaxation's optimum.
 
-    `eligible` (bool[J, N] inside inst.eligible, default inst.eligible) narrows where jobs
-    may go; node groups stay those of `node_groups(inst)`.
+    `eligible` (inside inst.elig, default inst.elig) narrows where jobs may go; node groups
+    stay those of `node_groups(inst)`.
 
     share[c, g] is the part of class c's work that group g takes; T the load (minutes per
     node) of the most loaded group. Minimise T subject to sum_g share[c, g] = 1 and, per
     group, sum_c share[c, g] * a[c, g] <= n_g * T, where a[c, g] is the node-minutes all of
     class c would take on g: sum over its jobs of duration on g x largest resource share.
     """
-    eligible = inst.eligible if eligible is None else eligible
+    eligible = inst.elig if eligible is None else eligible
     group = node_groups(inst)
-    cls = _row_ids(np.packbits(eligible, axis=1))
+    cls = _class_ids(eligible)
     n_cls, n_grp = int(cls.max()) + 1, int(group.max()) + 1
     rep = np.array([np.flatnonzero(group == g)[0] for g in range(n_grp)])
     area = np.zeros((n_cls, n_grp))
     np.add.at(area, cls, _node_minutes(inst, rep))
     can = np.zeros((n_cls, n_grp), dtype=bool)
-    np.logical_or.at(can, cls, eligible[:, rep])
+    first = np.unique(cls, return_index=True)[1]
+    can[cls[first]] = eligible.of(first[:, None], rep[None, :])
     size = np.bincount(group, minlength=n_grp)
     lp = pywraplp.Solver.CreateSolver("GLOP")
     t = lp.NumVar(0.0, lp.infinity(), "T")
@@ -79,20 +106,29 @@ def class_split(inst, eligible: np.ndarray | None = None
     return cls, group, share, t.solution_value()
 
 
-def balanced_eligibility(inst) -> np.ndarray | None:
-    """bool[J, N]: each job's eligible nodes in the groups the relaxation gives its class
-    work in (`class_split`), or None when that changes nothing (one class, or every class
-    spread over all its groups)."""
+def _allowed(inst: Instance, cls: np.ndarray, group: np.ndarray) -> np.ndarray:
+    """bool[C, G]: may class c (ids of `_class_ids`) use node group g under inst.elig."""
+    first = np.unique(cls, return_index=True)[1]
+    rep = np.array([np.flatnonzero(group == g)[0] for g in range(int(group.max()) + 1)])
+    allowed = np.zeros((len(first), len(rep)), dtype=bool)
+    allowed[cls[first]] = inst.elig.of(first[:, None], rep[None, :])
+    return allowed
+
+
+def balanced_eligibility(inst: Instance) -> Eligibility | None:
+    """Each job's eligible nodes in the groups the relaxation gives its class work in
+    (`class_split`), or None when that changes nothing (one class, or every class spread
+    over all its groups)."""
     cls, group, share, _ = class_split(inst)
-    used = share > USED  # [C, G]: bool, so the [J, N] mask is bytes, not floats
-    allowed = inst.eligible & used[cls][:, group]
-    return None if np.array_equal(allowed, inst.eligible) else allowed
+    allowed = _allowed(inst, cls, group)
+    used = allowed & (share > USED)
+    return None if np.array_equal(used, allowed) else Eligibility.build(cls, group, used)
 
 
-def reserved_eligibility(inst, slack: float = RESERVE_SLACK, fill: float = RESERVE_FILL
-                         ) -> np.ndarray | None:
-    """bool[J, N]: inst.eligible with scarce node groups kept for the jobs that need them, or
-    None when no group is worth keeping.
+def reserved_eligibility(inst: Instance, slack: float = RESERVE_SLACK,
+                         fill: float = RESERVE_FILL) -> Eligibility | None:
+    """inst.elig with scarce node groups kept for the jobs that need them, or None when no
+    group is worth keeping.
 
     Groups are taken smallest first. A group is *reserved* (every job that could also run on
     a group outside it, under the reservations made so far, loses it) when three things hold:
@@ -113,26 +149,30 @@ def reserved_eligibility(inst, slack: float = RESERVE_SLACK, fill: float = RESER
     _, _, _, base = class_split(inst)
     if not np.isfinite(base):
         return None
-    allowed = inst.eligible.copy()
+    cls = _class_ids(inst.elig)
+    start = _allowed(inst, cls, group)
+    allowed = start.copy()
     sizes = np.bincount(group)
     for g in np.argsort(sizes, kind="stable").tolist():
-        inside = group == g
-        here = allowed[:, inside].any(axis=1)
-        elsewhere = allowed[:, ~inside].any(axis=1)
+        here = allowed[cls, g]
+        elsewhere = np.delete(allowed, g, axis=1)[cls].any(axis=1)
         if not (here & ~elsewhere).any() or not (here & elsewhere).any():
             continue  # nobody needs g, or nobody else could leave it
-        own = _node_minutes(inst, np.flatnonzero(inside)[:1])[here & ~elsewhere].sum() / sizes[g]
+        first = np.flatnonzero(group == g)[:1]
+        own = _node_minutes(inst, first)[here & ~elsewhere].sum() / sizes[g]
         if own < fill * base:
             continue
         trial = allowed.copy()
-        trial[np.ix_(here & elsewhere, inside)] = False
-        if class_split(inst, trial)[3] <= base * (1.0 + slack):
+        trial[np.unique(cls[here & elsewhere]), g] = False
+        if class_split(inst, Eligibility.build(cls, group, trial))[3] <= base * (1.0 + slack):
             allowed = trial
-    return None if np.array_equal(allowed, inst.eligible) else allowed
+    return None if np.array_equal(allowed, start) else Eligibility.build(cls, group, allowed)
 
 
-def _node_minutes(inst, nodes: np.ndarray) -> np.ndarray:
+def _node_minutes(inst: Instance, nodes: np.ndarray) -> np.ndarray:
     """float64[J, len(nodes)]: what each job takes of each node, in node-minutes: its
-    duration there x its largest share of the node's resources (the relaxation's estimate)."""
+    duration there x its largest share of the node's resources (the relaxation's estimate).
+    One column per node asked for (a node group's first node), never one per node."""
     share = inst.demand[:, None, :] / np.maximum(inst.capacity[nodes][None, :, :], 1)
-    return share.max(axis=2) * inst.duration[:, nodes]
+    jobs = np.arange(inst.n_jobs)[:, None]
+    return share.max(axis=2) * inst.duration_on(jobs, np.asarray(nodes)[None, :])

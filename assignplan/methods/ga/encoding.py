@@ -50,28 +50,32 @@ class Rows:
 
 @dataclass(frozen=True, eq=False)
 class EligibleIndex:
-    """Each job's eligible nodes as CSR: nodes of job j are ``idx[ptr[j]:ptr[j + 1]]``."""
+    """Each job's eligible nodes, kept per job class (`instance.Eligibility`): the nodes of
+    job j are ``idx[ptr[c]:ptr[c + 1]]`` with c = ``job_class[j]``, ascending."""
 
-    ptr: np.ndarray  # int64[J + 1]
-    idx: np.ndarray  # int32[nnz], ascending within a job
+    job_class: np.ndarray  # int32[J]
+    ptr: np.ndarray  # int64[E + 1]
+    idx: np.ndarray  # int32[nnz], ascending within a class
 
     @staticmethod
     def of(inst: Instance) -> EligibleIndex:
-        counts = inst.eligible.sum(axis=1)
-        ptr = np.zeros(inst.n_jobs + 1, dtype=np.int64)
-        ptr[1:] = np.cumsum(counts)
-        idx = np.nonzero(inst.eligible)[1].astype(np.int32)
-        return EligibleIndex(ptr, idx)
+        e = inst.elig
+        return EligibleIndex(e.job_class, e.ptr, e.nodes)
 
     def nodes(self, j: int) -> np.ndarray:
-        return self.idx[self.ptr[j] : self.ptr[j + 1]]
+        c = self.job_class[j]
+        return self.idx[self.ptr[c] : self.ptr[c + 1]]
+
+    def first(self) -> np.ndarray:
+        """int64[J]: each job's lowest eligible node."""
+        return self.idx[self.ptr[:-1]][self.job_class].astype(np.int64)
 
     def sample(self, jobs: np.ndarray, *, rng: np.random.Generator) -> np.ndarray:
         """int64[len(jobs)]: a uniformly drawn eligible node for each entry of `jobs`."""
-        jobs = np.asarray(jobs, dtype=np.int64)
-        counts = self.ptr[jobs + 1] - self.ptr[jobs]
-        pick = np.minimum((rng.random(jobs.shape) * counts).astype(np.int64), counts - 1)
-        return self.idx[self.ptr[jobs] + pick].astype(np.int64)
+        cls = self.job_class[np.asarray(jobs, dtype=np.int64)]
+        counts = self.ptr[cls + 1] - self.ptr[cls]
+        pick = np.minimum((rng.random(cls.shape) * counts).astype(np.int64), counts - 1)
+        return self.idx[self.ptr[cls] + pick].astype(np.int64)
 
 
 def random_population(inst: Instance, pop_size: int, index: EligibleIndex, *,
@@ -103,7 +107,7 @@ def node_load(inst: Instance, assign: np.ndarray) -> np.ndarray:
     assign = np.atleast_2d(assign)
     n_pop, n_jobs = assign.shape
     jobs = np.broadcast_to(np.arange(n_jobs), assign.shape)
-    work = inst.duration[jobs, assign] * job_share(inst, jobs, assign)
+    work = inst.duration_on(jobs, assign) * job_share(inst, jobs, assign)
     flat = (np.arange(n_pop)[:, None] * inst.n_nodes + assign).ravel()
     return np.bincount(flat, weights=work.ravel(),
                        minlength=n_pop * inst.n_nodes).reshape(n_pop, inst.n_nodes)

@@ -193,7 +193,7 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     if reserved is not None:
         first = settings.replace(stopping={
             "generations": math.ceil(share * settings.stopping.generations)})
-        island = run_island(dataclasses.replace(inst, eligible=reserved), first, rng=rng,
+        island = run_island(dataclasses.replace(inst, elig=reserved), first, rng=rng,
                             evaluate=evaluate, lower_bound=lower_bound,
                             deadline=t0 + share * budget, on_generation=on_generation)
         history = island.history

@@ -26,8 +26,8 @@ def repair(rows: Rows, inst: Instance, index: EligibleIndex, horizon: int | None
     base = rows.base.copy()
     n_pop, n_jobs = base.shape
     jobs = np.broadcast_to(np.arange(n_jobs), base.shape)
-    base[(base >= 0) & ~inst.eligible[jobs, np.maximum(base, 0)]] = -1
-    extra = rows.extra[inst.eligible[rows.extra[:, 1], rows.extra[:, 2]]]
+    base[(base >= 0) & ~inst.elig.of(jobs, np.maximum(base, 0))] = -1
+    extra = rows.extra[inst.elig.of(rows.extra[:, 1], rows.extra[:, 2])]
     assign = _keep_one(base, extra, keep=keep, rng=rng)
     assign = fill_rows(assign, inst, index, fill=fill, rng=rng)
     if horizon is not None:
@@ -72,7 +72,7 @@ def fill_rows(assign: np.ndarray, inst: Instance, index: EligibleIndex, *,
         out[p_empty, j_empty] = index.sample(j_empty, rng=rng)
         return out
     # an empty row is counted on its first eligible node, then taken off again
-    placed = np.where(out >= 0, out, index.idx[index.ptr[:-1]][None, :])
+    placed = np.where(out >= 0, out, index.first()[None, :])
     load = node_load(inst, placed)
     load[p_empty, placed[p_empty, j_empty]] -= _work(inst, j_empty, placed[p_empty, j_empty])
     for p, j in zip(p_empty.tolist(), j_empty.tolist(), strict=True):
@@ -86,14 +86,14 @@ def fill_rows(assign: np.ndarray, inst: Instance, index: EligibleIndex, *,
 
 def _work(inst: Instance, jobs: np.ndarray, nodes: np.ndarray) -> np.ndarray:
     """float64: p_ji * share_ji, the minutes job j adds to node i's estimated finish."""
-    return inst.duration[jobs, nodes] * job_share(inst, jobs, nodes)
+    return inst.duration_on(jobs, nodes) * job_share(inst, jobs, nodes)
 
 
 def resource_work(inst: Instance, assign: np.ndarray) -> np.ndarray:
     """int64[P, N, 3]: W_pir = sum_{j: a_pj = i} d_jr * p_ji (resource-minutes per node)."""
     n_pop, n_jobs = assign.shape
     jobs = np.broadcast_to(np.arange(n_jobs), assign.shape)
-    dur = inst.duration[jobs, assign].astype(np.int64)
+    dur = inst.duration_on(jobs, assign).astype(np.int64)
     flat = (np.arange(n_pop)[:, None] * inst.n_nodes + assign).ravel()
     out = np.empty((n_pop, inst.n_nodes, 3), dtype=np.int64)
     for r in range(3):
@@ -140,15 +140,15 @@ def _shed_node(row: np.ndarray, work: np.ndarray, p: int, i: int, inst: Instance
     for j in rng.permutation(np.flatnonzero(row == i)).tolist():
         nodes = index.nodes(j).astype(np.int64)
         nodes = nodes[nodes != i]
-        add = inst.demand[j][None, :] * inst.duration[j, nodes].astype(np.int64)[:, None]
+        add = inst.demand[j][None, :] * inst.duration_on(j, nodes).astype(np.int64)[:, None]
         after = work[nodes] + add
         room = (after <= limit[nodes]).all(axis=1)
         if not room.any():
             continue
         fill_ratio = np.where(room, (after / scale[nodes]).max(axis=1), np.inf)
         k = int(nodes[np.argmin(fill_ratio)])
-        work[i] -= inst.demand[j] * int(inst.duration[j, i])
-        work[k] += inst.demand[j] * int(inst.duration[j, k])
+        work[i] -= inst.demand[j] * int(inst.duration_on(j, i))
+        work[k] += inst.demand[j] * int(inst.duration_on(j, k))
         row[j] = k
         moved = True
         if not (work[i] > limit[i]).any():

@@ -21,7 +21,7 @@ ALPHAS = (0.5, 1.0, 0.0)  # scarcity exponents of the greedy variants (0.5 helps
 def greedy_variant_keys(inst: Instance, n: int, noise: float, *,
                         rng: np.random.Generator) -> list[np.ndarray]:
     """n pseudo-hour factors float64[J]: k_j = (N / e_j)^a_k * U(1 +- noise) (see below)."""
-    scarcity = inst.n_nodes / inst.eligible.sum(axis=1)
+    scarcity = inst.n_nodes / inst.elig.counts()
     keys = []
     for k in range(n):
         eps = noise if k >= len(ALPHAS) - 1 else 0.0

@@ -29,7 +29,7 @@ import numpy as np
 from numba import njit
 
 from assignplan.instance import Instance
-from assignplan.kernels import duration_of, earliest_start, init_node, place
+from assignplan.kernels import duration_of, earliest_start, eligible_of, init_node, place
 from assignplan.methods.ga.critical import waiting_head
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
@@ -102,7 +102,7 @@ def _descend(A, assign, start, earliest, latest, budget, target):
     node decodes spent); stops when no move or swap off the last-ending node helps, or after
     `budget` decodes. With `target` >= 0: one step off that node instead (every touched node
     still ending before the makespan), whatever `latest` asks of its jobs."""
-    eligible, maint_ptr = A.eligible, A.maint_ptr
+    maint_ptr = A.maint_ptr
     n_jobs = assign.shape[0]
     n_nodes = A.capacity.shape[0]
     count = np.zeros(n_nodes, np.int64)
@@ -148,7 +148,7 @@ def _descend(A, assign, start, earliest, latest, budget, target):
                 k = by_end[qb]
                 if ends[k] >= ms or spent >= budget:
                     break
-                if k == crit or not eligible[j, k] or fill[k] + 1 >= width:
+                if k == crit or not eligible_of(A, j, k) or fill[k] + 1 >= width:
                     continue
                 b_end = _decode_node(A, k, lists[k], fill[k], -1, j, earliest, latest, seg_t,
                                      seg_f, seg_lo, seg_n, trial)
@@ -168,7 +168,7 @@ def _descend(A, assign, start, earliest, latest, budget, target):
                     spent += 1
                     if b2 >= ms:
                         continue
-                    if eligible[m, crit]:  # a swap
+                    if eligible_of(A, m, crit):  # a swap
                         a2 = _decode_node(A, crit, lists[crit], fill[crit], j, m, earliest, latest,
                                           seg_t, seg_f, seg_lo, seg_n, trial)
                         spent += 1
@@ -183,7 +183,7 @@ def _descend(A, assign, start, earliest, latest, budget, target):
                         third = by_end[ql]
                         if ends[third] >= ms or tried >= CHAIN_PARTNERS or spent >= budget:
                             break
-                        if third == crit or third == k or not eligible[m, third] \
+                        if third == crit or third == k or not eligible_of(A, m, third) \
                                 or fill[third] + 1 >= width:
                             continue
                         tried += 1

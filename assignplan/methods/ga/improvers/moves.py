@@ -43,7 +43,7 @@ def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
         nodes = index.nodes(j).astype(np.int64)
         nodes = nodes[nodes != crit]
         if len(nodes):
-            est = load[nodes] + inst.duration[j, nodes] * job_share(
+            est = load[nodes] + inst.duration_on(j, nodes) * job_share(
                 inst, np.full(len(nodes), j), nodes)
             pick = np.argsort(est, kind="stable")[:TARGETS]
             moves.append((float(est[pick[0]]), j, nodes[pick].tolist()))
@@ -57,7 +57,7 @@ def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
 
 def _area(inst: Instance, jobs: np.ndarray, nodes: np.ndarray) -> np.ndarray:
     """float64[...]: p_ji * share_ji, job j's estimated use of node i (minutes of the node)."""
-    return inst.duration[jobs, nodes] * job_share(inst, jobs, nodes)
+    return inst.duration_on(jobs, nodes) * job_share(inst, jobs, nodes)
 
 
 def _exchanges(inst: Instance, index: EligibleIndex, assign: np.ndarray, end: np.ndarray,
@@ -74,7 +74,7 @@ def _exchanges(inst: Instance, index: EligibleIndex, assign: np.ndarray, end: np
     Martello & Toth's reduction (Knapsack Problems, Wiley 1990, from memory).
     """
     late = np.flatnonzero((assign == crit) & (end == end.max()))
-    owners = np.flatnonzero((assign != crit) & inst.eligible[:, crit])
+    owners = np.flatnonzero((assign != crit) & inst.elig.of(np.arange(inst.n_jobs), crit))
     back = _area(inst, owners, np.full(len(owners), crit))
     own = _area(inst, owners, assign[owners])
     by_node: dict[int, list[int]] = {}
@@ -117,11 +117,11 @@ def _swaps(inst: Instance, assign: np.ndarray, moved: np.ndarray, j: int, k: int
     memory: S. Martello, P. Toth, Knapsack Problems, Wiley 1990, the dominance-based
     reduction), as Falkenauer's grouping GA uses it (J. Heuristics 2, 1996).
     """
-    others = np.flatnonzero((assign == k) & inst.eligible[:, crit])
+    others = np.flatnonzero((assign == k) & inst.elig.of(np.arange(inst.n_jobs), crit))
     if len(others) == 0:
         return
-    area = inst.duration[others, crit] * job_share(inst, others, np.full(len(others), crit))
-    limit = inst.duration[j, crit] * job_share(inst, np.array([j]), np.array([crit]))[0]
+    area = inst.duration_on(others, crit) * job_share(inst, others, np.full(len(others), crit))
+    limit = inst.duration_on(j, crit) * job_share(inst, np.array([j]), np.array([crit]))[0]
     below = area < limit
     others, area = others[below], area[below]
     picks: list[tuple[int, ...]] = []

@@ -62,9 +62,9 @@ def pick_nodes(inst: Instance, assign: np.ndarray, end: np.ndarray, crit: int, k
     np.maximum.at(finish, assign, end)
     on_crit = assign == crit
     others = np.arange(inst.n_nodes) != crit
-    reach = inst.eligible[on_crit].any(axis=0) & others  # nodes crit's jobs could use
+    reach = _reachable(inst, on_crit) & others  # nodes crit's jobs could use
     takes = np.zeros(inst.n_nodes, dtype=bool)  # nodes holding a job crit could take
-    takes[assign[inst.eligible[:, crit]]] = True
+    takes[assign[inst.elig.of(np.arange(inst.n_jobs), crit)]] = True
     takes &= others & ~reach
     if k <= 1 or not (reach | takes).any():
         return np.array([crit], dtype=np.int64)
@@ -78,7 +78,7 @@ def pick_nodes(inst: Instance, assign: np.ndarray, end: np.ndarray, crit: int, k
     early = (finish.max() - finish + 1) / (finish.max() + 1)
     # sinks: nodes crit's jobs cannot use but jobs of crit's class-mates can; they take the
     # plain jobs off the partners so that crit's jobs find room there
-    sinks = inst.eligible[np.isin(assign, np.flatnonzero(reach))].any(axis=0) & others & ~reach
+    sinks = _reachable(inst, np.isin(assign, np.flatnonzero(reach))) & others & ~reach
     n_sinks = min(SINKS, int(sinks.sum()), max(k - 2, 0))
     picks, taken = [], np.zeros(inst.n_nodes, dtype=bool)
     for pool, quota in ((reach, k - 1 - n_sinks), (sinks, n_sinks), (takes, k - 1)):
@@ -91,6 +91,14 @@ def pick_nodes(inst: Instance, assign: np.ndarray, end: np.ndarray, crit: int, k
                                 p=weight / weight.sum()))
         taken[picks[-1]] = True
     return np.concatenate([[crit], np.sort(np.concatenate(picks))]).astype(np.int64)
+
+
+def _reachable(inst: Instance, jobs: np.ndarray) -> np.ndarray:
+    """bool[N]: the nodes some job of `jobs` (bool[J]) can run on."""
+    e = inst.elig
+    classes = np.unique(e.job_class[jobs])
+    return e.ok[classes].any(axis=0)[e.node_type] if len(classes) else np.zeros(
+        inst.n_nodes, dtype=bool)
 
 
 def repack_nodes(inst: Instance, assign: np.ndarray, start: np.ndarray, nodes: np.ndarray, *,
@@ -163,7 +171,7 @@ def _sub_model(inst: Instance, nodes: np.ndarray, freed: np.ndarray, window: np.
     s_var, e_var, x_of = [], [], []
     slots = NodeSlots(inst.n_nodes)
     for r, j in enumerate(freed.tolist()):
-        s, e, xs = add_job(m, inst, j, nodes[inst.eligible[j, nodes]], int(window[r, 0]),
+        s, e, xs = add_job(m, inst, j, nodes[inst.elig.of(j, nodes)], int(window[r, 0]),
                            int(window[r, 1]), slots)
         for i, x in xs.items():
             m.add_hint(x, bool(assign[j] == i))
