@@ -80,9 +80,18 @@ def earliest_start(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2):
     the empty node. When segment m is too full, no start before its end can work, so the
     search jumps to the next breakpoint: each segment is looked at once.
     """
+    return earliest_start_by(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2, NO_DUE)
+
+
+@njit(cache=True)
+def earliest_start_by(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2, latest):
+    """`earliest_start`, giving up (NEVER, -1) as soon as the start would pass `latest`: a
+    caller that only wants starts up to some minute stops scanning there."""
     k = _segment_at(seg_t, lo, n, t0)
     s = t0
     while True:
+        if s > latest:
+            return NEVER, -1
         m = k
         ok = True
         while m < n:
@@ -487,9 +496,15 @@ def greedy_list(A, order, job_class, class_ptr, class_nodes, assign, start):
         for q in range(class_ptr[c], class_ptr[c + 1]):
             i = class_nodes[q]
             dur = duration_of(A, j, i)
-            if best_i >= 0 and t0 + dur > best_e:  # cannot finish earlier here
-                continue
-            s, k = earliest_start(seg_t, seg_f, seg_lo[i], seg_n[i], t0, dur, d0, d1, d2)
+            latest = NO_DUE
+            if best_i >= 0:
+                # to win here the job must end before best_e (start by best_e - dur - 1),
+                # or at best_e from a start before best_s (s = best_e - dur < best_s)
+                latest = best_e - dur - 1 if best_e - dur >= best_s else best_e - dur
+                if latest < t0:
+                    continue
+            s, k = earliest_start_by(seg_t, seg_f, seg_lo[i], seg_n[i], t0, dur, d0, d1, d2,
+                                     latest)
             if s < 0:
                 continue
             e = s + dur
