@@ -28,7 +28,7 @@ from assignplan.methods.ga.population import (
 )
 from assignplan.methods.ga.seeding import initial_population
 from assignplan.methods.ga.selection import lex_less, lex_rank
-from assignplan.methods.ga.settings import GASettings
+from assignplan.methods.ga.settings import GASettings, sized
 from assignplan.methods.ga.variation import vary
 from assignplan.model import HistoryRow
 from assignplan.plan import PlanResult
@@ -185,6 +185,7 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     """
     t0 = time.perf_counter()
     rng = np.random.default_rng(seed)
+    settings = sized(settings, inst.n_jobs)
     evaluate = evaluate or default_evaluate(inst, settings)
     share = settings.seeding.reserve_share
     reserved = reserved_eligibility(inst) if share > 0 else None

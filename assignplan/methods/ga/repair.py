@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import bisect
 from typing import Literal
 
 import numpy as np
+from numba import njit
 
 from assignplan.instance import Instance
+from assignplan.kernels import duration_of
 from assignplan.methods.ga.encoding import EligibleIndex, Rows, job_share, node_load
 
 
@@ -122,35 +125,69 @@ def shed_overload(assign: np.ndarray, inst: Instance, index: EligibleIndex, hori
         return assign
     out = assign.copy()
     scale = np.where(limit > 0, limit, 1).astype(np.float64)
+    arrays = inst.arrays
     for p in np.flatnonzero(over.any(axis=1)).tolist():
+        row, load = out[p], work[p]  # this individual's own rows: changed in place
+        members = _jobs_by_node(row)
         moved = True
         while moved:
             moved = False
-            for i in np.flatnonzero((work[p] > limit).any(axis=1)).tolist():
-                moved |= _shed_node(out[p], work[p], p, i, inst, index, limit, scale, rng=rng)
+            for i in np.flatnonzero((load > limit).any(axis=1)).tolist():
+                jobs = rng.permutation(np.array(members.get(i, []), dtype=np.int64))
+                gone = _shed_node(arrays, jobs, row, load, i, limit, scale, index.job_class,
+                                  index.ptr, index.idx)
+                for j in jobs[:gone].tolist():
+                    if row[j] != i:
+                        bisect.insort(members.setdefault(int(row[j]), []), j)
+                        moved = True
+                members[i] = [j for j in members.get(i, []) if row[j] == i]
     return out
 
 
-def _shed_node(row: np.ndarray, work: np.ndarray, p: int, i: int, inst: Instance,
-               index: EligibleIndex, limit: np.ndarray, scale: np.ndarray, *,
-               rng: np.random.Generator) -> bool:
-    """Move jobs off node i of one individual (row, work updated in place: they are this
-    function's private copies) until it fits; True if any job moved."""
-    moved = False
-    for j in rng.permutation(np.flatnonzero(row == i)).tolist():
-        nodes = index.nodes(j).astype(np.int64)
-        nodes = nodes[nodes != i]
-        add = inst.demand[j][None, :] * inst.duration_on(j, nodes).astype(np.int64)[:, None]
-        after = work[nodes] + add
-        room = (after <= limit[nodes]).all(axis=1)
-        if not room.any():
+def _jobs_by_node(row: np.ndarray) -> dict[int, list[int]]:
+    """node -> its jobs in one individual's assignment, ascending."""
+    order = np.argsort(row, kind="stable")
+    nodes, first = np.unique(row[order], return_index=True)
+    return {int(n): part.tolist() for n, part in zip(nodes, np.split(order, first[1:]),
+                                                    strict=True)}
+
+
+@njit(cache=True)
+def _shed_node(A, jobs, row, work, i, limit, scale, job_class, class_ptr, class_nodes):
+    """Move jobs off node i, in the order of `jobs`, until it fits (see `shed_overload`);
+    row and work (this individual's) change in place. Returns how many of `jobs` were
+    looked at: the moved ones among them now have another node in `row`."""
+    for q in range(jobs.shape[0]):
+        j = jobs[q]
+        c = job_class[j]
+        best_k = -1
+        best_fill = np.inf
+        for x in range(class_ptr[c], class_ptr[c + 1]):
+            k = class_nodes[x]
+            if k == i:
+                continue
+            dur = duration_of(A, j, k)
+            fits = True
+            fill = -np.inf
+            for r in range(3):
+                after = work[k, r] + A.demand[j, r] * dur
+                if after > limit[k, r]:
+                    fits = False
+                    break
+                fill = max(fill, after / scale[k, r])
+            if fits and fill < best_fill:
+                best_k, best_fill = k, fill
+        if best_k < 0:
             continue
-        fill_ratio = np.where(room, (after / scale[nodes]).max(axis=1), np.inf)
-        k = int(nodes[np.argmin(fill_ratio)])
-        work[i] -= inst.demand[j] * int(inst.duration_on(j, i))
-        work[k] += inst.demand[j] * int(inst.duration_on(j, k))
-        row[j] = k
-        moved = True
-        if not (work[i] > limit[i]).any():
-            break
-    return moved
+        d_i, d_k = duration_of(A, j, i), duration_of(A, j, best_k)
+        for r in range(3):
+            work[i, r] -= A.demand[j, r] * d_i
+            work[best_k, r] += A.demand[j, r] * d_k
+        row[j] = best_k
+        fits = True
+        for r in range(3):
+            if work[i, r] > limit[i, r]:
+                fits = False
+        if fits:
+            return q + 1
+    return jobs.shape[0]
