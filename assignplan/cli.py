@@ -48,6 +48,16 @@ def reports_errors(command):
     return wrapper
 
 
+def load_batch_and_warn(path: Path):
+    """Load a batch; its warnings (doubtful but valid input) go to stderr, one line each."""
+    from assignplan.model import load_batch
+
+    expanded = load_batch(path)
+    for line in expanded.warnings:
+        typer.echo(f"{path}: warning: {line}", err=True)
+    return expanded
+
+
 GA_DEFAULTS = GAConfig()
 GenerationsOpt = Annotated[int, typer.Option(help="ga: most generations.", min=0,
                                              rich_help_panel="ga")]
@@ -166,14 +176,13 @@ def solve(
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.instance import build_instance
-    from assignplan.model import load_batch
     from assignplan.report import exports
 
     exports.check_output_file(out, "--out")
     exports.check_output_dir(csv, "--csv")
     exports.check_output_file(report, "--report")
     exports.check_output_dir(png, "--png")
-    expanded = load_batch(batch)
+    expanded = load_batch_and_warn(batch)
     # The planning stack (numba, solvers) loads only once the input is known to be good.
     from assignplan.bounds import lower_bound
     from assignplan.plan import to_plan_doc
@@ -217,9 +226,8 @@ def compare(
 ) -> None:
     """Run greedy, ga and (on small batches) exact with one budget; one row per method."""
     from assignplan.instance import build_instance
-    from assignplan.model import load_batch
 
-    inst = build_instance(load_batch(batch))
+    inst = build_instance(load_batch_and_warn(batch))
     from assignplan.compare import compare_methods, compare_records
     from assignplan.planner import METHODS
     from assignplan.report.tables import compare_table, make_console
@@ -247,13 +255,13 @@ def report(
 ) -> None:
     """Write a self-contained HTML report (timeline, utilisation, tables) of a plan."""
     from assignplan.instance import build_instance
-    from assignplan.model import load_batch, load_plan
+    from assignplan.model import load_plan
     from assignplan.plan import result_from_doc
     from assignplan.report.exports import check_output_dir, check_output_file
 
     check_output_file(out, "--out")
     check_output_dir(png, "--png")
-    inst = build_instance(load_batch(batch))
+    inst = build_instance(load_batch_and_warn(batch))
     try:
         result = result_from_doc(inst, load_plan(plan))
     except InputError as err:
@@ -285,19 +293,27 @@ def check(
 ) -> None:
     """Verify any plan against its batch; list every violation (exit 1 if there is any)."""
     from assignplan.check import check_plan, summary_line
-    from assignplan.model import load_batch, load_plan
+    from assignplan.model import load_plan
+    from assignplan.units import hours_of, iso
 
-    expanded = load_batch(batch)
+    expanded = load_batch_and_warn(batch)
     doc = load_plan(plan)
-    violations = check_plan(expanded, doc)
+    try:
+        violations = check_plan(expanded, doc)
+    except InputError as err:
+        raise InputError([f"{plan}: {p}" for p in err.problems]) from None
     if as_json:
+        def when(minute):
+            return {"at_h": None if minute is None else hours_of(minute),
+                    "at": None if minute is None else iso(expanded.window_start, minute)}
+
         typer.echo(json.dumps({"ok": not violations, "violations": [
-            {"kind": v.kind, "job": v.job, "node": v.node, "minute": v.minute,
+            {"kind": v.kind, "job": v.job, "node": v.node, **when(v.minute),
              "message": v.message} for v in violations]}, indent=2))
     else:
         for v in violations:
             typer.echo(v.message)
-        typer.echo(summary_line(violations, doc))
+        typer.echo(summary_line(violations, doc, expanded))
     if violations:
         raise typer.Exit(1)
 

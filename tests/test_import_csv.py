@@ -62,7 +62,7 @@ def test_empty_cells_take_defaults_and_lists_split_on_semicolons():
     assert rows == [2, 3]
     a, b = jobs
     assert (a.count, a.gpus, a.needs, a.follows, a.ready_h, a.due_h, a.weight) == (
-        1, 0, [], [], 0.0, None, 1.0)
+        1, 0, [], [], None, None, 1.0)
     assert (b.count, b.needs, b.follows, b.ready_h) == (3, ["avx512", "scratch-ssd"], ["a"], 1.5)
 
 
@@ -101,22 +101,24 @@ def test_round_trip_through_files_and_json(tmp_path: Path):
 def test_bad_value_names_row_and_column():
     rows = [f"j{k},1,2,4,1,,,,,," for k in range(5)] + ["j5,1,2,0,1,,,,,,"]
     problems = _errors(HEADER + "\n".join(rows) + "\n")
-    assert problems == ["JOBS.csv:row 7 (jobs[5]).memory_gib: must be greater than 0"]
+    assert problems == ["JOBS.csv:row 7 (jobs[5]).memory_gib: must be greater than 0 and at"
+                        " most 1,048,576 GiB (got 0)"]
 
 
 def test_every_bad_cell_is_reported_once():
     problems = _errors(HEADER + "a,two,2,4,1,,,,,,\nb,1,2.5,4,x,,,,,,\n,1,1,1,1,,,,,,\n")
     assert problems == [
-        "JOBS.csv:row 2 (jobs[0]).count: must be a valid integer",
-        "JOBS.csv:row 3 (jobs[1]).cores: must be a valid integer",
-        "JOBS.csv:row 3 (jobs[1]).hours: must be a valid number",
+        'JOBS.csv:row 2 (jobs[0]).count: must be a whole number (got the text "two")',
+        'JOBS.csv:row 3 (jobs[1]).cores: must be a whole number (got the text "2.5")',
+        'JOBS.csv:row 3 (jobs[1]).hours: must be a number (got the text "x")',
         "JOBS.csv:row 4 (jobs[2]).name: required field is missing",
     ]
 
 
 def test_blank_lines_keep_row_numbers():
     problems = _errors(HEADER + "a,1,2,4,1,,,,,,\n\nb,1,2,4,-1,,,,,,\n")
-    assert problems == ["JOBS.csv:row 4 (jobs[1]).hours: must be greater than 0"]
+    assert problems == ["JOBS.csv:row 4 (jobs[1]).hours: must be at least 0.0001 and at most"
+                        " 10,000 h (got -1)"]
 
 
 def test_cross_field_problems_name_the_row():

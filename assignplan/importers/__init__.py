@@ -49,7 +49,8 @@ def load_inventory(path: Path | str) -> Inventory:
     try:
         inventory = Inventory.model_validate_json(read_text(path))
     except ValidationError as err:
-        raise InputError([f"{path}: {line}" for line in _format_validation_error(err)]) from None
+        raise InputError([f"{path}: {line}"
+                          for line in _format_validation_error(err, Inventory)]) from None
     problems: list[str] = []
     _expand_nodes(inventory, problems)  # reads only `.nodes`, which an Inventory has
     if problems:

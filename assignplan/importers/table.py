@@ -72,7 +72,7 @@ def parse_jobs_csv(text: str, source: str = "<csv>") -> tuple[list[JobGroup], li
         try:
             jobs.append(JobGroup.model_validate(_job_doc(cells)))
         except ValidationError as err:
-            problems += [f"{where}.{line}" for line in _format_validation_error(err)]
+            problems += [f"{where}.{line}" for line in _format_validation_error(err, JobGroup)]
         rows.append(row)
     if problems:
         raise InputError(problems)
