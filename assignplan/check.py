@@ -2,28 +2,35 @@
 
 It shares no code with the schedule builder or the array instance: it reads the expanded batch
 and the plan document and uses only the model's contract helpers (the minute-rounding rule,
-memory units, `can_hold`). A job is taken to run from its planned start for its model
-duration ``ceil(hours * 60 / speed)`` minutes, whatever end the plan states (a wrong stated end
-is a "duration" violation); intervals are half-open ``[start, end)``.
+memory units, `can_hold`, a plan's times in hours). A job is taken to run from its planned start
+for its model duration ``ceil(hours * 60 / speed)`` minutes, whatever end the plan states (a
+stated end is optional; a wrong one is a "duration" violation); intervals are half-open
+``[start, end)``. Messages show calendar times from the window start (``Tue 08 Dec 13:00``).
 """
 
 from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import datetime
 
 import numpy as np
 
 from assignplan.model import (
+    MINUTE_TOLERANCE,
+    Assignment,
     ExpandedBatch,
     Job,
     Node,
     PlanDoc,
     can_hold,
     ceil_minutes,
+    clock,
+    counted,
     duration_minutes,
     floor_minutes,
+    offset_text,
+    plan_hours,
 )
 
 KINDS = (
@@ -32,19 +39,27 @@ KINDS = (
     "makespan",
 )
 RESOURCE_NAMES = ("cores", "memory", "GPUs")
-_TOL = 1e-6  # minutes: float noise of hours * 60 that still counts as a whole minute
+# Minutes: an offset this close to a whole minute is that minute. It covers float noise of
+# hours * 60 and the 4 decimals `units.hours_of` writes (0.003 min at most), and is far below
+# half a minute, so no two minutes are confused.
+_TOL = MINUTE_TOLERANCE
 _MAX_NAMED = 4  # jobs named in one capacity message
 
 
 @dataclass(frozen=True)
 class Violation:
-    """One broken rule of the model, with the job, node and minute it concerns where known."""
+    """One broken rule of the model, with the job, node and minute it concerns where known.
+
+    ``minute``: where the violation begins (minutes from the window start); ``until``: where
+    an overloaded stretch ends (capacity violations only).
+    """
 
     kind: str
     message: str
     job: str | None = None
     node: str | None = None
     minute: int | None = None
+    until: int | None = None
 
 
 @dataclass(frozen=True)
@@ -53,21 +68,19 @@ class _Row:
 
     job: Job
     node: Node
-    start: int  # minutes, round(start_h * 60)
+    start: int  # minutes, the stated start rounded to the minute
     end: int  # start + model duration (not the stated end)
     fits: bool  # `can_hold`: resources and tags
     alone_fits: bool  # resources alone; a job too big by itself is not also a capacity stretch
 
 
-def _clock(minute: int) -> str:
-    """Minutes as hours:minutes from window start, e.g. 690 -> '11:30 h'."""
-    sign = "-" if minute < 0 else ""
-    return f"{sign}{abs(minute) // 60}:{abs(minute) % 60:02d} h"
+@dataclass(frozen=True)
+class _Stated:
+    """What a row states, in hours from the window start (end None when not stated)."""
 
-
-def _when(start: datetime, minute: int) -> str:
-    """'minute 1440 (Tue 2026-12-08 00:00)': the offset and the calendar time it falls on."""
-    return f"minute {minute} ({(start + timedelta(minutes=minute)).strftime('%a %Y-%m-%d %H:%M')})"
+    row: Assignment
+    start_h: float
+    end_h: float | None
 
 
 def _amount(resource: int, value: int) -> str:
@@ -77,32 +90,37 @@ def _amount(resource: int, value: int) -> str:
 
 
 def check_plan(batch: ExpandedBatch, plan: PlanDoc) -> list[Violation]:
-    """Every violation of `plan` against `batch`, in a stable order (rows, follows, capacity)."""
+    """Every violation of `plan` against `batch`, in a stable order (rows, follows, capacity).
+
+    Raises InputError when the plan cannot be read against the batch: a row without a start,
+    or a start (or end) given both as hours and as a calendar time that disagree.
+    """
     out: list[Violation] = []
     rows = _read_rows(batch, plan, out)
-    for row, stated_start, stated_end in rows:
-        out.extend(_row_violations(row, stated_start, stated_end))
-    placed = {row.job.name: row for row, _, _ in rows}
+    for row, stated in rows:
+        out.extend(_row_violations(batch, row, stated))
+    placed = {row.job.name: row for row, _ in rows}
     out.extend(_dependency_violations(batch, placed))
     out.extend(_capacity_violations(batch, [r for r in placed.values() if r.alone_fits]))
-    if placed:
+    if placed and plan.makespan_h is not None:
         last = max(row.end for row in placed.values())
         if plan.makespan_h * 60 < last - _TOL:
             out.append(Violation(
                 "makespan", f"plan states makespan {plan.makespan_h:g} h but its last job ends"
-                f" at {_clock(last)}", minute=last,
+                f" at {clock(batch.window_start, last)} ({offset_text(last)})", minute=last,
             ))
     return out
 
 
 def _read_rows(batch: ExpandedBatch, plan: PlanDoc,
-               out: list[Violation]) -> list[tuple[_Row, float, float]]:
+               out: list[Violation]) -> list[tuple[_Row, _Stated]]:
     """Resolve names; report unknown, duplicate and missing jobs and unknown nodes."""
     jobs = {j.name: j for j in batch.jobs}
     nodes = {n.name: n for n in batch.nodes}
+    times = plan_hours(plan, batch.window_start)
     first_row: dict[str, int] = {}
     rows = []
-    for r, a in enumerate(plan.assignments):
+    for r, (a, (start_h, end_h)) in enumerate(zip(plan.assignments, times, strict=True)):
         job, node = jobs.get(a.job), nodes.get(a.node)
         if job is None:
             out.append(Violation("unknown_job", f"assignment {r}: no job named '{a.job}' in the"
@@ -118,11 +136,12 @@ def _read_rows(batch: ExpandedBatch, plan: PlanDoc,
             out.append(Violation("unknown_node", f"assignment {r}: job {a.job} is on '{a.node}',"
                                  " which is not a node of the batch", job=a.job, node=a.node))
             continue
-        start = int(round(a.start_h * 60))
+        start = int(round(start_h * 60))
         end = start + duration_minutes(job.hours, node.speed)
         alone = (job.cores <= node.cores and job.memory_mib <= node.memory_mib
                  and job.gpus <= node.gpus)
-        rows.append((_Row(job, node, start, end, can_hold(node, job), alone), a.start_h, a.end_h))
+        rows.append((_Row(job, node, start, end, can_hold(node, job), alone),
+                     _Stated(a, start_h, end_h)))
     for job in batch.jobs:
         if job.name not in first_row:
             out.append(Violation("missing_job", f"job {job.name} has no assignment", job=job.name))
@@ -139,33 +158,49 @@ def _shortfall(node: Node, job: Job) -> str:
     return ", ".join(short)
 
 
-def _row_violations(row: _Row, start_h: float, end_h: float) -> list[Violation]:
+def _stated_text(batch: ExpandedBatch, minutes: float, hours_field: float | None,
+                 calendar_field: datetime | None) -> str:
+    """A time a plan states, as it stated it when it is not on a whole minute."""
+    if abs(minutes - round(minutes)) <= _TOL:
+        return clock(batch.window_start, round(minutes))
+    if hours_field is not None:
+        return f"{hours_field:.6g} h from the window start"
+    return calendar_field.isoformat()
+
+
+def _row_violations(batch: ExpandedBatch, row: _Row, stated: _Stated) -> list[Violation]:
     """The checks that concern one job on its node alone."""
     job, node, s, e = row.job.name, row.node.name, row.start, row.end
+    origin, a = batch.window_start, stated.row
     out = []
 
     def add(kind: str, message: str, minute: int = s) -> None:
         out.append(Violation(kind, message, job=job, node=node, minute=minute))
 
-    if abs(start_h * 60 - s) > _TOL:
-        add("off_minute", f"job {job} starts at {start_h:.6g} h, not on a whole minute")
-    if start_h * 60 < -_TOL:
-        add("negative_start", f"job {job} starts at {start_h:g} h, before the window opens")
+    start_min = stated.start_h * 60
+    if abs(start_min - s) > _TOL:
+        add("off_minute", f"job {job} starts at"
+            f" {_stated_text(batch, start_min, a.start_h, a.start)}, not on a whole minute")
+    if start_min < -_TOL:
+        add("negative_start", f"job {job} starts at {clock(origin, s)} ({offset_text(s)}),"
+            f" before the window opens at {clock(origin, 0)}")
     if not row.fits:
         add("cannot_hold", f"node {node} cannot hold job {job} (short of"
             f" {_shortfall(row.node, row.job)})")
-    if abs(end_h * 60 - e) > _TOL:
-        add("duration", f"job {job} is stated to end at {end_h:.6g} h but runs {e - s} min on"
-            f" node {node} (speed {row.node.speed:g}), so it ends at {_clock(e)}", e)
+    if stated.end_h is not None and abs(stated.end_h * 60 - e) > _TOL:
+        add("duration", f"job {job} is stated to end at"
+            f" {_stated_text(batch, stated.end_h * 60, a.end_h, a.end)} but runs {e - s} min on"
+            f" node {node} (speed {row.node.speed:g}), so it ends at {clock(origin, e)}", e)
     ready = ceil_minutes(row.job.ready_h * 60)
-    if s < ready and start_h * 60 >= -_TOL:  # a negative start is reported as such alone
-        add("before_ready", f"job {job} starts at {_clock(s)} before its ready time"
-            f" {_clock(ready)}")
+    if s < ready and start_min >= -_TOL:  # a negative start is reported as such alone
+        add("before_ready", f"job {job} starts at {clock(origin, s)} before its ready time"
+            f" {clock(origin, ready)}")
     for m_start_h, m_end_h in row.node.maintenance:
         # Whole-minute runs meet [a, b) exactly when they meet [floor a, ceil b).
-        if s < ceil_minutes(m_end_h * 60) and floor_minutes(m_start_h * 60) < e:
-            add("maintenance", f"job {job} [{_clock(s)}, {_clock(e)}) overlaps maintenance"
-                f" [{m_start_h:g} h, {m_end_h:g} h) on node {node}")
+        m_start, m_end = floor_minutes(m_start_h * 60), ceil_minutes(m_end_h * 60)
+        if s < m_end and m_start < e:
+            add("maintenance", f"job {job} [{clock(origin, s)}, {clock(origin, e)}) overlaps"
+                f" maintenance [{clock(origin, m_start)}, {clock(origin, m_end)}) on node {node}")
     return out
 
 
@@ -180,8 +215,9 @@ def _dependency_violations(batch: ExpandedBatch, placed: dict[str, _Row]) -> lis
             pred = placed.get(name)
             if pred is not None and row.start < pred.end:
                 out.append(Violation(
-                    "dependency", f"job {job.name} starts at {_clock(row.start)} before its"
-                    f" predecessor {name} ends at {_clock(pred.end)}", job=job.name,
+                    "dependency", f"job {job.name} starts at"
+                    f" {clock(batch.window_start, row.start)} before its predecessor {name} ends"
+                    f" at {clock(batch.window_start, pred.end)}", job=job.name,
                     node=row.node.name, minute=row.start,
                 ))
     return out
@@ -236,24 +272,38 @@ def _capacity_message(batch: ExpandedBatch, rows: list[_Row], nd: np.ndarray, no
     named = ", ".join(running[:_MAX_NAMED])
     if len(running) > _MAX_NAMED:
         named += f" and {len(running) - _MAX_NAMED} more"
+    origin = batch.window_start
     return Violation(
-        "capacity", f"capacity exceeded on node {name} at {_when(batch.window_start, begin)} for"
-        f" {RESOURCE_NAMES[resource]} by {_amount(resource, peak)} until minute {end}"
-        f" (running: {named})", node=name, minute=begin,
+        "capacity", f"capacity exceeded on node {name} for {RESOURCE_NAMES[resource]} by"
+        f" {_amount(resource, peak)} from {clock(origin, begin)} until {clock(origin, end)}"
+        f" (running: {named})", node=name, minute=begin, until=end,
     )
 
 
-def summary_line(violations: list[Violation], plan: PlanDoc) -> str:
-    """One line for the terminal: 'plan OK: ...' or the violation count by kind."""
+def summary_line(violations: list[Violation], plan: PlanDoc,
+                 batch: ExpandedBatch | None = None) -> str:
+    """One line for the terminal: 'plan OK: ...' or the violation count by kind.
+
+    The makespan is the model's (each job's start plus its duration on its node) when the
+    batch is given, else the latest end the plan states.
+    """
     n_jobs = len({a.job for a in plan.assignments})
     n_nodes = len({a.node for a in plan.assignments})
-    makespan = max((a.end_h for a in plan.assignments), default=0.0)
-    scope = (f"{n_jobs} job{'s' * (n_jobs != 1)} on {n_nodes} node{'s' * (n_nodes != 1)},"
-             f" makespan {round(makespan, 2):g} h")
+    scope = f"{counted(n_jobs, 'job')} on {counted(n_nodes, 'node')}"
+    makespan = _makespan_h(plan, batch)
+    if makespan is not None:
+        scope += f", makespan {round(makespan, 2):g} h"
     if not violations:
         return f"plan OK: {scope}, no violations"
     counts = Counter(v.kind for v in violations)
     by_kind = ", ".join(f"{kind} {n}" for kind, n in sorted(counts.items(),
                                                             key=lambda kv: (-kv[1], kv[0])))
-    plural = "" if len(violations) == 1 else "s"
-    return f"{len(violations)} violation{plural} ({by_kind}): {scope}"
+    return f"{counted(len(violations), 'violation')} ({by_kind}): {scope}"
+
+
+def _makespan_h(plan: PlanDoc, batch: ExpandedBatch | None) -> float | None:
+    if batch is not None:
+        rows = _read_rows(batch, plan, [])
+        return max((row.end for row, _ in rows), default=0) / 60
+    ends = [a.end_h for a in plan.assignments if a.end_h is not None]
+    return max(ends, default=0.0) if len(ends) == len(plan.assignments) else None

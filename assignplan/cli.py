@@ -72,6 +72,16 @@ def reports_errors(command):
     return wrapper
 
 
+def load_batch_and_warn(path: Path):
+    """Load a batch; its warnings (doubtful but valid input) go to stderr, one line each."""
+    from assignplan.model import load_batch
+
+    expanded = load_batch(path)
+    for line in expanded.warnings:
+        typer.echo(f"{path}: warning: {line}", err=True)
+    return expanded
+
+
 GenerationsOpt = Annotated[int | None, typer.Option(
     metavar="N", min=0, help="ga: most generations (default 2,000; the budget usually ends "
     "the run first).")]
@@ -224,10 +234,9 @@ def _read_instance(batch: Path, steps: Steps):
     """(expanded batch, instance): the batch file read, checked and turned into arrays (one
     spinner while it lasts)."""
     from assignplan.instance import build_instance
-    from assignplan.model import load_batch
 
     with steps.step(f"reading {batch}"):
-        expanded = load_batch(batch)
+        expanded = load_batch_and_warn(batch)
         return expanded, build_instance(expanded)
 
 
@@ -376,19 +385,27 @@ def check(
 ) -> None:
     """Verify any plan against its batch; list every violation (exit 1 if there is any)."""
     from assignplan.check import check_plan, summary_line
-    from assignplan.model import load_batch, load_plan
+    from assignplan.model import load_plan
+    from assignplan.units import hours_of, iso
 
-    expanded = load_batch(batch)
+    expanded = load_batch_and_warn(batch)
     doc = load_plan(plan)
-    violations = check_plan(expanded, doc)
+    try:
+        violations = check_plan(expanded, doc)
+    except InputError as err:
+        raise InputError([f"{plan}: {p}" for p in err.problems]) from None
     if as_json:
+        def when(minute):
+            return {"at_h": None if minute is None else hours_of(minute),
+                    "at": None if minute is None else iso(expanded.window_start, minute)}
+
         typer.echo(json.dumps({"ok": not violations, "violations": [
-            {"kind": v.kind, "job": v.job, "node": v.node, "minute": v.minute,
+            {"kind": v.kind, "job": v.job, "node": v.node, **when(v.minute),
              "message": v.message} for v in violations]}, indent=2))
     else:
         for v in violations:
             typer.echo(v.message)
-        typer.echo(summary_line(violations, doc))
+        typer.echo(summary_line(violations, doc, expanded))
     if violations:
         raise typer.Exit(1)
 

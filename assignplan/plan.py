@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import timedelta
 
 import numpy as np
 
 from assignplan.instance import NO_DUE, Instance
-from assignplan.model import Assignment, HistoryRow, Objective, PlanDoc
+from assignplan.model import Assignment, HistoryRow, Objective, PlanDoc, plan_hours
+from assignplan.units import calendar, counted, hours_of, offset_text
 
 
 def objective(inst: Instance, end: np.ndarray) -> tuple[int, float, float]:
@@ -77,27 +77,32 @@ def make_result(inst: Instance, method: str, assign: np.ndarray, start: np.ndarr
 
 
 def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
-    """The JSON plan document: hours as floats (exact multiples of 1/60), names not indices."""
+    """The JSON plan document: names, not indices; every time both as hours from the window
+    start on the minute grid (`units.hours_of`) and as an ISO 8601 calendar time."""
     mk, tard, compl = objective(inst, result.end)
+    origin = inst.window_start
     return PlanDoc(
         method=result.method,
         status=result.status,
         seed=result.seed,
-        window_start=inst.window_start,
-        makespan_h=mk / 60,
-        lower_bound_h=result.lower_bound / 60,
-        lower_bound_parts_h={k: v / 60 for k, v in result.bound_parts.items()},
+        window_start=origin,
+        makespan_h=hours_of(mk),
+        lower_bound_h=hours_of(result.lower_bound),
+        lower_bound_parts_h={k: hours_of(v) for k, v in result.bound_parts.items()},
         gap_pct=round(result.gap_pct, 4),
         objective=Objective(
-            makespan_h=mk / 60, weighted_tardiness_h=tard / 60, weighted_completion_h=compl / 60
+            makespan_h=hours_of(mk), weighted_tardiness_h=hours_of(tard),
+            weighted_completion_h=hours_of(compl),
         ),
         seconds=round(result.seconds, 3),
         assignments=[
             Assignment(
                 job=inst.job_names[j],
                 node=inst.node_names[int(result.assign[j])],
-                start_h=int(result.start[j]) / 60,
-                end_h=int(result.end[j]) / 60,
+                start_h=hours_of(int(result.start[j])),
+                end_h=hours_of(int(result.end[j])),
+                start=calendar(origin, int(result.start[j])),
+                end=calendar(origin, int(result.end[j])),
             )
             for j in range(inst.n_jobs)
         ],
@@ -108,17 +113,22 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
 def calendar_time(inst: Instance, minute: int, *, short: bool = False) -> str:
     """Minute offset as a calendar time from the window start, to the minute.
 
-    Long form `Thu 2026-12-10 00:00`; short form `Thu 10 Dec 00:00` for table cells.
+    Long form `Thu 2026-12-10 00:00`; short form `Thu 10 Dec 00:00` for table cells; an
+    offset (`+1,000,000.0 h`) beyond the calendar's last year.
     """
-    fmt = "%a %d %b %H:%M" if short else "%a %Y-%m-%d %H:%M"
-    return (inst.window_start + timedelta(minutes=int(minute))).strftime(fmt)
+    when = calendar(inst.window_start, minute)
+    if when is None:
+        return offset_text(minute)
+    return when.strftime("%a %d %b %H:%M" if short else "%a %Y-%m-%d %H:%M")
 
 
 def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:
     """Read a plan document back into a PlanResult (for `report` and re-checking).
 
-    Raises InputError naming the first unknown job or node, or a job without a row; a plan
-    that is merely infeasible is still read (the checker is what judges it).
+    Times may be hours (`start_h`) or calendar times (`start`); an end the plan does not state
+    is the start plus the job's duration on its node, and a lower bound it does not state is
+    computed. Raises InputError naming the first unknown job or node, or a job without a row;
+    a plan that is merely infeasible is still read (the checker is what judges it).
     """
     from assignplan.errors import InputError
 
@@ -128,21 +138,31 @@ def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:
     start = np.zeros(inst.n_jobs, dtype=np.int64)
     end = np.zeros(inst.n_jobs, dtype=np.int64)
     problems = []
-    for k, a in enumerate(doc.assignments):
+    times = plan_hours(doc, inst.window_start)
+    for k, (a, (start_h, end_h)) in enumerate(zip(doc.assignments, times, strict=True)):
         if a.job not in job_index:
             problems.append(f"assignments[{k}].job: no job named '{a.job}' in the batch")
         elif a.node not in node_index:
             problems.append(f"assignments[{k}].node: no node named '{a.node}' in the batch")
         else:
-            j = job_index[a.job]
-            assign[j] = node_index[a.node]
-            start[j], end[j] = round(a.start_h * 60), round(a.end_h * 60)
+            j, i = job_index[a.job], node_index[a.node]
+            assign[j] = i
+            start[j] = round(start_h * 60)
+            end[j] = start[j] + inst.duration[j, i] if end_h is None else round(end_h * 60)
     missing = [inst.job_names[j] for j in np.flatnonzero(assign < 0)]
     if missing:
-        problems.append(f"assignments: {len(missing)} jobs have no row, e.g. '{missing[0]}'")
+        problems.append(f"assignments: {counted(len(missing), 'job')} without a row,"
+                        f" e.g. '{missing[0]}'")
     if problems:
         raise InputError(problems)
-    return PlanResult(doc.method, assign, start, end, round(doc.lower_bound_h * 60),
+    if doc.lower_bound_h is None:
+        from assignplan.bounds import lower_bound
+
+        bound = lower_bound(inst)
+        lower, parts = bound.value, dict(bound.parts)
+    else:
+        lower = round(doc.lower_bound_h * 60)
+        parts = {k: round(v * 60) for k, v in doc.lower_bound_parts_h.items()}
+    return PlanResult(doc.method or "hand-written", assign, start, end, lower,
                       status=doc.status, seed=doc.seed, seconds=doc.seconds,
-                      history=list(doc.history),
-                      bound_parts={k: round(v * 60) for k, v in doc.lower_bound_parts_h.items()})
+                      history=list(doc.history), bound_parts=parts)

@@ -7,6 +7,8 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
+from assignplan.units import MAX_OFFSET_HOURS
+
 # Any Monday will do: the reductions only use minute offsets from the window start.
 WINDOW_START = "2026-12-07T00:00:00"
 HOUR = 60  # minutes
@@ -145,13 +147,16 @@ def pcmax_batch(times: tuple[int, ...] | list[int], machines: int) -> dict:
     ever overlap on one node. A node's jobs then run one after another and any order without
     idle time is a plan, so plans with makespan T correspond to machine schedules with
     Cmax = T / 60 (minutes to hours; durations are whole hours, 60 p_k minutes exactly).
-    The window spans sum_k p_k hours, the one-node serial plan, so no job ever lies past it.
+    The window spans sum_k p_k hours, the one-node serial plan, so no job ever lies past it
+    (up to the model's longest window, MAX_OFFSET_HOURS; past it a job is only reported as
+    such: the makespan does not depend on the window).
     """
     if machines < 1:
         raise ValueError("pcmax_batch: needs at least one machine")
     width = len(str(len(times)))
     return {
-        "window": {"start": WINDOW_START, "hours": float(max(1, sum(times)))},
+        "window": {"start": WINDOW_START,
+                   "hours": float(min(max(1, sum(times)), MAX_OFFSET_HOURS))},
         "nodes": [{"name": "machine", "count": machines, "cores": WHOLE_NODE_CORES,
                    "memory_gib": WHOLE_NODE_MEMORY_GIB}],
         "jobs": [{"name": f"task{k:0{width}d}", "cores": WHOLE_NODE_CORES,

@@ -21,8 +21,31 @@ _MINUTE_DIGITS = 6
 # MAX_JOB_HOURS * 60 / MIN_SPEED = 6e7 minutes (int32 holds 2.1e9), and a horizon made of a
 # million such jobs one after another, 6e13 minutes, stays far inside int64 (9.2e18).
 MAX_JOB_HOURS = 10_000.0  # one job's run time on a reference node: over a year
+# And at least 0.36 s (a run takes at least a minute anyway): the priority order adds hours
+# along chains of `follows` in floats and needs each job's hours to show in the sum (1e-4 h is
+# above the float spacing of any chain below 1e11 h; 1e-226 h vanished and broke the order).
+MIN_JOB_HOURS = 0.0001
 MAX_OFFSET_HOURS = 100_000.0  # ready, due, maintenance, window length: about 11 years
 MIN_SPEED, MAX_SPEED = 0.01, 1_000.0
+
+# Limits of the resources, far above any real node (the largest shared-memory machines have a
+# few thousand cores, tens of TiB and tens of GPUs): with them one job's resource-minutes are at
+# most 2^30 MiB * 6e7 min < 2^56, so the product of a demand and a duration never overflows.
+# A sum over many jobs could still: the batch-level rule MAX_RESOURCE_MINUTES bounds it.
+MAX_CORES = 1_000_000
+MAX_GPUS = 100_000
+MAX_MEMORY_GIB = 1_048_576.0  # 1 PiB = 2^30 MiB
+MAX_WEIGHT = 1_000_000.0  # weighted sums of minutes stay finite floats
+# The sum over all jobs of demand * duration on the batch's slowest node, per resource. Every
+# resource-minute sum the planner forms (work per node, per class, in the bounds) is a part of
+# it, and so is the horizon (each job takes at least one core, so the sum of the durations is
+# at most the core-minutes): 2^60 keeps both below the int64 sentinels (int64 max // 4) the
+# builder and the bounds use. A million 1 TiB jobs of 100 h, with a node of speed 0.1 in the
+# inventory, use 1/18 of it.
+MAX_RESOURCE_MINUTES = 2**60
+# hours_of keeps 4 decimals of an hour, so a written offset is at most 0.00005 h = 0.003 min
+# off its minute; anything within this many minutes of a whole minute reads back as that minute.
+MINUTE_TOLERANCE = 0.005
 
 
 def ceil_minutes(minutes: float | np.ndarray) -> Any:

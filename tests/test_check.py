@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import re
 from collections import defaultdict
+from datetime import datetime, timedelta
 
 import numpy as np
 import pytest
@@ -19,9 +20,11 @@ from assignplan.model import (
     duration_minutes,
     floor_minutes,
 )
+from assignplan.units import hours_of
 from tests.strategies import batches, expanded, random_batch_doc
 
 WEEK = {"start": "2026-12-07T00:00:00", "hours": 168.0}  # minute 0 is Mon 2026-12-07 00:00
+WEEK_START = datetime(2026, 12, 7)
 
 DOC = {
     "window": WEEK,
@@ -216,7 +219,9 @@ def test_capacity_cores_memory_both_reported(batch, plan):
     assert {v.node for v in got} == {"cpu-2"} and {v.minute for v in got} == {60}
     text = " | ".join(v.message for v in got)
     assert "for cores by 4 cores" in text and "for memory by 16 GiB" in text
-    assert "minute 60 (Mon 2026-12-07 01:00)" in text and "until minute 180" in text
+    # Calendar times from the window start (Mon 2026-12-07 00:00), not minute counts.
+    assert "from Mon 07 Dec 01:00 until Mon 07 Dec 03:00" in text and "minute" not in text
+    assert {v.until for v in got} == {180}
     assert "sweep-1" in text and "sweep-2" in text
 
 
@@ -246,7 +251,7 @@ def test_capacity_each_resource(group, resource, amount):
     assert kinds(got) == ["capacity"]
     first = starts[f"{group}-1"]
     assert got[0].minute == first + 30 and got[0].node == "box"
-    assert f"for {resource} by {amount} until minute {first + 60}" in got[0].message
+    assert got[0].until == first + 60 and f"for {resource} by {amount} from" in got[0].message
 
 
 def test_capacity_stretch_reported_once_not_per_minute():
@@ -259,15 +264,18 @@ def test_capacity_stretch_reported_once_not_per_minute():
             for k, s in ((1, 0), (2, 30), (3, 60))]
     got = check_plan(b, plan_of(b, rows))
     assert kinds(got) == ["capacity"]
-    assert got[0].minute == 30 and "until minute 90" in got[0].message
+    assert (got[0].minute, got[0].until) == (30, 90)
+    assert "from Mon 07 Dec 00:30 until Mon 07 Dec 01:30" in got[0].message
 
 
 def test_dependency(batch, plan):
     got = check_plan(batch, edit(batch, plan, "post", start_h=500 / 60))
     assert kinds(got) == ["dependency"]
     assert got[0].job == "post" and got[0].minute == 500
+    # Reads as the clock time it is, not as '8:20 h' (issue 18).
     assert got[0].message == (
-        "job post starts at 8:20 h before its predecessor train-2 ends at 9:30 h")
+        "job post starts at Mon 07 Dec 08:20 before its predecessor train-2 ends at"
+        " Mon 07 Dec 09:30")
     assert summary_line(got, plan).startswith("1 violation (dependency 1): 7 jobs on 3 nodes")
 
 
@@ -276,19 +284,22 @@ def test_maintenance(batch, plan):
     got = check_plan(batch, edit(batch, plan, "post", node="gpu", start_h=590 / 60))
     assert kinds(got) == ["maintenance"]
     assert (got[0].job, got[0].node) == ("post", "gpu")
-    assert "overlaps maintenance [10 h, 12 h) on node gpu" in got[0].message
+    assert got[0].message == ("job post [Mon 07 Dec 09:50, Mon 07 Dec 10:14) overlaps"
+                              " maintenance [Mon 07 Dec 10:00, Mon 07 Dec 12:00) on node gpu")
 
 
 def test_before_ready(batch, plan):
     got = check_plan(batch, edit(batch, plan, "sweep-1", start_h=0.5))
     assert kinds(got) == ["before_ready"] and got[0].job == "sweep-1"
-    assert "before its ready time 1:00 h" in got[0].message
+    assert got[0].message == ("job sweep-1 starts at Mon 07 Dec 00:30 before its ready time"
+                              " Mon 07 Dec 01:00")
 
 
 def test_wrong_end(batch, plan):
     got = check_plan(batch, edit(batch, plan, "sweep-1", end_h=2.5))
     assert kinds(got) == ["duration"] and got[0].job == "sweep-1"
-    assert "runs 120 min" in got[0].message and "ends at 3:00 h" in got[0].message
+    assert got[0].message == ("job sweep-1 is stated to end at Mon 07 Dec 02:30 but runs"
+                              " 120 min on node cpu-2 (speed 1), so it ends at Mon 07 Dec 03:00")
 
 
 def test_end_must_use_speed_rounding(batch, plan):
@@ -300,6 +311,8 @@ def test_end_must_use_speed_rounding(batch, plan):
 def test_negative_start(batch, plan):
     got = check_plan(batch, edit(batch, plan, "prep", start_h=-1.0))
     assert kinds(got) == ["negative_start"] and got[0].job == "prep"
+    assert got[0].message == ("job prep starts at Sun 06 Dec 23:00 (-1.0 h), before the window"
+                              " opens at Mon 07 Dec 00:00")
 
 
 def test_off_minute(batch, plan):
@@ -319,6 +332,42 @@ def test_float_noise_is_not_off_minute(batch, plan):
 def test_understated_makespan(batch, plan):
     got = check_plan(batch, plan.model_copy(update={"makespan_h": 9.0}))
     assert kinds(got) == ["makespan"]
+    assert got[0].message == ("plan states makespan 9 h but its last job ends at Mon 07 Dec"
+                              " 10:00 (+10.0 h)")
+
+
+def test_offsets_rounded_to_four_decimals_are_whole_minutes():
+    # `solve --out` writes hours_of(minute): 47 min is 0.7833 h, 0.002 min short of minute 47.
+    doc = {"window": WEEK, "nodes": [{"name": "n", "cores": 1, "memory_gib": 1.0, "speed": 1.3}],
+           "jobs": [{"name": "a", "count": 2, "cores": 1, "memory_gib": 1.0, "hours": 1.0}]}
+    b = expanded(doc)
+    rows = [Assignment(job="a-1", node="n", start_h=0.0, end_h=hours_of(47)),
+            Assignment(job="a-2", node="n", start_h=hours_of(47), end_h=hours_of(94))]
+    assert hours_of(47) == 0.7833
+    assert check_plan(b, plan_of(b, rows)) == []
+
+
+def test_plan_of_job_node_and_start_alone(batch, plan):
+    # No method, makespan, bound or end: the ends come from the model, nothing is missing.
+    bare = PlanDoc(assignments=[Assignment(job=a.job, node=a.node, start_h=a.start_h)
+                                for a in plan.assignments])
+    assert check_plan(batch, bare) == []
+    assert summary_line([], bare) == "plan OK: 7 jobs on 3 nodes, no violations"
+    assert summary_line([], bare, batch) == (
+        "plan OK: 7 jobs on 3 nodes, makespan 10 h, no violations")
+    late = bare.model_copy(update={"assignments": [
+        a.model_copy(update={"start_h": 9.0}) if a.job == "post" else a
+        for a in bare.assignments]})
+    assert kinds(check_plan(batch, late)) == ["dependency"]
+
+
+def test_calendar_start_off_the_minute_is_named_as_written(batch, plan):
+    rows = [Assignment(job=a.job, node=a.node, start=WEEK_START + timedelta(hours=a.start_h))
+            for a in plan.assignments]
+    rows[0] = rows[0].model_copy(update={"start": rows[0].start + timedelta(seconds=20)})
+    got = check_plan(batch, PlanDoc(assignments=rows))
+    assert kinds(got) == ["off_minute"]
+    assert got[0].message == "job prep starts at 2026-12-07T00:00:20, not on a whole minute"
 
 
 def test_every_kind_has_a_test():
@@ -384,14 +433,13 @@ def test_capacity_sweep_matches_minute_by_minute_load(seed):
     assert {v.kind for v in got} <= {"capacity"}
     covered: set[tuple[str, str, int]] = set()
     for v in got:
-        resource, until = re.search(r"for (\w+) by .* until minute (\d+)", v.message).groups()
-        stretch = {(v.node, resource, m) for m in range(v.minute, int(until))}
+        resource = re.search(r"for (\w+) by ", v.message).group(1)
+        stretch = {(v.node, resource, m) for m in range(v.minute, v.until)}
         assert not stretch & covered  # each stretch reported once
         covered |= stretch
     assert covered == _overloaded_minutes(b, plan_of(b, rows))
     # Maximal: no two reported stretches of one node and resource touch.
-    ends = {(v.node, re.search(r"for (\w+)", v.message).group(1),
-             int(re.search(r"until minute (\d+)", v.message).group(1))) for v in got}
+    ends = {(v.node, re.search(r"for (\w+)", v.message).group(1), v.until) for v in got}
     assert not {(v.node, re.search(r"for (\w+)", v.message).group(1), v.minute)
                 for v in got} & ends
 

@@ -80,7 +80,7 @@ def test_plan_file_passes_check_and_a_broken_edit_fails(tmp_path):
     solve(str(SMALL), "--method", "greedy", "--out", str(plan))
     doc = json.loads(plan.read_text())
     assert {"method", "makespan_h", "lower_bound_h", "assignments"} <= doc.keys()
-    assert {"job", "node", "start_h", "end_h"} == doc["assignments"][0].keys()
+    assert {"job", "node", "start_h", "end_h", "start", "end"} == doc["assignments"][0].keys()
     ok = runner.invoke(app, ["check", str(SMALL), str(plan)])
     assert ok.exit_code == 0 and ok.stdout.startswith("plan OK")
     # Hand edit: the GPU job onto a CPU node, and a job removed.

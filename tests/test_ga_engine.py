@@ -84,7 +84,7 @@ def test_same_batch_seed_and_config_give_the_same_plan():
             for _ in range(2)]
     assert np.array_equal(runs[0].assign, runs[1].assign)
     assert np.array_equal(runs[0].start, runs[1].start)
-    docs = [json.dumps([a.model_dump() for a in to_plan_doc(inst, r).assignments])
+    docs = [json.dumps([a.model_dump(mode="json") for a in to_plan_doc(inst, r).assignments])
             for r in runs]
     assert docs[0] == docs[1]
     assert [h.model_dump() for h in runs[0].history] == [h.model_dump() for h in runs[1].history]

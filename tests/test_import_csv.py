@@ -65,7 +65,7 @@ def test_empty_cells_take_defaults_and_lists_split_on_semicolons():
     assert rows == [2, 3]
     a, b = jobs
     assert (a.count, a.gpus, a.needs, a.follows, a.ready_h, a.due_h, a.weight) == (
-        1, 0, [], [], 0.0, None, 1.0)
+        1, 0, [], [], None, None, 1.0)
     assert (b.count, b.needs, b.follows, b.ready_h) == (3, ["avx512", "scratch-ssd"], ["a"], 1.5)
 
 
@@ -104,22 +104,24 @@ def test_round_trip_through_files_and_json(tmp_path: Path):
 def test_bad_value_names_row_and_column():
     rows = [f"j{k},1,2,4,1,,,,,," for k in range(5)] + ["j5,1,2,0,1,,,,,,"]
     problems = _errors(HEADER + "\n".join(rows) + "\n")
-    assert problems == ["JOBS.csv:row 7 (jobs[5]).memory_gib: must be greater than 0"]
+    assert problems == ["JOBS.csv:row 7 (jobs[5]).memory_gib: must be greater than 0 and at"
+                        " most 1,048,576 GiB (got 0)"]
 
 
 def test_every_bad_cell_is_reported_once():
     problems = _errors(HEADER + "a,two,2,4,1,,,,,,\nb,1,2.5,4,x,,,,,,\n,1,1,1,1,,,,,,\n")
     assert problems == [
-        "JOBS.csv:row 2 (jobs[0]).count: 'two' is not a whole number",
-        "JOBS.csv:row 3 (jobs[1]).cores: '2.5' is not a whole number",
-        "JOBS.csv:row 3 (jobs[1]).hours: 'x' is not a number",
+        'JOBS.csv:row 2 (jobs[0]).count: must be a whole number (got the text "two")',
+        'JOBS.csv:row 3 (jobs[1]).cores: must be a whole number (got the text "2.5")',
+        'JOBS.csv:row 3 (jobs[1]).hours: must be a number (got the text "x")',
         "JOBS.csv:row 4 (jobs[2]).name: required field is missing",
     ]
 
 
 def test_blank_lines_keep_row_numbers():
     problems = _errors(HEADER + "a,1,2,4,1,,,,,,\n\nb,1,2,4,-1,,,,,,\n")
-    assert problems == ["JOBS.csv:row 4 (jobs[1]).hours: must be greater than 0"]
+    assert problems == ["JOBS.csv:row 4 (jobs[1]).hours: must be at least 0.0001 and at most"
+                        " 10,000 h (got -1)"]
 
 
 def test_cross_field_problems_name_the_row():
@@ -268,9 +270,9 @@ def test_problems_of_cells_in_our_words():
     problems = _errors(HEADER + "my job,1,2,4,1,,,,,,\nb,1,2,4,1,5,,,,,\nc,1,2,nan,1,,,,,,\n"
                        "d,1,2,4,\"1,5\",,,,,,\n")
     assert problems == [
-        "JOBS.csv:row 2 (jobs[0]).name: 'my job' is not a valid name: use only letters, digits"
-        " and _ . : + - (no spaces)",
-        "JOBS.csv:row 4 (jobs[2]).memory_gib: 'nan' is not a number",
+        "JOBS.csv:row 2 (jobs[0]).name: may contain only letters a-z and A-Z, digits and"
+        ' . _ : + - ("my job" has a space)',
+        'JOBS.csv:row 4 (jobs[2]).memory_gib: must be a number (got the text "nan")',
         "JOBS.csv:row 5 (jobs[3]).hours: '1,5' is not a number: use a point for decimals and no"
         " thousands separator",
     ]

@@ -499,21 +499,22 @@ def test_cli_batch_file_as_inventory_is_used_with_a_note(tmp_path: Path):
 
 
 INVENTORY_PROBLEMS = {
-    "empty node list": ('{"nodes": []}', "I.json: nodes: an empty list; at least one entry is"
-                        " needed"),
+    "empty node list": ('{"nodes": []}', "I.json: nodes: must list at least 1 node (the list is"
+                        " empty)"),
     "name with a space": ('{"nodes": [{"name": "cpu node", "cores": 4, "memory_gib": 8}]}',
-                          "I.json: nodes[0].name: 'cpu node' is not a valid name: use only"
-                          " letters, digits and _ . : + - (no spaces)"),
+                          'I.json: nodes[0].name: may contain only letters a-z and A-Z, digits'
+                          ' and . _ : + - ("cpu node" has a space)'),
     "unknown field": ('{"nodes": [{"name": "a", "cores": 4, "memory_gib": 8, "ram": 8}]}',
                       "I.json: nodes[0].ram: unknown field; the fields here are name, count,"
                       " cores, memory_gib, gpus, speed, tags, maintenance"),
     "not whole": ('{"nodes": [{"name": "a", "cores": 4.5, "memory_gib": 8}]}',
-                  "I.json: nodes[0].cores: 4.5 is not a whole number"),
-    "not a list": ('{"nodes": {"name": "a"}}', "I.json: nodes: {...} is not a list [...]"),
+                  "I.json: nodes[0].cores: must be a whole number (got 4.5)"),
+    "not a list": ('{"nodes": {"name": "a"}}',
+                   "I.json: nodes: must be a list [...] (got an object)"),
     "bad start": ('{"window": {"start": "next monday"}, "nodes": [{"name": "a", "cores": 4,'
                   ' "memory_gib": 8}]}',
-                  "I.json: window.start: 'next monday' is not an ISO 8601 date and time"
-                  " (2025-03-03T08:00)"),
+                  "I.json: window.start: must be an ISO 8601 calendar time such as"
+                  ' 2026-12-07T08:00 or 2026-12-07 (got the text "next monday")'),
     "unclosed": ('{"nodes": [\n', "I.json:line 2 column 1: not valid JSON: the text ends before"
                  " the document does (a '}' or ']' is missing)"),
     "missing comma": ('{"nodes": []\n "window": {}}', "I.json:line 2 column 2: not valid JSON:"

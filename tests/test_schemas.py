@@ -32,3 +32,26 @@ def test_batch_schema_describes_job_fields():
     assert set(job["required"]) == {"name", "cores", "memory_gib", "hours"}
     assert job["additionalProperties"] is False
     assert job["properties"]["cores"]["exclusiveMinimum"] == 0
+
+
+def test_schemas_state_the_time_rule_and_the_limits():
+    """Each time as hours (`*_h`) or as an ISO 8601 calendar time, not both; every time-like
+    field and resource bounded (issue 18)."""
+    batch = json.loads(schema_texts()["batch.schema.json"])["$defs"]
+    job, maintenance = batch["JobGroup"], batch["Maintenance"]
+    for props in (job["properties"]["ready"], job["properties"]["due"],
+                  maintenance["properties"]["start"], maintenance["properties"]["end"]):
+        calendar = next(option for option in props["anyOf"] if option.get("type") == "string")
+        assert {f["format"] for f in calendar["anyOf"]} == {"date-time", "date"}
+    assert "not both" in job["description"] and "not both" in maintenance["description"]
+    assert job["not"] == {"anyOf": [{"required": ["ready", "ready_h"]},
+                                    {"required": ["due", "due_h"]}]}
+    assert "required" not in maintenance  # start_h or start, end_h or end (allOf / oneOf)
+    assert maintenance["allOf"][0] == {"oneOf": [{"required": ["start_h"]},
+                                                 {"required": ["start"]}]}
+    assert job["properties"]["hours"]["maximum"] == 10_000
+    assert job["properties"]["ready_h"]["anyOf"][0]["maximum"] == 100_000
+    assert batch["NodeGroup"]["properties"]["speed"]["minimum"] == 0.01
+    plan = json.loads(schema_texts()["plan.schema.json"])
+    assert plan["required"] == ["assignments"]
+    assert plan["$defs"]["Assignment"]["required"] == ["job", "node"]

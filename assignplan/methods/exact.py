@@ -206,8 +206,11 @@ def solve_exact(
         raise SolveError("exact: internal error, the model is infeasible despite a safe horizon")
     fallback = _hint_result(inst, hint, lower_bound, seed)
     if status not in _FOUND and fallback is not None:
-        # CP-SAT may not complete even a good hint in a short limit; the hint's plan stands.
-        return replace(fallback, seconds=time.perf_counter() - t0)
+        # CP-SAT may not complete even a good hint in a short limit; the hint's plan stands,
+        # with what the search proved of the makespan (valid whether or not it found a plan)
+        proved = math.ceil(solver.best_objective_bound - 1e-6)
+        return replace(fallback, seconds=time.perf_counter() - t0, solver_bound=proved,
+                       lower_bound=max(int(lower_bound), proved))
     if status not in _FOUND:
         raise SolveError(
             f"exact: no plan found within {budget:g} s (status {solver.status_name(status)});"
