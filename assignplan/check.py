@@ -16,21 +16,17 @@ from datetime import datetime
 
 import numpy as np
 
-from assignplan.model import (
+from assignplan.documents import Assignment, PlanDoc
+from assignplan.expand import ExpandedBatch, Job, Node, can_hold
+from assignplan.reading import plan_hours
+from assignplan.units import (
     MINUTE_TOLERANCE,
-    Assignment,
-    ExpandedBatch,
-    Job,
-    Node,
-    PlanDoc,
-    can_hold,
     ceil_minutes,
     clock,
     counted,
     duration_minutes,
     floor_minutes,
     offset_text,
-    plan_hours,
 )
 
 KINDS = (

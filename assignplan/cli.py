@@ -15,8 +15,8 @@ from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
 from assignplan import __version__
+from assignplan.documents import HistoryRow
 from assignplan.errors import AssignplanError, InputError
-from assignplan.model import HistoryRow
 
 app = typer.Typer(
     name="assignplan",
@@ -74,7 +74,7 @@ def reports_errors(command):
 
 def load_batch_and_warn(path: Path):
     """Load a batch; its warnings (doubtful but valid input) go to stderr, one line each."""
-    from assignplan.model import load_batch
+    from assignplan.expand import load_batch
 
     expanded = load_batch(path)
     for line in expanded.warnings:
@@ -333,8 +333,8 @@ def report(
 ) -> None:
     """Write a self-contained HTML report (timeline, utilisation, tables) of a plan."""
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
-    from assignplan.model import load_plan
     from assignplan.plan import result_from_doc
+    from assignplan.reading import load_plan
 
     check_output_file(out, "--out")
     check_output_dir(png, "--png")
@@ -385,7 +385,7 @@ def check(
 ) -> None:
     """Verify any plan against its batch; list every violation (exit 1 if there is any)."""
     from assignplan.check import check_plan, summary_line
-    from assignplan.model import load_plan
+    from assignplan.reading import load_plan
     from assignplan.units import hours_of, iso
 
     expanded = load_batch_and_warn(batch)

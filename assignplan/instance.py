@@ -1,7 +1,7 @@
 """The validated batch as numpy arrays: capacities, demands, durations, eligibility, precedence.
 
 Every method, the schedule builder and the lower bound read this one structure; none of them
-sees pydantic objects. Time is whole minutes, memory whole MiB (see `model.duration_minutes`).
+sees pydantic objects. Time is whole minutes, memory whole MiB (see `units.duration_minutes`).
 """
 
 from __future__ import annotations
@@ -12,12 +12,8 @@ from typing import NamedTuple
 
 import numpy as np
 
-from assignplan.model import (
-    ExpandedBatch,
-    ceil_minutes,
-    duration_minutes,
-    floor_minutes,
-)
+from assignplan.expand import ExpandedBatch
+from assignplan.units import ceil_minutes, duration_minutes, floor_minutes
 
 RESOURCES = ("cores", "memory", "gpus")
 NO_DUE = np.iinfo(np.int64).max // 4  # far beyond any makespan: never late

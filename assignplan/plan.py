@@ -6,8 +6,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from assignplan.documents import Assignment, HistoryRow, Objective, PlanDoc
 from assignplan.instance import NO_DUE, Instance
-from assignplan.model import Assignment, HistoryRow, Objective, PlanDoc, plan_hours
+from assignplan.reading import plan_hours
 from assignplan.units import calendar, counted, hours_of, offset_text
 
 

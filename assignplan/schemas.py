@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 
-from assignplan.model import Batch, PlanDoc
+from assignplan.documents import Batch, PlanDoc
 
 SCHEMA_ID = "https://assignplan.invalid/schemas/"
 

@@ -20,10 +20,10 @@ from dataclasses import dataclass, replace
 from pydantic import BaseModel, ConfigDict, Field
 
 from assignplan.bounds import LowerBound, lower_bound
+from assignplan.documents import HistoryRow
 from assignplan.errors import InputError
 from assignplan.instance import Instance
 from assignplan.methods.ga.settings import GASettings
-from assignplan.model import HistoryRow
 from assignplan.plan import PlanResult
 
 EXACT_MAX_JOBS = 300  # above this, exact rarely proves anything within a budget of minutes

@@ -116,11 +116,16 @@ def iso(start: datetime, minute: int | float) -> str | None:
     return None if when is None else when.isoformat()
 
 
-def number(value: float | None, digits: int = 1, suffix: str = "") -> str:
-    """A figure for a table or a card: thousands separated, `digits` decimals, '–' for
-    a missing or NaN value."""
+def number(value: float | None, digits: int | None = 1, suffix: str = "") -> str:
+    """A figure as a person reads it: thousands separated, `digits` decimals ('–' for a
+    missing or NaN value); `digits=None`: as short as exact (10,000 and 0.01, not 10000.0
+    and 1e-02), for limits and user values."""
     if value is None or value != value:  # NaN is the one value unequal to itself
         return "–"
+    if digits is None:
+        x = float(value)
+        text = f"{int(x):,}" if x.is_integer() and abs(x) < 1e12 else f"{x:g}"
+        return text + suffix
     return f"{value:,.{digits}f}{suffix}"
 
 

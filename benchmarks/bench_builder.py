@@ -26,11 +26,12 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
-from assignplan.generate import SCALES, batch_doc, generate  # noqa: E402
-from assignplan.instance import Instance, build_instance  # noqa: E402
-from assignplan.methods.greedy import greedy_assign  # noqa: E402
-from assignplan.model import Batch, expand_batch  # noqa: E402
-from assignplan.schedule import evaluate_population  # noqa: E402
+from assignplan.documents import Batch
+from assignplan.expand import expand_batch
+from assignplan.generate import SCALES, batch_doc, generate
+from assignplan.instance import Instance, build_instance
+from assignplan.methods.greedy import greedy_assign
+from assignplan.schedule import evaluate_population
 
 SECTION = "## Schedule builder throughput"
 COMMAND = ".venv/bin/python benchmarks/bench_builder.py"

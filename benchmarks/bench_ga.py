@@ -28,9 +28,9 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
-from bench_builder import write_section  # noqa: E402
+from bench_builder import write_section
 
-from assignplan.generate import batch_doc, generate  # noqa: E402
+from assignplan.generate import batch_doc, generate
 
 SECTION = "## Genetic algorithm"
 COMMAND = ".venv/bin/python benchmarks/bench_ga.py"
@@ -44,10 +44,11 @@ if os.environ.get("BENCH_LIMITS"):  # exploring: "small,medium,large" seconds
 def run_case(name: str, seed: int, config_json: str) -> dict:
     """One case in this process: greedy, bound, ga; returns the row as a dict."""
     from assignplan.bounds import lower_bound
+    from assignplan.documents import Batch
+    from assignplan.expand import expand_batch
     from assignplan.instance import build_instance
     from assignplan.methods.ga import ga_settings, solve_ga
     from assignplan.methods.greedy import solve_greedy
-    from assignplan.model import Batch, expand_batch
 
     scale, gen_seed, *opt = name.split("-")
     doc = generate(scale, int(gen_seed), known_optimum=bool(opt))

@@ -24,14 +24,15 @@ import pandas as pd
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
-from assignplan.bounds import lower_bound  # noqa: E402
-from assignplan.importers import Inventory, load_inventory  # noqa: E402
-from assignplan.importers.swf import REQ_TIME, RUN, STATUS, Trace, read_swf, week_batch  # noqa: E402
-from assignplan.instance import build_instance  # noqa: E402
-from assignplan.methods.greedy import solve_greedy  # noqa: E402
-from assignplan.metrics import summary  # noqa: E402
-from assignplan.model import Batch, expand_batch  # noqa: E402
-from benchmarks.bench_builder import write_section  # noqa: E402
+from assignplan.bounds import lower_bound
+from assignplan.documents import Batch
+from assignplan.expand import expand_batch
+from assignplan.importers import Inventory, load_inventory
+from assignplan.importers.swf import REQ_TIME, RUN, STATUS, Trace, read_swf, week_batch
+from assignplan.instance import build_instance
+from assignplan.methods.greedy import solve_greedy
+from assignplan.metrics import summary
+from benchmarks.bench_builder import write_section
 
 SECTION = "## Real weeks from the KTH-SP2 trace"
 DEFAULT_TRACE = REPO / "tests" / "data" / "published" / "swf" / "KTH-SP2-1996-2.1-cln.swf"

@@ -27,17 +27,18 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
-from bench_builder import write_section  # noqa: E402
+from bench_builder import write_section
 
-from assignplan import planner  # noqa: E402
-from assignplan.generate import batch_doc, generate  # noqa: E402
-from assignplan.instance import build_instance  # noqa: E402
-from assignplan.model import Batch, expand_batch  # noqa: E402
-from assignplan.report import png  # noqa: E402
-from assignplan.report.charts import plan_scenes  # noqa: E402
-from assignplan.report.html import page_budget, render_html_report  # noqa: E402
-from assignplan.report.scene import Rects, Scene, resolve  # noqa: E402
-from assignplan.report.svg import render_svg  # noqa: E402
+from assignplan import solve as planner
+from assignplan.documents import Batch
+from assignplan.expand import expand_batch
+from assignplan.generate import batch_doc, generate
+from assignplan.instance import build_instance
+from assignplan.report import png
+from assignplan.report.charts import plan_scenes
+from assignplan.report.html import page_budget, render_html_report
+from assignplan.report.scene import Rects, Scene, resolve
+from assignplan.report.svg import render_svg
 
 SECTION = "## Report page size"
 COMMAND = ".venv/bin/python benchmarks/bench_report.py"

@@ -38,7 +38,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
-from bench_builder import write_section  # noqa: E402
+from bench_builder import write_section
 
 SECTION = "## Scaling with the batch size"
 COMMAND = ".venv/bin/python benchmarks/bench_scale.py"
@@ -61,9 +61,9 @@ def _batch_file(n_jobs: int, folder: Path) -> Path:
 def _in_process(stage: str, path: Path) -> dict:
     """One library stage in this (child) process: seconds and peak memory."""
     from assignplan.bounds import lower_bound
+    from assignplan.expand import load_batch
     from assignplan.instance import build_instance
     from assignplan.methods.ga import ga_settings, solve_ga
-    from assignplan.model import load_batch
 
     t0 = time.perf_counter()
     inst = build_instance(load_batch(path))

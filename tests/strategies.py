@@ -12,8 +12,9 @@ import json
 import numpy as np
 from hypothesis import strategies as st
 
+from assignplan.documents import Batch
+from assignplan.expand import ExpandedBatch, expand_batch
 from assignplan.instance import Instance, build_instance
-from assignplan.model import Batch, ExpandedBatch, expand_batch
 
 NODE_KINDS = (
     # name, cores, memory_gib, gpus, speed, tags

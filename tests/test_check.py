@@ -11,16 +11,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 
 from assignplan.check import KINDS, Violation, check_plan, summary_line
-from assignplan.model import (
-    Assignment,
-    ExpandedBatch,
-    PlanDoc,
-    can_hold,
-    ceil_minutes,
-    duration_minutes,
-    floor_minutes,
-)
-from assignplan.units import hours_of
+from assignplan.documents import Assignment, PlanDoc
+from assignplan.expand import ExpandedBatch, can_hold
+from assignplan.units import ceil_minutes, duration_minutes, floor_minutes, hours_of
 from tests.strategies import batches, expanded, random_batch_doc
 
 WEEK = {"start": "2026-12-07T00:00:00", "hours": 168.0}  # minute 0 is Mon 2026-12-07 00:00

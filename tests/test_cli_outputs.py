@@ -17,7 +17,8 @@ from typer.testing import CliRunner
 
 from assignplan import __version__
 from assignplan.cli import Steps, app
-from assignplan.model import load_batch, load_plan
+from assignplan.expand import load_batch
+from assignplan.reading import load_plan
 
 from assignplan.check import check_plan  # isort: skip  (after the model: it reads its types)
 

@@ -22,7 +22,8 @@ from typer.testing import CliRunner
 
 from assignplan.check import check_plan
 from assignplan.cli import app
-from assignplan.model import load_batch, load_plan
+from assignplan.expand import load_batch
+from assignplan.reading import load_plan
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 SMALL = json.loads((EXAMPLES / "small.json").read_text())

@@ -17,12 +17,13 @@ import pytest
 
 from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
+from assignplan.expand import ExpandedBatch, expand_batch, load_batch
 from assignplan.instance import Instance, build_instance
 from assignplan.methods.ga import ga_settings
 from assignplan.methods.greedy import greedy_assign
-from assignplan.model import ExpandedBatch, expand_batch, load_batch, parse_batch_text
 from assignplan.plan import to_plan_doc
 from assignplan.published import pcmax_batch, read_pcmax
+from assignplan.reading import parse_batch_text
 from assignplan.solve import solve
 
 ROOT = Path(__file__).resolve().parents[1]

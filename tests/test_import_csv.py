@@ -12,6 +12,7 @@ import typer
 from typer.testing import CliRunner
 
 from assignplan.errors import InputError
+from assignplan.expand import expand_batch, load_batch
 from assignplan.importers import Inventory, batch_json, load_inventory
 from assignplan.importers.cli import import_app
 from assignplan.importers.swf import read_swf, week_batch
@@ -23,7 +24,7 @@ from assignplan.importers.table import (
     inventory_of,
     parse_jobs_csv,
 )
-from assignplan.model import expand_batch, load_batch, parse_batch_text
+from assignplan.reading import parse_batch_text
 
 ROOT = Path(__file__).parent.parent
 TEMPLATE = ROOT / "examples" / "jobs-template.csv"

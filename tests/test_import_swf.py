@@ -13,10 +13,10 @@ import typer
 from typer.testing import CliRunner
 
 from assignplan.errors import InputError
+from assignplan.expand import expand_batch, load_batch
 from assignplan.importers import Inventory, load_inventory
 from assignplan.importers.cli import import_app
 from assignplan.importers.swf import parse_swf, read_swf, week_batch
-from assignplan.model import expand_batch, load_batch
 from assignplan.units import MAX_JOB_HOURS
 
 DATA = Path(__file__).parent / "data" / "published" / "swf"

@@ -10,18 +10,12 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 
+from assignplan.documents import Batch, PlanDoc
 from assignplan.errors import InputError
+from assignplan.expand import can_hold, member_names
 from assignplan.instance import NO_DUE
-from assignplan.model import (
-    Batch,
-    PlanDoc,
-    can_hold,
-    ceil_minutes,
-    duration_minutes,
-    floor_minutes,
-    member_names,
-    plan_hours,
-)
+from assignplan.reading import plan_hours
+from assignplan.units import ceil_minutes, duration_minutes, floor_minutes
 from tests.strategies import batches, instance_of, random_batch_doc
 
 
@@ -143,11 +137,11 @@ def test_time_zone_rule():
 def test_calendar_times_of_a_node_file_wait_for_the_window():
     # A node file may come without a window (a trace supplies it): its calendar times are
     # checked once the batch has one, not refused for want of it.
-    from assignplan.model import _expand_nodes
+    from assignplan.expand import expand_nodes
 
     inventory = Batch.model_validate_json(json.dumps(_one_job_doc("2026-12-07")))
     problems: list[str] = []
-    nodes = _expand_nodes(SimpleNamespace(window=None, nodes=inventory.nodes), problems)
+    nodes = expand_nodes(SimpleNamespace(window=None, nodes=inventory.nodes), problems)
     assert problems == [] and nodes[0].maintenance == ()
 
 

@@ -17,8 +17,9 @@ from typer.testing import CliRunner
 
 from assignplan.bounds import lower_bound
 from assignplan.cli import app
+from assignplan.documents import PlanDoc
+from assignplan.expand import load_batch
 from assignplan.instance import build_instance
-from assignplan.model import PlanDoc, load_batch
 from assignplan.plan import result_from_doc
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"

@@ -13,9 +13,9 @@ import pytest
 from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
 from assignplan.errors import SolveError
+from assignplan.expand import ExpandedBatch, expand_batch
 from assignplan.instance import Instance, build_instance
 from assignplan.methods.ga import GASettings, ga_settings
-from assignplan.model import ExpandedBatch, expand_batch, parse_batch_text
 from assignplan.plan import PlanResult, to_plan_doc
 from assignplan.published import (
     HOUR,
@@ -27,6 +27,7 @@ from assignplan.published import (
     read_optima,
     read_pcmax,
 )
+from assignplan.reading import parse_batch_text
 from assignplan.solve import solve
 
 DATA = Path(__file__).parent / "data" / "published"

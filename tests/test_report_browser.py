@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from assignplan.check import check_plan
-from assignplan.model import load_batch
+from assignplan.expand import load_batch
 from assignplan.plan import to_plan_doc
 from assignplan.report.html import page_budget, write_html_report
 from tests.test_report_html import BUDGET_10K, WEEK, large_plan, sequential_plan, week

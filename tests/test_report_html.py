@@ -21,10 +21,12 @@ from typer.testing import CliRunner
 from assignplan import solve as planner
 from assignplan.check import Violation, check_plan
 from assignplan.cli import app
+from assignplan.documents import Batch, HistoryRow, PlanDoc
+from assignplan.expand import expand_batch, load_batch
 from assignplan.instance import Instance, build_instance
 from assignplan.metrics import summary
-from assignplan.model import Batch, HistoryRow, PlanDoc, expand_batch, load_batch, load_plan
 from assignplan.plan import PlanResult, make_result, result_from_doc, to_plan_doc
+from assignplan.reading import load_plan
 from assignplan.report.axes import LEFT, PLOT, grid_step, time_ticks
 from assignplan.report.charts import convergence_scene, plan_scenes, utilisation_scene
 from assignplan.report.figures import (

@@ -16,18 +16,13 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
+from assignplan.documents import Batch, NodeGroup, Window
 from assignplan.errors import InputError
+from assignplan.expand import expand_batch, expand_nodes
 from assignplan.files import atomic_write_text, check_output_file
 from assignplan.importers.problems import json_syntax_problem, validation_problems
 from assignplan.importers.reading import decode_utf8, looks_like, read_bytes, wrong_kind
-from assignplan.model import (
-    Batch,
-    NodeGroup,
-    Window,
-    _expand_nodes,
-    expand_batch,
-    parse_batch_text,
-)
+from assignplan.reading import parse_batch_text
 from assignplan.units import counted
 
 INVENTORY_KIND = 'a JSON inventory ({"window": {...}, "nodes": [...]})'
@@ -77,7 +72,7 @@ def load_inventory(path: Path | str) -> Inventory:
         raise InputError([f"{path}: {line}" for line in validation_problems(err, Inventory)]
                          ) from None
     problems: list[str] = []
-    _expand_nodes(inventory, problems)  # reads only `.nodes`, which an Inventory has
+    expand_nodes(inventory, problems)  # reads only `.nodes`, which an Inventory has
     if problems:
         raise InputError([f"{path}: {p}" for p in problems])
     return inventory

@@ -11,15 +11,15 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
-from assignplan.model import format_loc, problem_words
-from assignplan.model import json_syntax_problem as model_syntax_problem
+from assignplan.reading import format_loc, problem_words
+from assignplan.reading import json_syntax_problem as model_syntax_problem
 
 _DECIMAL_COMMA = re.compile(r"[+-]?\d*,\d+")
 
 
 def json_syntax_problem(text: str, source: str) -> str | None:
     """The first JSON syntax problem of `text` as one line with its file, line and column, or
-    None (the model's words: `model.json_syntax_problem`)."""
+    None (in the words of `reading.json_syntax_problem`)."""
     problem = model_syntax_problem(text)
     return None if problem is None else (
         f"{source}:{problem}" if problem.startswith("line ") else f"{source}: {problem}")
@@ -27,7 +27,7 @@ def json_syntax_problem(text: str, source: str) -> str | None:
 
 def validation_problems(err: ValidationError, model: type[BaseModel]) -> list[str]:
     """One line per problem, ``path: what is wrong; what is allowed``, for a `model` document:
-    the model's own words (`model.problem_words`), with a hint for a spreadsheet's decimal
+    the documents' own words (`reading.problem_words`), with a hint for a spreadsheet's decimal
     comma ('1,5'), which a cell of text can hold and a JSON number cannot."""
     return [f"{format_loc(tuple(e['loc']))}: {_decimal_comma(e) or problem_words(e, model)}"
             for e in err.errors()]

@@ -20,10 +20,10 @@ from typing import Literal
 
 import numpy as np
 
+from assignplan.documents import Batch
 from assignplan.errors import InputError
 from assignplan.importers import Inventory, finish_batch, load_inventory
 from assignplan.importers.reading import looks_like, read_bytes, wrong_kind
-from assignplan.model import Batch
 from assignplan.units import MAX_JOB_HOURS, counted
 
 FIELDS = (

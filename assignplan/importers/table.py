@@ -20,11 +20,11 @@ from typing import Any
 
 from pydantic import ValidationError
 
+from assignplan.documents import Batch, JobGroup
 from assignplan.errors import InputError
 from assignplan.importers import Inventory, finish_batch, load_inventory
 from assignplan.importers.problems import validation_problems
 from assignplan.importers.reading import NUMBER, decode_utf8, looks_like, read_bytes, wrong_kind
-from assignplan.model import Batch, JobGroup
 
 COLUMNS = tuple(JobGroup.model_fields)
 REQUIRED = tuple(name for name, f in JobGroup.model_fields.items() if f.is_required())

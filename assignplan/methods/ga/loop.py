@@ -9,6 +9,7 @@ from collections.abc import Callable
 
 import numpy as np
 
+from assignplan.documents import HistoryRow
 from assignplan.instance import Instance
 from assignplan.methods.ga import survival
 from assignplan.methods.ga.balance import reserved_eligibility
@@ -30,7 +31,6 @@ from assignplan.methods.ga.seeding import initial_population
 from assignplan.methods.ga.selection import lex_less, lex_rank
 from assignplan.methods.ga.settings import GASettings, sized
 from assignplan.methods.ga.variation import vary
-from assignplan.model import HistoryRow
 from assignplan.plan import PlanResult
 from assignplan.schedule import evaluate_population, schedule_result
 

@@ -1,0 +1,334 @@
+"""From a batch document to the checked batch: counts expanded, times read, cross-field checks.
+
+Everything downstream receives an `ExpandedBatch` (one entry per node and per job, names
+resolved, every time in hours from the window start whichever form the document used, every
+cross-field rule already checked, doubtful values as warnings).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import networkx as nx
+
+from assignplan.documents import CALENDAR_HELP, Batch
+from assignplan.errors import InputError
+from assignplan.reading import calendar_hours, parse_batch_text, read_text
+from assignplan.units import (
+    MAX_OFFSET_HOURS,
+    MAX_RESOURCE_MINUTES,
+    ceil_minutes,
+    clock,
+    duration_minutes,
+    floor_minutes,
+    memory_mib,
+    number,
+)
+
+
+@dataclass(frozen=True)
+class Node:
+    name: str
+    group: str
+    doc_index: int
+    cores: int
+    memory_mib: int
+    gpus: int
+    speed: float
+    tags: frozenset[str]
+    maintenance: tuple[tuple[float, float], ...]  # hours from the window start
+
+
+@dataclass(frozen=True)
+class Job:
+    name: str
+    group: str
+    doc_index: int
+    cores: int
+    memory_mib: int
+    gpus: int
+    hours: float
+    needs: frozenset[str]
+    follows: tuple[str, ...]  # resolved to member job names
+    ready_h: float
+    due_h: float | None
+    weight: float
+
+
+@dataclass(frozen=True)
+class ExpandedBatch:
+    """The batch after count expansion and cross-field checks: one entry per node and job.
+
+    Every time is in hours from the window start, whichever form the document used.
+    `warnings`: doubtful but valid input, one line each with its JSON path.
+    """
+
+    window_start: datetime
+    window_hours: float
+    nodes: tuple[Node, ...]
+    jobs: tuple[Job, ...]
+    warnings: tuple[str, ...] = ()
+
+
+def member_names(name: str, count: int) -> list[str]:
+    """`count` expansion: `gpu` x 12 -> gpu-01 .. gpu-12 (zero-padded to the width of count)."""
+    if count == 1:
+        return [name]
+    width = len(str(count))
+    return [f"{name}-{k:0{width}d}" for k in range(1, count + 1)]
+
+
+def load_batch(path: Path | str) -> ExpandedBatch:
+    """Read, validate and expand a batch file (the one entry point for batch input)."""
+    return expand_batch(parse_batch_text(read_text(path), str(path)), source=str(path))
+
+
+def _input_hours(hours: float | None, when: datetime | None, path: str, start: datetime | None,
+                 problems: list[str], *, required: bool) -> float | None:
+    """A batch time given as `<name>_h` or as calendar time `<name>` (at `path`), in hours.
+
+    None when not given, when wrong (a problem is added) or when there is no window start yet
+    to read a calendar time against (a node file without a window: checked in the batch).
+    """
+    name = path.rsplit(".", 1)[-1]
+    if hours is not None and when is not None:
+        problems.append(f"{path}: give {name} (a calendar time) or {name}_h (hours from the"
+                        " window start), not both")
+        return None
+    if when is None:
+        if hours is None and required:
+            problems.append(f"{path}_h: required field is missing (or give {name} as"
+                            f" {CALENDAR_HELP})")
+        return hours
+    if start is None:
+        return None
+    offset = calendar_hours(when, start, path, problems)
+    if offset is None:
+        return None
+    if when.tzinfo is None:  # show it as it was read
+        when = when.replace(tzinfo=start.tzinfo)
+    if offset < 0:
+        problems.append(f"{path}: {when.isoformat()} is before the window starts"
+                        f" ({start.isoformat()})")
+    elif offset > MAX_OFFSET_HOURS:
+        problems.append(f"{path}: {when.isoformat()} is more than"
+                        f" {number(MAX_OFFSET_HOURS, None)} h after the window start")
+    else:
+        return offset
+    return None
+
+
+def expand_batch(batch: Batch, source: str = "<batch>") -> ExpandedBatch:
+    """Expand counts, read every time as hours from the window start and run every cross-field
+    check; all problems are reported together, doubtful values come back as warnings."""
+    problems: list[str] = []
+    warnings: list[str] = []
+    nodes = expand_nodes(batch, problems)
+    jobs = _expand_jobs(batch, problems, warnings)
+    _check_capacity(batch, nodes, jobs, problems)
+    _check_cycles(batch, jobs, problems)
+    _check_totals(batch, nodes, problems)
+    if problems:
+        raise InputError([f"{source}: {p}" for p in problems])
+    return ExpandedBatch(batch.window.start, batch.window.hours, tuple(nodes), tuple(jobs),
+                         tuple(warnings))
+
+
+def expand_nodes(batch: Any, problems: list[str]) -> list[Node]:
+    """Node members with maintenance in hours. `batch` may be a node file without a window:
+    its calendar times are then checked when the batch is put together."""
+    window = getattr(batch, "window", None)
+    origin = window.start if window is not None else None
+    nodes: list[Node] = []
+    seen: dict[str, int] = {}
+    for gi, g in enumerate(batch.nodes):
+        spans: list[tuple[float, float, int]] = []
+        for k, m in enumerate(g.maintenance):
+            path = f"nodes[{gi}].maintenance[{k}]"
+            s = _input_hours(m.start_h, m.start, f"{path}.start", origin, problems, required=True)
+            e = _input_hours(m.end_h, m.end, f"{path}.end", origin, problems, required=True)
+            if s is None or e is None:
+                continue
+            if e <= s:
+                problems.append(f"{path}: ends at {e} h, not after it starts ({s} h)")
+            spans.append((s, e, k))
+        windows = sorted(spans)
+        for (_s0, e0, k0), (s1, _e1, k1) in zip(windows, windows[1:], strict=False):
+            if s1 < e0:
+                problems.append(
+                    f"nodes[{gi}].maintenance[{k1}]: overlaps maintenance[{k0}]"
+                    f" ([{s1}, ..) starts before {e0} h)"
+                )
+        for name in member_names(g.name, g.count):
+            if name in seen:
+                problems.append(
+                    f"nodes[{gi}].name: node '{name}' duplicates a node of nodes[{seen[name]}]"
+                )
+                continue
+            seen[name] = gi
+            nodes.append(
+                Node(
+                    name, g.name, gi, g.cores, memory_mib(g.memory_gib), g.gpus, g.speed,
+                    frozenset(g.tags), tuple((s, e) for s, e, _ in spans),
+                )
+            )
+    return nodes
+
+
+def _expand_jobs(batch: Batch, problems: list[str], warnings: list[str]) -> list[Job]:
+    members: dict[str, list[str]] = {}  # job or group name -> member names
+    seen: dict[str, int] = {}
+    for gi, g in enumerate(batch.jobs):
+        names = member_names(g.name, g.count)
+        for name in names:
+            if name in seen:
+                problems.append(
+                    f"jobs[{gi}].name: job '{name}' duplicates a job of jobs[{seen[name]}]"
+                    " (names are compared after count expansion)"
+                )
+            seen.setdefault(name, gi)
+        members.setdefault(g.name, []).extend(n for n in names if n not in members.get(g.name, []))
+        for name in names:
+            members.setdefault(name, [name])
+    all_tags = {t for g in batch.nodes for t in g.tags}
+    jobs: list[Job] = []
+    for gi, g in enumerate(batch.jobs):
+        for k, tag in enumerate(g.needs):
+            if tag not in all_tags:
+                problems.append(f"jobs[{gi}].needs[{k}]: no node has tag '{tag}'")
+        follows: list[str] = []
+        for k, ref in enumerate(g.follows):
+            if ref not in members:
+                problems.append(f"jobs[{gi}].follows[{k}]: no job or job group named '{ref}'")
+                continue
+            follows.extend(m for m in members[ref] if m not in follows)
+        origin = batch.window.start
+        ready = _input_hours(g.ready_h, g.ready, f"jobs[{gi}].ready", origin, problems,
+                             required=False)
+        due = _input_hours(g.due_h, g.due, f"jobs[{gi}].due", origin, problems, required=False)
+        ready = 0.0 if ready is None else ready
+        warnings.extend(_time_warnings(batch, gi, ready, due))
+        for name in member_names(g.name, g.count):
+            jobs.append(
+                Job(
+                    name, g.name, gi, g.cores, memory_mib(g.memory_gib), g.gpus, g.hours,
+                    frozenset(g.needs), tuple(follows), ready, due, g.weight,
+                )
+            )
+    return jobs
+
+
+def _time_warnings(batch: Batch, gi: int, ready: float, due: float | None) -> list[str]:
+    """Valid but doubtful times of job group `gi`: due before ready, ready past the window."""
+    g, origin = batch.jobs[gi], batch.window.start
+    ready_min, end_min = ceil_minutes(ready * 60), ceil_minutes(batch.window.hours * 60)
+    ready_path = f"jobs[{gi}].{'ready' if g.ready is not None else 'ready_h'}"
+    out = []
+    if due is not None and due < ready:
+        out.append(f"jobs[{gi}].{'due' if g.due is not None else 'due_h'}: due at"
+                   f" {clock(origin, floor_minutes(due * 60))} before it is ready at"
+                   f" {clock(origin, ready_min)}, so it will be late")
+    if ready_min >= end_min:
+        out.append(f"{ready_path}: ready at {clock(origin, ready_min)}, when the window has"
+                   f" ended ({clock(origin, end_min)}); it can only run past the window")
+    return out
+
+
+def can_hold(node: Node, job: Job) -> bool:
+    """True when the node has the cores, memory, GPUs and tags the job needs."""
+    return (
+        job.cores <= node.cores
+        and job.memory_mib <= node.memory_mib
+        and job.gpus <= node.gpus
+        and job.needs <= node.tags
+    )
+
+
+def _shortfall(node: Node, job: Job) -> list[str]:
+    short = []
+    if job.cores > node.cores:
+        short.append(f"{job.cores - node.cores} cores")
+    if job.memory_mib > node.memory_mib:
+        short.append(f"{(job.memory_mib - node.memory_mib) / 1024:g} GiB memory")
+    if job.gpus > node.gpus:
+        short.append(f"{job.gpus - node.gpus} GPUs")
+    missing = sorted(job.needs - node.tags)
+    if missing:
+        short.append("tags " + ", ".join(missing))
+    return short
+
+
+def _check_capacity(
+    batch: Batch, nodes: list[Node], jobs: list[Job], problems: list[str]
+) -> None:
+    reported: set[int] = set()
+    for job in jobs:
+        if job.doc_index in reported or any(can_hold(n, job) for n in nodes):
+            continue
+        reported.add(job.doc_index)
+        # The closest node is the one with the fewest things missing, then the smallest relative
+        # shortfall: that is the node the admin most likely meant.
+        def distance(n: Node, job: Job = job) -> tuple[int, float]:
+            rel = (
+                max(0, job.cores - n.cores) / job.cores
+                + max(0, job.memory_mib - n.memory_mib) / job.memory_mib
+                + (max(0, job.gpus - n.gpus) / job.gpus if job.gpus else 0.0)
+            )
+            return (len(_shortfall(n, job)), rel)
+
+        closest = min(nodes, key=distance)
+        problems.append(
+            f"jobs[{job.doc_index}]: no node can hold job '{job.name}' (needs {job.cores} cores,"
+            f" {job.memory_mib / 1024:g} GiB, {job.gpus} GPUs"
+            + (f", tags {', '.join(sorted(job.needs))}" if job.needs else "")
+            + f"); closest node '{closest.name}' is short of {', '.join(_shortfall(closest, job))}"
+        )
+
+
+def _check_cycles(batch: Batch, jobs: list[Job], problems: list[str]) -> None:
+    graph = nx.DiGraph()
+    graph.add_nodes_from(j.name for j in jobs)
+    graph.add_edges_from((p, j.name) for j in jobs for p in j.follows)
+    index = {j.name: j.doc_index for j in jobs}
+    reported: set[frozenset[str]] = set()
+    for component in nx.strongly_connected_components(graph):
+        if len(component) == 1:
+            (only,) = component
+            if not graph.has_edge(only, only):
+                continue
+        cycle = nx.find_cycle(graph.subgraph(component))
+        names = [u for u, _v in cycle] + [cycle[0][0]]
+        key = frozenset(names)
+        if key in reported:
+            continue
+        reported.add(key)
+        problems.append(
+            f"jobs[{index[names[0]]}].follows: dependency cycle {' -> '.join(names)}"
+            " (each must end before the next starts)"
+        )
+
+
+_RESOURCE_UNITS = (("cores", "core"), ("memory", "MiB"), ("GPUs", "GPU"))
+
+
+def _check_totals(batch: Batch, nodes: list[Node], problems: list[str]) -> None:
+    """Every job's resource-minutes on the slowest node, summed per resource, must stay within
+    MAX_RESOURCE_MINUTES, so no sum or time the planner forms can overflow (see units)."""
+    if not nodes:
+        return
+    slowest = min(n.speed for n in nodes)
+    totals = [0, 0, 0]  # Python integers: exact however large
+    for g in batch.jobs:
+        longest = int(duration_minutes(g.hours, slowest))
+        for r, demand in enumerate((g.cores, memory_mib(g.memory_gib), g.gpus)):
+            totals[r] += g.count * demand * longest
+    for (resource, unit), total in zip(_RESOURCE_UNITS, totals, strict=True):
+        if total > MAX_RESOURCE_MINUTES:
+            problems.append(
+                f"jobs: together the jobs need {total:.3g} {unit}-minutes of {resource} on the"
+                f" slowest node (speed {slowest:g}), more than the planner can count"
+                f" ({MAX_RESOURCE_MINUTES:.3g}); plan the batch in parts or shorten its"
+                " longest jobs")
