@@ -79,12 +79,12 @@ TIME_RULE = (
 )
 
 
-def _offset(description: str) -> Any:
-    return Field(default=None, ge=0, le=MAX_OFFSET_HOURS, description=description)
+def _offset(title: str, description: str) -> Any:
+    return Field(default=None, ge=0, le=MAX_OFFSET_HOURS, title=title, description=description)
 
 
-def _calendar(description: str) -> Any:
-    return Field(default=None, description=description)
+def _calendar(title: str, description: str) -> Any:
+    return Field(default=None, title=title, description=description)
 
 
 class Window(BaseModel):
@@ -92,9 +92,11 @@ class Window(BaseModel):
 
     model_config = _STRICT
     start: CalendarTime = Field(
-        description="Calendar time of minute 0 (ISO 8601; a date alone is midnight).")
-    hours: float = Field(default=168.0, gt=0, le=MAX_OFFSET_HOURS,
-                         description="Length of the window in hours.")
+        title="Window start", description="Calendar time of minute 0 (ISO 8601; a date alone "
+        "is midnight); every `*_h` offset counts from here.")
+    hours: float = Field(default=168.0, gt=0, le=MAX_OFFSET_HOURS, title="Window length (h)",
+                         description="Length of the window in hours; jobs ending later are "
+                                     "planned and reported as past the window.")
 
 
 class Maintenance(BaseModel):
@@ -105,25 +107,36 @@ class Maintenance(BaseModel):
                        " node. " + TIME_RULE,
         "allOf": [{"oneOf": [{"required": ["start_h"]}, {"required": ["start"]}]},
                   {"oneOf": [{"required": ["end_h"]}, {"required": ["end"]}]}]})
-    start_h: float | None = _offset("Start, in hours from the window start.")
-    end_h: float | None = _offset("End (exclusive), in hours from the window start.")
-    start: CalendarTime | None = _calendar("Start as a calendar time (instead of start_h).")
-    end: CalendarTime | None = _calendar("End as a calendar time (instead of end_h).")
+    start_h: float | None = _offset("Start (h from window start)",
+                                    "Start, in hours from the window start.")
+    end_h: float | None = _offset("End (h from window start)",
+                                  "End (exclusive), in hours from the window start.")
+    start: CalendarTime | None = _calendar("Start (calendar time)",
+                                           "Start as a calendar time (instead of start_h).")
+    end: CalendarTime | None = _calendar("End (calendar time)",
+                                         "End as a calendar time (instead of end_h).")
 
 
 class NodeGroup(BaseModel):
     """One node, or `count` identical nodes named `<name>-<k>`."""
 
     model_config = _STRICT
-    name: Name
-    count: int = Field(default=1, ge=1, le=100_000)
-    cores: int = Field(gt=0, le=MAX_CORES)
-    memory_gib: float = Field(gt=0, le=MAX_MEMORY_GIB)
-    gpus: int = Field(default=0, ge=0, le=MAX_GPUS)
-    speed: float = Field(default=1.0, ge=MIN_SPEED, le=MAX_SPEED,
-                         description="Relative speed; 1.0 = reference node.")
-    tags: list[Name] = Field(default_factory=list)
-    maintenance: list[Maintenance] = Field(default_factory=list)
+    name: Name = Field(title="Name", description="The node's name, or the group's: its members "
+                       "are `<name>-<k>`, k from 1, zero-padded to the width of count.")
+    count: int = Field(default=1, ge=1, le=100_000, title="Count",
+                       description="How many identical nodes the group holds.")
+    cores: int = Field(gt=0, le=MAX_CORES, title="Cores", description="Cores per node.")
+    memory_gib: float = Field(gt=0, le=MAX_MEMORY_GIB, title="Memory (GiB)",
+                              description="Memory per node, GiB (compared in whole MiB).")
+    gpus: int = Field(default=0, ge=0, le=MAX_GPUS, title="GPUs", description="GPUs per node.")
+    speed: float = Field(default=1.0, ge=MIN_SPEED, le=MAX_SPEED, title="Speed",
+                         description="Relative speed; 1.0 = reference node. A job of h hours "
+                                     "runs ceil(h * 60 / speed) minutes here.")
+    tags: list[Name] = Field(default_factory=list, title="Tags",
+                             description="Hardware or site tags jobs can ask for (`needs`).")
+    maintenance: list[Maintenance] = Field(
+        default_factory=list, title="Maintenance",
+        description="Windows during which nothing may run on these nodes.")
 
 
 class JobGroup(BaseModel):
@@ -133,36 +146,51 @@ class JobGroup(BaseModel):
         "description": "One job, or `count` identical jobs named `<name>-<k>` (a parameter"
                        " sweep). " + TIME_RULE,
         "not": {"anyOf": [{"required": ["ready", "ready_h"]}, {"required": ["due", "due_h"]}]}})
-    name: Name
-    count: int = Field(default=1, ge=1, le=1_000_000)
-    cores: int = Field(gt=0, le=MAX_CORES)
-    memory_gib: float = Field(gt=0, le=MAX_MEMORY_GIB)
-    hours: float = Field(ge=MIN_JOB_HOURS, le=MAX_JOB_HOURS,
-                         description="Run time on a reference node (speed 1.0).")
-    gpus: int = Field(default=0, ge=0, le=MAX_GPUS)
-    needs: list[Name] = Field(default_factory=list, description="Node tags the job requires.")
+    name: Name = Field(title="Name", description="The job's name, or the group's: its members "
+                       "are `<name>-<k>` (a parameter sweep).")
+    count: int = Field(default=1, ge=1, le=1_000_000, title="Count",
+                       description="How many identical jobs the group holds.")
+    cores: int = Field(gt=0, le=MAX_CORES, title="Cores", description="Cores the job uses.")
+    memory_gib: float = Field(gt=0, le=MAX_MEMORY_GIB, title="Memory (GiB)",
+                              description="Memory the job uses, GiB.")
+    hours: float = Field(ge=MIN_JOB_HOURS, le=MAX_JOB_HOURS, title="Run time (h)",
+                         description="Run time on a reference node (speed 1.0), hours.")
+    gpus: int = Field(default=0, ge=0, le=MAX_GPUS, title="GPUs",
+                      description="GPUs the job uses.")
+    needs: list[Name] = Field(default_factory=list, title="Needs",
+                              description="Node tags the job requires (all of them).")
     follows: list[Name] = Field(
-        default_factory=list, description="Jobs or job groups that must end before this starts."
-    )
-    ready_h: float | None = _offset("Earliest start, in hours from the window start (default 0).")
-    due_h: float | None = _offset("Due time, in hours from the window start.")
-    weight: float = Field(default=1.0, ge=0, le=MAX_WEIGHT)
-    ready: CalendarTime | None = _calendar("Earliest start as a calendar time (instead of"
+        default_factory=list, title="Follows",
+        description="Jobs or job groups that must end before this starts (a group: all "
+                    "its members).")
+    ready_h: float | None = _offset("Ready (h from window start)",
+                                    "Earliest start, in hours from the window start (default 0).")
+    due_h: float | None = _offset("Due (h from window start)",
+                                  "Due time, in hours from the window start; ending later "
+                                  "counts as tardiness, weighted by `weight`.")
+    weight: float = Field(default=1.0, ge=0, le=MAX_WEIGHT, title="Weight",
+                          description="Weight of the job's tardiness and completion time.")
+    ready: CalendarTime | None = _calendar("Ready (calendar time)",
+                                           "Earliest start as a calendar time (instead of"
                                            " ready_h).")
-    due: CalendarTime | None = _calendar("Due time as a calendar time (instead of due_h).")
+    due: CalendarTime | None = _calendar("Due (calendar time)",
+                                         "Due time as a calendar time (instead of due_h).")
 
 
 class Batch(BaseModel):
     """The input document: a window, the node inventory and the job list."""
 
     model_config = _STRICT
-    window: Window
-    nodes: list[NodeGroup] = Field(min_length=1)
-    jobs: list[JobGroup] = Field(min_length=1)
+    window: Window = Field(title="Window", description="The week the batch is planned for.")
+    nodes: list[NodeGroup] = Field(min_length=1, title="Nodes",
+                                   description="The node inventory, one entry per group.")
+    jobs: list[JobGroup] = Field(min_length=1, title="Jobs",
+                                 description="The jobs, one entry per job or sweep.")
 
 
-def _plan_offset(description: str) -> Any:
-    return Field(default=None, ge=-MAX_PLAN_HOURS, le=MAX_PLAN_HOURS, description=description)
+def _plan_offset(title: str, description: str) -> Any:
+    return Field(default=None, ge=-MAX_PLAN_HOURS, le=MAX_PLAN_HOURS, title=title,
+                 description=description)
 
 
 PlanHours = Annotated[float, Field(ge=-MAX_PLAN_HOURS, le=MAX_PLAN_HOURS)]
@@ -172,33 +200,42 @@ class Assignment(BaseModel):
     """Where and when one job runs: its start as `start_h` or `start` (or both, agreeing)."""
 
     model_config = _PLAN
-    job: Name
-    node: Name
-    start_h: float | None = _plan_offset("Start, in hours from the window start.")
+    job: Name = Field(title="Job", description="A job of the batch (member name).")
+    node: Name = Field(title="Node", description="The node it runs on (member name).")
+    start_h: float | None = _plan_offset("Start (h from window start)",
+                                         "Start, in hours from the window start.")
     end_h: float | None = _plan_offset(
+        "End (h from window start)",
         "End, in hours from the window start; optional (the model's duration gives it).")
-    start: CalendarTime | None = _calendar("Start as a calendar time (ISO 8601).")
-    end: CalendarTime | None = _calendar("End as a calendar time (ISO 8601); optional.")
+    start: CalendarTime | None = _calendar("Start (calendar time)",
+                                           "Start as a calendar time (ISO 8601).")
+    end: CalendarTime | None = _calendar("End (calendar time)",
+                                         "End as a calendar time (ISO 8601); optional.")
 
 
 class Objective(BaseModel):
     """The lexicographic objective of a plan, in hours."""
 
     model_config = _PLAN
-    makespan_h: float
-    weighted_tardiness_h: float
-    weighted_completion_h: float
+    makespan_h: float = Field(title="Makespan (h)", description="End of the last job.")
+    weighted_tardiness_h: float = Field(
+        title="Weighted tardiness (h)", description="Sum of weight x hours past the due time.")
+    weighted_completion_h: float = Field(
+        title="Weighted completion (h)", description="Sum of weight x end time.")
 
 
 class HistoryRow(BaseModel):
     """One generation of an iterative method: best and median fitness."""
 
     model_config = _PLAN
-    generation: int
-    evaluations: int
-    best_makespan_h: float
-    median_makespan_h: float
-    best_tardiness_h: float = 0.0
+    generation: int = Field(title="Generation", description="0: the initial population.")
+    evaluations: int = Field(title="Plans built", description="Plans built so far.")
+    best_makespan_h: float = Field(title="Best makespan (h)",
+                                   description="Makespan of the best plan so far.")
+    median_makespan_h: float = Field(title="Median makespan (h)",
+                                     description="Median makespan of the population.")
+    best_tardiness_h: float = Field(default=0.0, title="Best tardiness (h)",
+                                    description="Weighted tardiness of the best plan.")
 
 
 class PlanDoc(BaseModel):
@@ -208,19 +245,31 @@ class PlanDoc(BaseModel):
     """
 
     model_config = _PLAN
-    method: str | None = None
-    status: str = "feasible"
-    seed: int | None = None
-    window_start: CalendarTime | None = None
-    makespan_h: float | None = _plan_offset("Stated makespan (hours); checked when given.")
+    method: str | None = Field(default=None, title="Method",
+                               description="How the plan was made (ga, greedy, exact; any "
+                                           "text for a hand-written plan).")
+    status: str = Field(default="feasible", title="Status",
+                        description="optimal (proven by exact), feasible or unknown.")
+    seed: int | None = Field(default=None, title="Seed",
+                             description="Seed of the random generator that made it.")
+    window_start: CalendarTime | None = Field(default=None, title="Window start",
+                                              description="The batch's window start.")
+    makespan_h: float | None = _plan_offset("Makespan (h)",
+                                            "Stated makespan (hours); checked when given.")
     lower_bound_h: float | None = _plan_offset(
-        "Provable lower bound on the makespan (hours); computed when not given.")
+        "Lower bound (h)", "Provable lower bound on the makespan (hours); computed when not "
+        "given.")
     lower_bound_parts_h: dict[str, PlanHours] = Field(
-        default_factory=dict,
+        default_factory=dict, title="Lower bound parts (h)",
         description="Each part of the provable lower bound (hours); the largest is the bound "
                     "unless the method proved a better one.")
-    gap_pct: float | None = None
-    objective: Objective | None = None
-    seconds: float = 0.0
-    assignments: list[Assignment]
-    history: list[HistoryRow] = Field(default_factory=list)
+    gap_pct: float | None = Field(default=None, title="Gap (%)",
+                                  description="Makespan above the lower bound, per cent.")
+    objective: Objective | None = Field(default=None, title="Objective",
+                                        description="The objective's three terms.")
+    seconds: float = Field(default=0.0, title="Seconds",
+                           description="The method's own run time.")
+    assignments: list[Assignment] = Field(title="Assignments",
+                                          description="Every job's node and start.")
+    history: list[HistoryRow] = Field(default_factory=list, title="History",
+                                      description="Per generation of the ga: its progress.")

@@ -36,7 +36,7 @@ def test_batch_schema_describes_job_fields():
 
 def test_schemas_state_the_time_rule_and_the_limits():
     """Each time as hours (`*_h`) or as an ISO 8601 calendar time, not both; every time-like
-    field and resource bounded (issue 18)."""
+    field and resource bounded."""
     batch = json.loads(schema_texts()["batch.schema.json"])["$defs"]
     job, maintenance = batch["JobGroup"], batch["Maintenance"]
     for props in (job["properties"]["ready"], job["properties"]["due"],
@@ -55,3 +55,16 @@ def test_schemas_state_the_time_rule_and_the_limits():
     plan = json.loads(schema_texts()["plan.schema.json"])
     assert plan["required"] == ["assignments"]
     assert plan["$defs"]["Assignment"]["required"] == ["job", "node"]
+
+
+def test_every_field_has_a_human_title_and_a_description():
+    """A reader of the schema (or of a form built from it) sees "Memory (GiB)", not the
+    generated "Memory Gib", and a sentence saying what the field means."""
+    for name, text in schema_texts().items():
+        for model, spec in json.loads(text)["$defs"].items():
+            for field, prop in spec.get("properties", {}).items():
+                assert prop.get("description"), f"{name}: {model}.{field} has no description"
+                generated = field.replace("_", " ").title()  # "memory_gib" -> "Memory Gib"
+                assert prop.get("title") and ("_" not in field and field != "gpus"
+                                              or prop["title"] != generated), (
+                    f"{name}: {model}.{field} has the generated title {prop.get('title')!r}")
