@@ -284,32 +284,40 @@ def parse_batch_text(text: str | bytes, source: str = "<batch>") -> Batch:
     return validate_json(Batch, text, source)
 
 
-def read_text(path: Path | str) -> str:
-    """Read a UTF-8 input file (a leading byte-order mark is allowed), turning OS and decoding
-    errors into an InputError naming the file."""
+def read_bytes(path: Path | str) -> bytes:
+    """The file's bytes; a file that cannot be read is one line naming it and why."""
     p = Path(path)
     try:
-        return p.read_text(encoding="utf-8-sig")
+        return p.read_bytes()
     except FileNotFoundError:
         raise InputError(f"{p}: no such file") from None
     except IsADirectoryError:
-        raise InputError(f"{p}: is a directory, not a JSON file") from None
+        raise InputError(f"{p}: is a folder, not a file") from None
     except PermissionError:
         raise InputError(f"{p}: cannot read: permission denied") from None
-    except UnicodeDecodeError as exc:
-        raise InputError(f"{p}: {_not_utf8(exc)}") from None
     except OSError as exc:
         raise InputError(f"{p}: cannot read: {exc.strerror or exc}") from None
 
 
-def _not_utf8(exc: UnicodeDecodeError) -> str:
-    data = bytes(exc.object)
-    if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
-        return "not UTF-8 text but UTF-16; save it as UTF-8"
-    line = data.count(b"\n", 0, exc.start) + 1
-    column = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
-    return (f"not UTF-8 text: byte 0x{data[exc.start]:02x} at line {line}, column {column}"
-            " is not UTF-8; save the file as UTF-8")
+def decode_text(data: bytes, path: Path | str) -> str:
+    """UTF-8 text (a leading byte-order mark is allowed); otherwise one line saying where the
+    first byte that is not UTF-8 sits, or that the file is UTF-16."""
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+            reason = "not UTF-8 text but UTF-16; save it as UTF-8"
+        else:
+            line = data.count(b"\n", 0, exc.start) + 1
+            column = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
+            reason = (f"not UTF-8 text: byte 0x{data[exc.start]:02x} at line {line}, column"
+                      f" {column} is not UTF-8; save the file as UTF-8")
+        raise InputError(f"{path}: {reason}") from None
+
+
+def read_text(path: Path | str) -> str:
+    """A UTF-8 input file's text; every problem one line naming the file."""
+    return decode_text(read_bytes(path), path)
 
 
 def load_plan(path: Path | str) -> PlanDoc:

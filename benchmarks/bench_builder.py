@@ -151,7 +151,7 @@ def main(argv: list[str] | None = None) -> int:
         f"Reproduce: `{COMMAND} --repeats {args.repeats} --pop {args.pop} --seed {args.seed}`"
         " (from the repository root).", "",
         f"Machine: {machine_note()}.", "",
-        f"Measured {time.strftime('%Y-%m-%d')}. Target: >= 1 M placements/s on one thread.", "",
+        "Target: >= 1 M placements/s on one thread.", "",
     ])
     if not args.no_write:
         write_section(text, HERE / "RESULTS.md")

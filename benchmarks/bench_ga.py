@@ -113,13 +113,13 @@ def main(argv: list[str] | None = None) -> int:
         "the lower bound (`bounds.lower_bound`), which may be well below the true optimum on "
         "heterogeneous batches. ga: default settings"
         + (f" with {args.config}" if args.config != "{}" else "")
-        + f", seed {args.seed}, time limit {LIMITS['small']:.0f} / {LIMITS['medium']:.0f} / "
+        + f", seed {args.seed}, budget {LIMITS['small']:.0f} / {LIMITS['medium']:.0f} / "
         f"{LIMITS['large']:.0f} s (small / medium / large); ga s includes its greedy seeds; "
         "peak MiB is the case's own process (instance, bound, greedy and ga).", "",
         *header, *rows, "",
         f"Reproduce: `{COMMAND} --seed {args.seed}"
         + (f" --config '{args.config}'" if args.config != "{}" else "") + "` (from the "
-        "repository root; a run stopped by its time limit depends on machine speed).", "",
+        "repository root; a run stopped by its budget depends on machine speed).", "",
         f"Machine: {platform.machine()}, {os.cpu_count()} logical CPUs shared with other work "
         f"(load average {load}); Python {platform.python_version()}, numpy {np.__version__}.",
         "",

@@ -302,7 +302,8 @@ NOT_CSV = {
     "utf-16": (TEMPLATE.read_text().encode("utf-16"), "UTF-16 text; save it with the UTF-8"
                " encoding"),
     "not utf-8": ((HEADER + "caf\xe9,1,2,4,1,,,,,,\n").encode("latin-1"),
-                  "line 2: not UTF-8 text (byte 0xE9); save the file with the UTF-8 encoding"),
+                  "not UTF-8 text: byte 0xe9 at line 2, column 4 is not UTF-8; save the file as"
+                  " UTF-8"),
 }
 
 

@@ -524,8 +524,8 @@ INVENTORY_PROBLEMS = {
     "a CSV": ("name,cores\na,1\n", 'I.json: looks like a CSV table, not a JSON inventory'
               ' ({"window": {...}, "nodes": [...]})'),
     "not UTF-8": (b'{"nodes": [\n{"name": "n\xe9", "cores": 1, "memory_gib": 1}]}',
-                  "I.json:line 2: not UTF-8 text (byte 0xE9); save the file with the UTF-8"
-                  " encoding"),
+                  "I.json: not UTF-8 text: byte 0xe9 at line 2, column 12 is not UTF-8; save"
+                  " the file as UTF-8"),
 }
 
 

@@ -245,7 +245,7 @@ def test_missing_file_names_the_file(tmp_path):
 def test_directory_instead_of_file(tmp_path):
     result = CliRunner().invoke(app, ["solve", str(tmp_path)])
     assert result.exit_code == 2
-    assert "is a directory" in result.stderr
+    assert "is a folder, not a file" in result.stderr
 
 
 def test_output_into_missing_folder_fails_before_solving(tmp_path):

@@ -21,8 +21,8 @@ from assignplan.errors import InputError
 from assignplan.expand import expand_batch, expand_nodes
 from assignplan.files import atomic_write_text, check_output_file
 from assignplan.importers.problems import json_syntax_problem, validation_problems
-from assignplan.importers.reading import decode_utf8, looks_like, read_bytes, wrong_kind
-from assignplan.reading import parse_batch_text
+from assignplan.importers.reading import looks_like, wrong_kind
+from assignplan.reading import decode_text, parse_batch_text, read_bytes
 from assignplan.units import counted
 
 INVENTORY_KIND = 'a JSON inventory ({"window": {...}, "nodes": [...]})'
@@ -62,7 +62,7 @@ def load_inventory(path: Path | str) -> Inventory:
     kind = looks_like(data)
     if kind != "json":
         raise wrong_kind(path, kind, INVENTORY_KIND)
-    text = decode_utf8(data, path)
+    text = decode_text(data, path)
     syntax = json_syntax_problem(text, str(path))
     if syntax:
         raise InputError(syntax)

@@ -37,22 +37,6 @@ LOOKS = {
 }
 
 
-def read_bytes(path: Path | str) -> bytes:
-    """The file's bytes; a file that cannot be read is one line naming it and why."""
-    p = Path(path)
-    try:
-        return p.read_bytes()
-    except FileNotFoundError:
-        raise InputError(f"{p}: no such file") from None
-    except IsADirectoryError:
-        raise InputError(f"{p}: is a folder, not a file") from None
-    except PermissionError:
-        raise InputError(f"{p}: not allowed to read it (file permissions)") from None
-    except OSError as exc:
-        raise InputError(f"{p}: cannot be read ({exc.strerror or 'input/output error'})"
-                         ) from None
-
-
 def looks_like(data: bytes) -> str:
     """The kind of content: a key of `LOOKS`, judged from the first meaningful line."""
     if data.startswith(_UTF16_BOMS):
@@ -91,15 +75,3 @@ def wrong_kind(path: Path | str, kind: str, expected: str) -> InputError:
     return InputError(f"{path}: looks like {LOOKS[kind]}, not {expected}")
 
 
-def decode_utf8(data: bytes, path: Path | str) -> str:
-    """UTF-8 text without a leading byte-order mark; otherwise one line saying on which line
-    the first byte that is not UTF-8 sits."""
-    data = data.removeprefix(_UTF8_BOM)
-    try:
-        return data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data[: exc.start].count(b"\n") + 1
-        raise InputError(
-            f"{path}:line {line}: not UTF-8 text (byte 0x{data[exc.start]:02X}); save the"
-            " file with the UTF-8 encoding"
-        ) from None

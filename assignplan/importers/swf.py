@@ -23,7 +23,8 @@ import numpy as np
 from assignplan.documents import Batch
 from assignplan.errors import InputError
 from assignplan.importers import Inventory, finish_batch, load_inventory
-from assignplan.importers.reading import looks_like, read_bytes, wrong_kind
+from assignplan.importers.reading import looks_like, wrong_kind
+from assignplan.reading import read_bytes
 from assignplan.units import MAX_JOB_HOURS, counted
 
 FIELDS = (

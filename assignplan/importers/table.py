@@ -24,7 +24,8 @@ from assignplan.documents import Batch, JobGroup
 from assignplan.errors import InputError
 from assignplan.importers import Inventory, finish_batch, load_inventory
 from assignplan.importers.problems import validation_problems
-from assignplan.importers.reading import NUMBER, decode_utf8, looks_like, read_bytes, wrong_kind
+from assignplan.importers.reading import NUMBER, looks_like, wrong_kind
+from assignplan.reading import decode_text, read_bytes
 
 COLUMNS = tuple(JobGroup.model_fields)
 REQUIRED = tuple(name for name, f in JobGroup.model_fields.items() if f.is_required())
@@ -51,7 +52,7 @@ def import_csv(jobs_path: Path | str, inventory_path: Path | str) -> TableImport
     kind = looks_like(data)
     if kind in ("binary", "utf16"):
         raise wrong_kind(jobs_path, kind, CSV_KIND)
-    batch = csv_batch(decode_utf8(data, jobs_path), inventory, str(jobs_path),
+    batch = csv_batch(decode_text(data, jobs_path), inventory, str(jobs_path),
                       str(inventory_path))
     return TableImport(batch, tuple(inventory.notes(str(inventory_path), str(jobs_path))))
 

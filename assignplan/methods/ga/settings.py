@@ -32,7 +32,8 @@ class PopulationSettings(BaseModel):
     model_config = _FROZEN
     mu: int = Field(default=24, ge=2, le=10_000, description="Parents kept per generation.")
     lam: int = Field(default=48, ge=2, le=10_000, description="Offspring per generation.")
-    tournament_size: int = Field(default=3, ge=1, le=100)
+    tournament_size: int = Field(default=3, ge=1, le=100,
+                                 description="Members drawn per tournament; the best breeds.")
     survival: Literal["plus", "comma"] = Field(
         default="plus", description="plus: (mu + lambda); comma: (mu, lambda) with elitism.")
     scale_with_size: bool = Field(
@@ -57,15 +58,23 @@ class VariationSettings(BaseModel):
     """
 
     model_config = _FROZEN
-    crossover: Literal["uniform", "kpoint"] = "uniform"
+    crossover: Literal["uniform", "kpoint"] = Field(
+        default="uniform", description="uniform: each job's row from either parent; kpoint: "
+        "segments of the priority order alternate between the parents.")
     crossover_bias: float = Field(default=0.5, gt=0.0, lt=1.0,
                                   description="Uniform crossover: P(gene from first parent).")
     kpoints: int = Field(default=2, ge=1, le=1_000, description="Cut points of k-point crossover.")
-    mutation: Literal["symmetric", "asymmetric"] = "symmetric"
+    mutation: Literal["symmetric", "asymmetric"] = Field(
+        default="symmetric", description="symmetric: every bit flips alike; asymmetric: jobs "
+        "on the busiest nodes flip off more often.")
     mutation_flips: float = Field(default=6.0, gt=0.0, le=10_000.0,
                                   description="Expected bit flips per individual.")
-    repair_fill: Literal["earliest", "random"] = "earliest"
-    repair_keep: Literal["random", "previous"] = "random"
+    repair_fill: Literal["earliest", "random"] = Field(
+        default="earliest", description="An emptied row gets the node with the earliest "
+        "estimated finish, or a random eligible node.")
+    repair_keep: Literal["random", "previous"] = Field(
+        default="random", description="A row with several 1s keeps a random one, or its "
+        "original one.")
     evolve_order: bool = Field(
         default=True,
         description="Evolve a random key per job that sets each plan's decoding order.")
@@ -136,7 +145,9 @@ class StoppingSettings(BaseModel):
     """When a run ends (besides the time budget and reaching the lower bound)."""
 
     model_config = _FROZEN
-    generations: int = Field(default=2_000, ge=0, le=10_000_000)
+    generations: int = Field(default=2_000, ge=0, le=10_000_000,
+                             description="Most generations (the budget usually ends the run "
+                                         "first); `--generations` sets it.")
     stagnation: int = Field(default=300, ge=1, le=10_000_000,
                             description="Stop after this many generations without a better best.")
 
