@@ -74,6 +74,12 @@ class JobGroup(BaseModel):
     ready_h: Hours = 0.0
     due_h: Hours | None = None
     weight: float = Field(default=1.0, ge=0)
+    limit_h: float | None = Field(
+        default=None, gt=0,
+        description="Hard run-time limit, hours of wall time: a job still running then is "
+                    "stopped, as a cluster's scheduler stops it. Plans use `hours`; runtime "
+                    "risk replays (`assignplan risk`) cut sampled run times here. At least "
+                    "`hours`.")
 
 
 class Batch(BaseModel):
@@ -166,6 +172,7 @@ class Job:
     ready_h: float
     due_h: float | None
     weight: float
+    limit_h: float | None = None
 
 
 @dataclass(frozen=True)
@@ -312,6 +319,9 @@ def _expand_jobs(batch: Batch, problems: list[str]) -> list[Job]:
     all_tags = {t for g in batch.nodes for t in g.tags}
     jobs: list[Job] = []
     for gi, g in enumerate(batch.jobs):
+        if g.limit_h is not None and g.limit_h < g.hours:
+            problems.append(f"jobs[{gi}].limit_h: {g.limit_h:g} h is below the job's own"
+                            f" estimate of {g.hours:g} h")
         for k, tag in enumerate(g.needs):
             if tag not in all_tags:
                 problems.append(f"jobs[{gi}].needs[{k}]: no node has tag '{tag}'")
@@ -326,6 +336,7 @@ def _expand_jobs(batch: Batch, problems: list[str]) -> list[Job]:
                 Job(
                     name, g.name, gi, g.cores, memory_mib(g.memory_gib), g.gpus, g.hours,
                     frozenset(g.needs), tuple(follows), g.ready_h, g.due_h, g.weight,
+                    g.limit_h,
                 )
             )
     return jobs

@@ -67,6 +67,8 @@ CASES = [
     ("no-jobs", mutated(_set(["jobs"], [])), "jobs: List should have at least 1 item"),
     ("negative-ready", mutated(_set(["jobs", 0, "ready_h"], -1)), "jobs[0].ready_h: must be greater than or equal to 0"),
     ("bool-as-number", mutated(_set(["jobs", 0, "gpus"], True)), "jobs[0].gpus: must be a valid integer"),
+    ("limit-below-hours", mutated(_set(["jobs", 1, "limit_h"], 1.5)), "jobs[1].limit_h: 1.5 h is below the job's own estimate of 2 h"),
+    ("zero-limit", mutated(_set(["jobs", 1, "limit_h"], 0)), "jobs[1].limit_h: must be greater than 0"),
 ]
 
 
