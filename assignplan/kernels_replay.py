@@ -29,6 +29,7 @@ from numba import njit, prange
 
 from assignplan.instance import NO_DUE
 from assignplan.kernels import (
+    BLOCKED,
     NEVER,
     _grow,
     _segment_at,
@@ -55,10 +56,10 @@ def sampled_minutes(factor, minutes, limit):
 
 
 @njit(cache=True)
-def earliest_start_before(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2, cutoff):
-    """`kernels.earliest_start`, giving up (NEVER, -1) as soon as no start before `cutoff`
-    is left: a dispatch only wants a node that beats the best start found so far."""
-    k = _segment_at(seg_t, lo, n, t0)
+def _fit_from(seg_t, seg_f, lo, n, k, t0, dur, d0, d1, d2, cutoff):
+    """`kernels.earliest_start` from segment k (the one holding t0), giving up (NEVER, -1)
+    once no start before `cutoff` is left: a dispatch only wants a node that beats the best
+    start found so far, and the node's last start tells where to begin (see `replay_one`)."""
     s = t0
     while s < cutoff:
         m = k
@@ -77,6 +78,20 @@ def earliest_start_before(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2, cutoff):
         k = m + 1
         s = seg_t[lo + k]
     return NEVER, -1
+
+
+@njit(cache=True)
+def _segment_after(seg_t, lo, a, n, t):
+    """Index (relative to lo) of the segment containing minute t, known to be segment a or
+    a later one (binary search over [a, n))."""
+    b = n - 1
+    while a < b:
+        mid = (a + b + 1) // 2
+        if seg_t[lo + mid] <= t:
+            a = mid
+        else:
+            b = mid - 1
+    return a
 
 
 @njit(cache=True)
@@ -122,6 +137,17 @@ def replay_one(A, plan_assign, order, factor, limit, policy, start, end, where):
         init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, A.maint_start,
                   A.maint_end)
     last = np.zeros(n_nodes, np.int64)
+    # What a dispatch reads of a node before its profile: the segment holding last[i]
+    # (placements on i start there or later, so they never shift it), that segment's free
+    # room, and when it ends. Past last[i] the free room only grows until maintenance, so a
+    # node without room now and no change before the best start so far is passed over.
+    at_last = np.zeros(n_nodes, np.int64)
+    room = np.empty((3, n_nodes), np.int64)  # by resource: the scan below vectorises
+    change = np.empty(n_nodes, np.int64)
+    bound = np.empty(n_nodes, np.int64)
+    if policy == DISPATCH:
+        for i in range(n_nodes):
+            _remember(seg_t, seg_f, seg_lo[i], seg_n[i], 0, room, change, i)
     end[:] = -1
     for q in range(n_jobs):
         j = order[q]
@@ -138,13 +164,35 @@ def replay_one(A, plan_assign, order, factor, limit, policy, start, end, where):
         if s < 0:
             return False
         if policy == DISPATCH and s > t0:
+            # a lower bound on every node's start first, in one branch-free pass; then the
+            # profile search only where the bound beats the best start so far
+            eligible = A.eligible[j]
             for c in range(n_nodes):
                 lb = max(t0, last[c])
-                if c == plan_assign[j] or lb >= s or not A.eligible[j, c]:
+                fits = (room[0, c] >= d0) & (room[1, c] >= d1) & (room[2, c] >= d2)
+                bound[c] = max(lb, change[c] * (1 - fits)) if eligible[c] else NO_DUE
+            bound[plan_assign[j]] = NO_DUE
+            for c in range(n_nodes):
+                if bound[c] >= s:
                     continue
+                lb = bound[c]
+                if lb < change[c]:
+                    kc = at_last[c]
+                else:
+                    # No room before the profile changes. Past last[c] the free room only
+                    # grows until a maintenance window (and is whole after one): if the
+                    # segment holding minute s - 1 is no window and still lacks room, no
+                    # earlier one has it.
+                    kc = _segment_after(seg_t, seg_lo[c], at_last[c] + 1, seg_n[c], s - 1)
+                    f = seg_lo[c] + kc
+                    if seg_f[f, 0] != BLOCKED and (seg_f[f, 0] < d0 or seg_f[f, 1] < d1
+                                                   or seg_f[f, 2] < d2):
+                        continue
+                    kc = at_last[c] + 1 if lb == change[c] else _segment_at(
+                        seg_t, seg_lo[c], seg_n[c], lb)
                 dc = sampled_minutes(factor[j], duration_of(A, j, c), limit[j])
-                sc, kc = earliest_start_before(seg_t, seg_f, seg_lo[c], seg_n[c], lb, dc,
-                                               d0, d1, d2, s)
+                sc, kc = _fit_from(seg_t, seg_f, seg_lo[c], seg_n[c], kc, lb, dc, d0, d1, d2,
+                                   s)
                 if sc >= 0:
                     s, k, i, dur = sc, kc, c, dc
                     if s == t0:
@@ -157,7 +205,18 @@ def replay_one(A, plan_assign, order, factor, limit, policy, start, end, where):
         end[j] = s + dur
         where[j] = i
         last[i] = s
+        if policy == DISPATCH:
+            at_last[i] = k if seg_t[seg_lo[i] + k] == s else k + 1
+            _remember(seg_t, seg_f, seg_lo[i], seg_n[i], at_last[i], room, change, i)
     return True
+
+
+@njit(cache=True, inline="always")
+def _remember(seg_t, seg_f, lo, n, k, room, change, i):
+    """room[:, i] = the free room of node i's segment k; change[i] = when that segment ends."""
+    for r in range(3):
+        room[r, i] = seg_f[lo + k, r]
+    change[i] = seg_t[lo + k + 1] if k + 1 < n else NO_DUE
 
 
 def _replay_chunk(A, plan_assign, order, factors, limit, policy, end_out, start_out,
@@ -206,42 +265,19 @@ def _replay_chunk(A, plan_assign, order, factors, limit, policy, end_out, start_
 replay_chunk = njit(cache=True, parallel=True)(_replay_chunk)
 
 
-@njit(cache=True, inline="always")
-def _push(heap, value):
-    """Replace the root of min-heap `heap` (its smallest value) by value > root; sift down."""
-    w = heap.shape[0]
-    p = 0
-    while True:
-        c = 2 * p + 1
-        if c >= w:
-            break
-        if c + 1 < w and heap[c + 1] < heap[c]:
-            c += 1
-        if heap[c] >= value:
-            break
-        heap[p] = heap[c]
-        p = c
-    heap[p] = value
-
-
 @njit(cache=True, parallel=True)
-def fold_jobs(end, due, window, end_sum, late, past, top):
-    """Add a chunk's job ends (int64[n, J]) to the per-job accumulators, in place: end_sum,
-    late (end > due), past (end > window) int64[J], and top int64[J, w], each row a min-heap
-    of the w largest ends so far (initially -1: below any end)."""
-    n, n_jobs = end.shape
-    w = top.shape[1]
+def fold_jobs(ends, due, window, end_sum, late, past):
+    """Add a chunk's job ends (int64[J, n]: job j's ends in row j) to the per-job
+    accumulators int64[J], in place: end_sum, late (end > due), past (end > window)."""
+    n_jobs, n = ends.shape
     for j in prange(n_jobs):
-        heap = top[j]
         for s in range(n):
-            e = end[s, j]
+            e = ends[j, s]
             end_sum[j] += e
             if due[j] != NO_DUE and e > due[j]:
                 late[j] += 1
             if e > window:
                 past[j] += 1
-            if w > 0 and e > heap[0]:
-                _push(heap, e)
 
 
 def _replay_population(A, assign2d, start2d, factors, limit, out):

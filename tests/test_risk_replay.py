@@ -148,9 +148,9 @@ def test_chunk_tallies_merge_exactly_in_any_order():
                                          np.array(record["ga"]["start"]), 0))
     sampler = bind(parse_model("lognormal:0.3"), inst)
     n = 60
-    whole = replay(inst, plan, sampler, policy="dispatch", samples=n, seed=2)
-    job = ReplayJob(inst, plan, sampler, "dispatch", 2, n)
-    parts = [job(c) for c in chunks(n, size=7)]
+    whole = replay(inst, plan, sampler, samples=n, seed=2)["dispatch"]
+    job = ReplayJob(inst, plan, sampler, ("dispatch",), 2, n)
+    parts = [job(c)["dispatch"] for c in chunks(n, size=7)]
     merged = Tally.empty(inst.n_jobs, inst.n_nodes, n, 0)
     for part in reversed(parts):
         merged = merged.merge(part)
@@ -163,7 +163,7 @@ def test_chunk_tallies_merge_exactly_in_any_order():
                                   np.sort(end, axis=0)[nearest_rank(0.9, n) - 1])
     np.testing.assert_array_equal(whole.makespan, end.max(axis=1))
     with pytest.raises(ValueError):
-        parts[0].merge(job(Chunk(3, 5)))
+        parts[0].merge(job(Chunk(3, 5))["dispatch"])
 
 
 def test_a_plan_with_a_job_on_a_node_that_cannot_hold_it_is_refused():

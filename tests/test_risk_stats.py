@@ -33,7 +33,7 @@ def _makespans(doc: dict, model: str, seed: int = 0, samples: int = SAMPLES):
     assign, start = greedy_assign(inst)
     plan = make_result(inst, "greedy", assign, start, 0)
     tally = replay(inst, replay_plan(inst, plan), bind(parse_model(model), inst),
-                   policy="keep", samples=samples, seed=seed)
+                   policies=("keep",), samples=samples, seed=seed)["keep"]
     return tally.makespan.astype(np.float64), plan, inst
 
 

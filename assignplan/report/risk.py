@@ -169,9 +169,9 @@ def risk_scene(inst: Instance, risk: Risk) -> Scene:
         return LEFT + (np.asarray(h, float) - lo) / (hi - lo) * PLOT
 
     items += y_grid(top, PLOT_HEIGHT, [0, 25, 50, 75, 100], 0, 100, "{:g} %")
-    for k in range(6):
-        h = lo + k * (hi - lo) / 5
-        items.append(Text(float(x(h)), bottom + 18, f"{h:,.0f} h", "tick"))
+    for h in _round_ticks(lo, hi):
+        items += [Line(float(x(h)), top, float(x(h)), bottom, "grid"),
+                  Text(float(x(h)), bottom + 18, f"{h:,g} h", "tick")]
     at = np.linspace(lo, hi, PLOT + 1)  # one point per pixel: exact as far as the eye goes
     for p, values in curves.items():
         share = np.searchsorted(values, at, side="right") / len(values)
@@ -185,6 +185,14 @@ def risk_scene(inst: Instance, risk: Risk) -> Scene:
     return Scene("risk-makespan", bottom + 30, "Makespan under sampled run times",
                  "Makespan under sampled run times: share of futures ending by each makespan",
                  items)
+
+
+def _round_ticks(lo: float, hi: float, about: int = 6) -> list[float]:
+    """Round values (1, 2 or 5 times a power of ten apart) inside [lo, hi], about `about`."""
+    raw = (hi - lo) / about
+    power = 10 ** np.floor(np.log10(raw))
+    step = next(m * power for m in (1, 2, 5, 10) if m * power >= raw)
+    return [float(v) for v in np.arange(np.ceil(lo / step) * step, hi, step)]
 
 
 def risk_section_html(inst: Instance, risk: Risk, svg: str) -> str:

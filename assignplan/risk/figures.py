@@ -55,18 +55,13 @@ class Risk:
 
 def assess(inst: Instance, result: PlanResult, sampler: Sampler, *, samples: int, seed: int,
            executor: Executor | None = None,
-           on_chunk: Callable[[str, int], None] | None = None) -> Risk:
+           on_chunk: Callable[[int], None] | None = None) -> Risk:
     """Replay the plan under `samples` futures of `sampler` with both policies (the same
     futures for both: common random numbers)."""
     t0 = time.perf_counter()
     plan = replay_plan(inst, result)
-    tallies = {
-        policy: replay(inst, plan, sampler, policy=policy, samples=samples, seed=seed,
-                       executor=executor,
-                       on_chunk=None if on_chunk is None else (
-                           lambda done, p=policy: on_chunk(p, done)))
-        for policy in POLICIES
-    }
+    tallies = replay(inst, plan, sampler, policies=POLICIES, samples=samples, seed=seed,
+                     executor=executor, on_chunk=on_chunk)
     return Risk(sampler, seed, samples, plan, tallies, time.perf_counter() - t0)
 
 

@@ -121,7 +121,7 @@ class Tally:
     Per sample (length S; ``covered`` bool[S] says which are in): ``makespan`` minutes,
     ``tardiness`` float64 weighted tardiness minutes. Per job [J]: ``end_sum``, ``late``
     (samples ending after due), ``past`` (after the window), ``top`` [J, w] the w largest
-    ends seen (-1 pads). Per node [N]: ``last`` (samples in which it ends at the makespan;
+    ends seen (in no order). Per node [N]: ``last`` (samples in which it ends at the makespan;
     ties count for every node), ``work`` core-minutes.
     """
 
@@ -150,10 +150,8 @@ class Tally:
         """Both tallies' samples together (they must be disjoint): exact and order-free."""
         if np.any(self.covered & other.covered):
             raise ValueError("tallies of overlapping samples cannot be merged")
-        width = min(top_width(len(self.covered)), self.top.shape[1] + other.top.shape[1])
-        both = np.concatenate([self.top, other.top], axis=1)
-        top = -np.partition(-both, width - 1, axis=1)[:, :width] if width < both.shape[1] \
-            else both
+        top = _largest(np.concatenate([self.top, other.top], axis=1),
+                       top_width(len(self.covered)))
         return Tally(self.covered | other.covered,
                      np.where(other.covered, other.makespan, self.makespan),
                      np.where(other.covered, other.tardiness, self.tardiness),
@@ -169,27 +167,38 @@ class Tally:
             else np.zeros(len(self.top), np.int64)
 
 
+def _largest(values: np.ndarray, width: int) -> np.ndarray:
+    """The `width` largest values of each row (all of a shorter row), in no order."""
+    if values.shape[1] <= width:
+        return values
+    return -np.partition(-values, width - 1, axis=1)[:, :width]
+
+
 @dataclass(frozen=True, eq=False)
 class ReplayJob:
-    """Everything a chunk of one replay needs (plain data: it can be shipped to a worker);
-    calling it on a `Chunk` replays that chunk into a `Tally`."""
+    """Everything a chunk of one run needs (plain data: it can be shipped to a worker);
+    calling it on a `Chunk` replays that chunk's samples under each policy (the same
+    factors for all) into one `Tally` per policy."""
 
     inst: Instance
     plan: ReplayPlan
     sampler: Sampler
-    policy: str
+    policies: tuple[str, ...]
     seed: int
     samples: int
 
-    def __call__(self, chunk: Chunk) -> Tally:
-        inst, n = self.inst, chunk.hi - chunk.lo
+    def __call__(self, chunk: Chunk) -> dict[str, Tally]:
         factors = self.sampler.factors(self.seed, chunk.lo, chunk.hi)
+        return {policy: self._tally(chunk, factors, policy) for policy in self.policies}
+
+    def _tally(self, chunk: Chunk, factors: np.ndarray, policy: str) -> Tally:
+        inst = self.inst
         end, finish, work, makespan, tardiness, _, _ = _replay(inst, self.plan, factors,
-                                                               self.policy)
-        tally = Tally.empty(inst.n_jobs, inst.n_nodes, self.samples,
-                            min(n, top_width(self.samples)))
-        fold_jobs(end, inst.due, inst.window_minutes, tally.end_sum, tally.late, tally.past,
-                  tally.top)
+                                                               policy)
+        ends = np.ascontiguousarray(end.T)
+        tally = Tally.empty(inst.n_jobs, inst.n_nodes, self.samples, 0)
+        fold_jobs(ends, inst.due, inst.window_minutes, tally.end_sum, tally.late, tally.past)
+        tally.top = _largest(ends, top_width(self.samples))
         tally.covered[chunk.lo:chunk.hi] = True
         tally.makespan[chunk.lo:chunk.hi] = makespan
         tally.tardiness[chunk.lo:chunk.hi] = tardiness
@@ -219,19 +228,22 @@ def _replay(inst: Instance, plan: ReplayPlan, factors: np.ndarray, policy: str,
     return end, finish, work, makespan, tardiness, start, where
 
 
-def replay(inst: Instance, plan: ReplayPlan, sampler: Sampler, *, policy: str, samples: int,
-           seed: int, executor: Executor | None = None,
-           on_chunk: Callable[[int], None] | None = None) -> Tally:
-    """The merged tally of `samples` sampled futures of the plan under `policy` (keep |
-    dispatch); `on_chunk(samples done)` after each chunk."""
+def replay(inst: Instance, plan: ReplayPlan, sampler: Sampler, *,
+           policies: tuple[str, ...] = POLICIES, samples: int, seed: int,
+           executor: Executor | None = None,
+           on_chunk: Callable[[int], None] | None = None) -> dict[str, Tally]:
+    """The merged tally of each policy (keep, dispatch) over `samples` sampled futures of the
+    plan, the same futures for every policy; `on_chunk(samples done)` after each chunk."""
     check_samples(samples)
-    job = ReplayJob(inst, plan, sampler, policy, seed, samples)
-    total = Tally.empty(inst.n_jobs, inst.n_nodes, samples, 0)
-    for _, tally in (executor or InProcess()).run(job, chunks(samples)):
-        total = total.merge(tally)
+    job = ReplayJob(inst, plan, sampler, tuple(policies), seed, samples)
+    totals = {p: Tally.empty(inst.n_jobs, inst.n_nodes, samples, 0) for p in policies}
+    done = 0
+    for k, tallies in (executor or InProcess()).run(job, work := chunks(samples)):
+        totals = {p: totals[p].merge(tallies[p]) for p in policies}
+        done += work[k].hi - work[k].lo
         if on_chunk is not None:
-            on_chunk(total.samples)
-    return total
+            on_chunk(done)
+    return totals
 
 
 def replay_schedules(inst: Instance, plan: ReplayPlan, sampler: Sampler, *, policy: str,
