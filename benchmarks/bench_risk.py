@@ -159,7 +159,8 @@ def speed_section(args) -> str:
 # --------------------------------------------------------------------------- robust
 
 
-def robust_rows(args) -> list[str]:
+def robust_rows(args, outcomes: list[tuple[str, float, float]]) -> list[str]:
+    """Table rows; appends (model name, P90 change %, makespan cost %) to `outcomes`."""
     rows = []
     for scale, seeds, seconds in (("small", (1, 2, 3), args.small_seconds),
                                   ("medium", (1, 2), args.medium_seconds)):
@@ -177,14 +178,31 @@ def robust_rows(args) -> list[str]:
                     tally = replay(inst, replay_plan(inst, plan), sampler, policies=("keep",),
                                    samples=args.samples, seed=0)["keep"]
                     p90.append(quantile(tally.makespan, 0.9) / 60)
+                change = 100 * (p90[1] - p90[0]) / p90[0]
+                cost = 100 * (robust.makespan - single.makespan) / single.makespan
+                outcomes.append((name, change, cost))
                 rows.append(
                     f"| {name} | {scale} {inst.n_jobs:,} x {inst.n_nodes:,}, seed {seed} |"
                     f" {single.makespan / 60:.2f} | {p90[0]:.2f} | {robust.makespan / 60:.2f} |"
-                    f" {p90[1]:.2f} | {100 * (p90[1] - p90[0]) / p90[0]:+.1f} % |"
-                    f" {100 * (robust.makespan - single.makespan) / single.makespan:+.1f} % |"
+                    f" {p90[1]:.2f} | {change:+.1f} % | {cost:+.1f} % |"
                     f" {len(robust.history) - 1} |")
                 print(rows[-1], flush=True)
     return rows
+
+
+def robust_summary(outcomes: list[tuple[str, float, float]]) -> str:
+    """Per runtime model: the median (and range) of the P90 change and of the cost."""
+    lines = []
+    for name in MODELS:
+        change = [c for n, c, _ in outcomes if n == name]
+        cost = [k for n, _, k in outcomes if n == name]
+        if change:
+            lines.append(
+                f"{name}: P90 change median {statistics.median(change):+.1f} % (from"
+                f" {min(change):+.1f} to {max(change):+.1f} %), makespan cost median"
+                f" {statistics.median(cost):+.1f} % (from {min(cost):+.1f} to"
+                f" {max(cost):+.1f} %) over {len(change)} batches.")
+    return " ".join(lines)
 
 
 def robust_section(args) -> str:
@@ -192,7 +210,8 @@ def robust_section(args) -> str:
               " robust plan: makespan h | its P90 h | P90 change | makespan cost |"
               " robust generations |", "|---|---|---:|---:|---:|---:|---:|---:|---:|"]
     print("\n".join(header), flush=True)
-    rows = robust_rows(args)
+    outcomes: list[tuple[str, float, float]] = []
+    rows = robust_rows(args, outcomes)
     return "\n".join([
         ROBUST, "",
         "Generated batches (`assignplan/generate.py`). Single-estimate plan: the ga with its "
@@ -205,7 +224,7 @@ def robust_section(args) -> str:
         "futures (the `risk` stream, seed 0) keeping the plan. Makespan: the plan's own, "
         "single-estimate makespan. Trace model: hours read as requested times, factors drawn "
         "from KTH-SP2's actual/requested run times (median 0.40).", "",
-        *header, *rows, "",
+        *header, *rows, "", robust_summary(outcomes), "",
         f"Reproduce: `.venv/bin/python benchmarks/bench_risk.py --part robust --samples "
         f"{args.samples} --small-seconds {args.small_seconds:g} --medium-seconds "
         f"{args.medium_seconds:g}` (from the repository root).", "",

@@ -78,8 +78,8 @@ def jobs_table(inst: Instance, risk: Risk) -> Table | None:
     risky = keep[(keep["p_late"].fillna(0) > 0) | (keep["p_past_window"] > 0)].head(RISKIEST)
     if risky.empty:
         return None
-    t = Table(title=f"Riskiest jobs (first {len(risky)}, by P(late) keeping the plan;"
-              " figures: keep the plan / dispatch)", title_justify="left")
+    t = Table(title=f"Jobs likeliest to be late ({counted(len(risky), 'job')}, keeping the"
+              " plan; figures: keep the plan / dispatch)", title_justify="left")
     for col in ("job", "node", "due", "P(late)", "P(past window)", "P90 end, keep"):
         t.add_column(col, justify="left" if col in ("job", "node", "due") else "right",
                      no_wrap=col in ("job", "P(late)", "P(past window)"))
