@@ -90,6 +90,12 @@ GASettingsOpt = Annotated[Path | None, typer.Option(
     "(see docs/methods.md).")]
 ForceOpt = Annotated[bool, typer.Option(
     "--force", help="exact: try batches above its size limit (300 jobs).")]
+DEFAULT_MODEL = "lognormal:0.3"
+ModelOpt = Annotated[str | None, typer.Option(
+    "--model", metavar="MODEL",
+    help="Runtime model (an assumption you choose): lognormal:CV (median = hours), "
+         "uniform:LOW,HIGH, scale:FACTOR, trace:SWF (actual/requested run times of a trace), "
+         f"or a model file (.json, see schemas/). Default {DEFAULT_MODEL}.")]
 
 
 def method_settings(method: str, generations: int | None, ga_file: Path | None,
@@ -191,6 +197,16 @@ def solve(
     generations: GenerationsOpt = None,
     ga_settings: GASettingsOpt = None,
     force: ForceOpt = False,
+    risk: Annotated[bool, typer.Option(
+        "--risk", help="Also replay the new plan under 1,000 sampled futures of --model "
+        "(as `assignplan risk` does).")] = False,
+    robust: Annotated[float | None, typer.Option(
+        "--robust", metavar="Q", help="ga: plan for the Q-quantile of the makespan (e.g. 0.9) "
+        "and the mean weighted tardiness over --samples futures of --model.")] = None,
+    samples: Annotated[int | None, typer.Option(
+        "--samples", metavar="K", help="--robust: sampled futures each candidate plan is "
+        "scored on (default 32).")] = None,
+    model: ModelOpt = None,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
@@ -203,8 +219,16 @@ def solve(
     check_output_file(report, "--report")
     check_output_dir(png, "--png")
     settings = method_settings(method, generations, ga_settings, force)
+    runtime = runtime_options(method, risk=risk, robust=robust, samples=samples, model=model)
     steps = Steps(not quiet and not as_json and not to_stdout)
     expanded, inst = _read_instance(batch, steps)
+    objective = None
+    if robust is not None:
+        from assignplan.risk.robust import DEFAULT_ROBUST_SAMPLES, Robust
+        from assignplan.risk.sampling import bind
+
+        objective = Robust(robust, samples or DEFAULT_ROBUST_SAMPLES, bind(runtime, inst),
+                           seed=seed)
     deadline = time.perf_counter() + budget  # the budget covers everything after reading
     # The planning stack (numba, solvers) loads only once the input is known to be good.
     from assignplan.bounds import lower_bound
@@ -216,12 +240,51 @@ def solve(
         if method == "ga" else _method_step(steps, method)
     with stepper as tick:
         result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
-                     settings=settings, progress=tick, bound=bound)
+                     settings=settings, progress=tick, bound=bound, robust=objective)
+    replays = _assess(inst, result, runtime, samples=None, seed=seed, steps=steps) \
+        if risk else None
     with all_or_nothing():
         wrote = _write_outputs(expanded, inst, result, out=None if to_stdout else out,
-                               csv=csv, report=report, png=png)
+                               csv=csv, report=report, png=png, risk=replays)
     _print_outputs(inst, result, wrote, as_json=as_json, show_all=show_all,
-                   plan_to_stdout=to_stdout)
+                   plan_to_stdout=to_stdout, risk=replays)
+
+
+def runtime_options(method: str, *, risk: bool, robust: float | None, samples: int | None,
+                    model: str | None):
+    """The runtime model `solve` reads for --risk and --robust (None when neither is given),
+    checked before any work; an option nothing reads is an error naming what would."""
+    problems = []
+    if robust is not None and method != "ga":
+        problems.append(f"--robust: only the ga method plans for it; {method} keeps its own"
+                        " objective")
+    if samples is not None and robust is None:
+        problems.append("--samples: only --robust reads it (assignplan risk takes its own)")
+    if model is not None and not (risk or robust is not None):
+        problems.append("--model: only --risk and --robust read it")
+    if problems:
+        raise InputError(problems)
+    if robust is not None:
+        from assignplan.risk.robust import DEFAULT_ROBUST_SAMPLES, check_robust
+
+        check_robust(robust, DEFAULT_ROBUST_SAMPLES if samples is None else samples)
+    if not risk and robust is None:
+        return None
+    from assignplan.risk.models import parse_model
+
+    return parse_model(model or DEFAULT_MODEL)
+
+
+def _assess(inst, result, runtime, *, samples: int | None, seed: int, steps: Steps):
+    """The plan's replays under `samples` (default 1,000) futures of the runtime model."""
+    from assignplan.risk.figures import assess
+    from assignplan.risk.replay import DEFAULT_SAMPLES
+    from assignplan.risk.sampling import bind
+
+    n = DEFAULT_SAMPLES if samples is None else samples
+    sampler = bind(runtime, inst)
+    with steps.step(f"replaying {n:,} sampled futures"):
+        return assess(inst, result, sampler, samples=n, seed=seed)
 
 
 @contextmanager
@@ -241,9 +304,9 @@ def _read_instance(batch: Path, steps: Steps):
 
 
 def _write_outputs(expanded, inst, result, *, out: Path | None, csv: Path | None,
-                   report: Path | None, png: Path | None) -> list[str]:
+                   report: Path | None, png: Path | None, risk=None) -> list[str]:
     """Every file of one plan (call inside `files.all_or_nothing`); returns the lines that
-    say what was written."""
+    say what was written. `risk`: the plan's replays (`risk.figures.assess`), or None."""
     from assignplan import metrics
     from assignplan.plan import to_plan_doc
     from assignplan.report import exports
@@ -257,14 +320,24 @@ def _write_outputs(expanded, inst, result, *, out: Path | None, csv: Path | None
         exports.write_csv_tables(csv, summary, metrics.node_frame(inst, result),
                                  metrics.job_frame(inst, result))
         wrote.append(f"wrote {csv}/jobs.csv, nodes.csv and summary.csv")
+        wrote += _write_risk_csv(csv, inst, risk)
     return wrote + _write_report(expanded, to_plan_doc(inst, result), inst, result, report,
-                                 png)
+                                 png, risk)
+
+
+def _write_risk_csv(folder: Path, inst, risk) -> list[str]:
+    if risk is None:
+        return []
+    from assignplan.report.risk import write_risk_csv
+
+    write_risk_csv(folder, inst, risk)
+    return [f"wrote {folder}/risk-jobs.csv, risk-nodes.csv and risk-summary.csv"]
 
 
 def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: bool,
-                   plan_to_stdout: bool) -> None:
+                   plan_to_stdout: bool, risk=None) -> None:
     """The terminal's share: what was written (stderr), then the plan, the JSON summary or
-    the tables (stdout)."""
+    the tables (stdout), and the plan's runtime risk when it was replayed."""
     from assignplan import metrics
     from assignplan.plan import to_plan_doc
     from assignplan.report import tables
@@ -278,10 +351,19 @@ def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: b
     summary = metrics.summary(inst, result)
     summary["wall_seconds"] = round(time.perf_counter() - _STARTED[0], 3)
     if as_json:
+        if risk is not None:
+            from assignplan.risk.figures import summary as risk_summary
+
+            summary["risk"] = risk_summary(inst, risk)
         typer.echo(json.dumps(summary, indent=2))
-    else:
-        tables.print_plan(tables.make_console(), summary, metrics.node_frame(inst, result),
-                          metrics.job_frame(inst, result), show_all=show_all)
+        return
+    console = tables.make_console()
+    tables.print_plan(console, summary, metrics.node_frame(inst, result),
+                      metrics.job_frame(inst, result), show_all=show_all)
+    if risk is not None:
+        from assignplan.report.risk import print_risk
+
+        print_risk(console, inst, risk)
 
 
 @app.command()
@@ -333,28 +415,36 @@ def report(
 ) -> None:
     """Write a self-contained HTML report (timeline, utilisation, tables) of a plan."""
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
-    from assignplan.plan import result_from_doc
-    from assignplan.reading import load_plan
 
     check_output_file(out, "--out")
     check_output_dir(png, "--png")
     expanded, inst = _read_instance(batch, Steps(False))
-    try:
-        doc = load_plan(plan)
-        result = result_from_doc(inst, doc)
-    except InputError as err:
-        raise InputError([p if p.startswith(str(plan)) else f"{plan}: {p}"
-                          for p in err.problems]) from None
+    doc, result = _read_plan(plan, inst)
     with all_or_nothing():
         wrote = _write_report(expanded, doc, inst, result, out, png)
     for line in wrote:
         typer.echo(line, err=True)
 
 
+def _read_plan(plan: Path, inst):
+    """(plan document, PlanResult) of a plan file of the batch `inst`; every problem names
+    the plan file (a job the batch lacks, a job without a row, an unknown node)."""
+    from assignplan.plan import result_from_doc
+    from assignplan.reading import load_plan
+
+    try:
+        doc = load_plan(plan)
+        return doc, result_from_doc(inst, doc)
+    except InputError as err:
+        raise InputError([p if p.startswith(str(plan)) else f"{plan}: {p}"
+                          for p in err.problems]) from None
+
+
 def _write_report(expanded, doc, inst, result, html_path: Path | None,
-                  png_dir: Path | None) -> list[str]:
-    """Write the HTML report (saying what the independent checker finds in `doc`) and the
-    PNG charts; the lines to print once every output of the command is in place."""
+                  png_dir: Path | None, risk=None) -> list[str]:
+    """Write the HTML report (saying what the independent checker finds in `doc`, and the
+    runtime `risk` when given) and the PNG charts; the lines to print once every output of
+    the command is in place."""
     from assignplan.check import check_plan
     from assignplan.files import ensure_folder
     from assignplan.report.html import write_html_report
@@ -364,15 +454,63 @@ def _write_report(expanded, doc, inst, result, html_path: Path | None,
     wrote = []
     if html_path is not None:
         violations = check_plan(expanded, doc)
-        size = write_html_report(html_path, inst, result, violations)
+        size = write_html_report(html_path, inst, result, violations, risk=risk)
         wrote.append(f"wrote {html_path} ({size / 1024:,.0f} KiB)")
         if violations:
             wrote.append(f"{html_path}: the plan fails the check"
                          f" ({counted(len(violations), 'violation')}); the report says so")
     if png_dir is not None:
         ensure_folder(png_dir)
-        wrote += [f"wrote {path}" for path in write_png_charts(png_dir, inst, result)]
+        wrote += [f"wrote {path}" for path in write_png_charts(png_dir, inst, result, risk)]
     return wrote
+
+
+@app.command()
+@reports_errors
+def risk(
+    batch: BatchArg,
+    plan: Annotated[Path, typer.Argument(help="Plan JSON (from solve --out).", show_default=False)],
+    model: ModelOpt = None,
+    samples: Annotated[int, typer.Option(
+        metavar="N", help="Sampled futures to replay the plan under.")] = 1_000,
+    seed: SeedOpt = 0,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the figures as JSON.")] = False,
+    csv: Annotated[Path | None, typer.Option(
+        metavar="FOLDER", help="Write risk-jobs.csv, risk-nodes.csv and risk-summary.csv "
+        "into this folder.")] = None,
+    report: Annotated[Path | None, typer.Option(
+        metavar="REPORT.html", help="Also write the plan's HTML report with a runtime-risk "
+        "section to this file.")] = None,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress display.")] = False,
+) -> None:
+    """Replay a plan under sampled run times: makespan quantiles, the chance to finish inside
+    the window, the jobs likeliest to be late, the nodes that end last."""
+    from assignplan.files import all_or_nothing, check_output_dir, check_output_file
+    from assignplan.risk.models import parse_model
+    from assignplan.risk.replay import check_samples
+
+    check_output_dir(csv, "--csv")
+    check_output_file(report, "--report")
+    check_samples(samples)
+    runtime = parse_model(model or DEFAULT_MODEL)
+    steps = Steps(not quiet and not as_json)
+    expanded, inst = _read_instance(batch, steps)
+    doc, result = _read_plan(plan, inst)
+    replays = _assess(inst, result, runtime, samples=samples, seed=seed, steps=steps)
+    with all_or_nothing():
+        wrote = _write_risk_csv(csv, inst, replays) if csv is not None else []
+        wrote += _write_report(expanded, doc, inst, result, report, None, replays)
+    for line in wrote:
+        typer.echo(line, err=True)
+    if as_json:
+        from assignplan.risk.figures import summary
+
+        typer.echo(json.dumps(summary(inst, replays), indent=2))
+    else:
+        from assignplan.report.risk import print_risk
+        from assignplan.report.tables import make_console
+
+        print_risk(make_console(), inst, replays)
 
 
 @app.command()
@@ -414,10 +552,12 @@ def check(
 @reports_errors
 def schema(
     out: Annotated[Path, typer.Option(
-        metavar="FOLDER", help="Folder for batch.schema.json and plan.schema.json.")]
+        metavar="FOLDER", help="Folder for batch.schema.json, plan.schema.json and "
+        "runtime-model.schema.json.")]
     = Path("schemas"),
 ) -> None:
-    """Write the JSON Schemas of the batch and plan documents (generated from the models)."""
+    """Write the JSON Schemas of the batch, plan and runtime-model documents (generated from
+    the models)."""
     from assignplan.files import (
         all_or_nothing,
         atomic_write_text,

@@ -170,6 +170,12 @@ class JobGroup(BaseModel):
                                   "counts as tardiness, weighted by `weight`.")
     weight: float = Field(default=1.0, ge=0, le=MAX_WEIGHT, title="Weight",
                           description="Weight of the job's tardiness and completion time.")
+    limit_h: float | None = Field(
+        default=None, gt=0, le=MAX_OFFSET_HOURS, title="Run-time limit (h)",
+        description="Hard run-time limit, hours of wall time: a job still running then is "
+                    "stopped, as a cluster's scheduler stops it. Plans use `hours`; runtime "
+                    "risk replays (`assignplan risk`) cut sampled run times here. At least "
+                    "`hours`.")
     ready: CalendarTime | None = _calendar("Ready (calendar time)",
                                            "Earliest start as a calendar time (instead of"
                                            " ready_h).")

@@ -56,6 +56,7 @@ class Job:
     ready_h: float
     due_h: float | None
     weight: float
+    limit_h: float | None = None  # hard run-time limit (wall hours), for risk replays
 
 
 @dataclass(frozen=True)
@@ -196,6 +197,9 @@ def _expand_jobs(batch: Batch, problems: list[str], warnings: list[str]) -> list
     all_tags = {t for g in batch.nodes for t in g.tags}
     jobs: list[Job] = []
     for gi, g in enumerate(batch.jobs):
+        if g.limit_h is not None and g.limit_h < g.hours:
+            problems.append(f"jobs[{gi}].limit_h: {g.limit_h:g} h is below the job's own"
+                            f" estimate of {g.hours:g} h")
         for k, tag in enumerate(g.needs):
             if tag not in all_tags:
                 problems.append(f"jobs[{gi}].needs[{k}]: no node has tag '{tag}'")
@@ -215,7 +219,7 @@ def _expand_jobs(batch: Batch, problems: list[str], warnings: list[str]) -> list
             jobs.append(
                 Job(
                     name, g.name, gi, g.cores, memory_mib(g.memory_gib), g.gpus, g.hours,
-                    frozenset(g.needs), tuple(follows), ready, due, g.weight,
+                    frozenset(g.needs), tuple(follows), ready, due, g.weight, g.limit_h,
                 )
             )
     return jobs

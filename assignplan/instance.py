@@ -17,6 +17,7 @@ from assignplan.units import ceil_minutes, duration_minutes, floor_minutes
 
 RESOURCES = ("cores", "memory", "gpus")
 NO_DUE = np.iinfo(np.int64).max // 4  # far beyond any makespan: never late
+NO_LIMIT = np.iinfo(np.int64).max // 4  # a run-time limit no run reaches
 
 
 class Arrays(NamedTuple):
@@ -136,6 +137,8 @@ class Instance:
     - ``maint_ptr``/``maint_start``/``maint_end``: CSR of maintenance windows per node,
       whole minutes, half-open ``[start, end)``, widened outwards to whole minutes
     - ``order``: int64[J] a priority order (largest bottom level first) that respects follows
+    - ``limit``: int64[J] hard run-time limit in minutes of wall time, ``ceil(limit_h * 60)``
+      (``NO_LIMIT`` if none); read only by runtime-risk replays
     """
 
     job_names: tuple[str, ...]
@@ -163,6 +166,7 @@ class Instance:
     maint_start: np.ndarray
     maint_end: np.ndarray
     order: np.ndarray
+    limit: np.ndarray
 
     @property
     def arrays(self) -> Arrays:
@@ -324,6 +328,8 @@ def build_instance(batch: ExpandedBatch) -> Instance:
         maint_start=maint_start,
         maint_end=maint_end,
         order=priority_order(hours, pred_ptr, pred_idx, succ_ptr, succ_idx),
+        limit=np.array([NO_LIMIT if j.limit_h is None else ceil_minutes(j.limit_h * 60)
+                        for j in jobs], dtype=np.int64),
     )
 
 

@@ -59,7 +59,7 @@ def init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, 
 
 
 @njit(cache=True)
-def _segment_at(seg_t, lo, n, t):
+def segment_at(seg_t, lo, n, t):
     """Index (relative to lo) of the segment containing minute t >= 0 (binary search)."""
     a = 0
     b = n - 1
@@ -87,7 +87,7 @@ def earliest_start(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2):
 def earliest_start_by(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2, latest):
     """`earliest_start`, giving up (NEVER, -1) as soon as the start would pass `latest`: a
     caller that only wants starts up to some minute stops scanning there."""
-    k = _segment_at(seg_t, lo, n, t0)
+    k = segment_at(seg_t, lo, n, t0)
     s = t0
     while True:
         if s > latest:
@@ -428,7 +428,7 @@ sgs_population_serial = njit(cache=True)(_sgs_population)
 
 
 @njit(cache=True)
-def _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i, need):
+def grow_slice(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i, need):
     """Give node i room for `need` slots: move its slice to the pool's end, doubling the pool
     when full. Returns (seg_t, seg_f, used). Moved-out slices are abandoned, a geometric
     series: total space stays within a constant factor of the segments in use."""
@@ -458,7 +458,7 @@ def greedy_list(A, order, job_class, class_ptr, class_nodes, assign, start):
     A: the instance's arrays; job_class/class_ptr/class_nodes: where each job may go (the
     CSR of `instance.Eligibility`: A's own, or a narrower choice); only those nodes are
     probed. Ties: earliest start, then lowest node index. Writes assign and start int64[J].
-    Per-node room is unknown up front, so slices start small and grow (see `_grow`).
+    Per-node room is unknown up front, so slices start small and grow (see `grow_slice`).
     Returns False if some job has no node or a predecessor comes later in `order`.
     """
     demand, capacity = A.demand, A.capacity
@@ -517,7 +517,7 @@ def greedy_list(A, order, job_class, class_ptr, class_nodes, assign, start):
             return False
         i = best_i
         if seg_n[i] + 2 > seg_cap[i]:
-            seg_t, seg_f, used = _grow(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i,
+            seg_t, seg_f, used = grow_slice(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i,
                                        seg_n[i] + 2)
         dur = duration_of(A, j, i)
         seg_n[i] = place(seg_t, seg_f, seg_lo[i], seg_n[i], best_k, best_s, dur, d0, d1, d2)

@@ -106,6 +106,17 @@ def evaluate_population(inst: Instance, assign2d: np.ndarray,
     return fitness
 
 
+def build_population(inst: Instance, assign2d: np.ndarray, order: np.ndarray | None = None, *,
+                     justify: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    """Start minutes int64[P, J] of every schedule and its five score columns float64[P, 5]
+    (those of `evaluate_population` with `tail`), for scorers that also need the starts."""
+    assign2d = check_assign(inst, assign2d)
+    if assign2d.ndim != 2:
+        raise ValueError("population must be a 2-D array [pop_size, n_jobs]")
+    return _run(inst, assign2d, check_order(inst, order), keep_starts=True, justify=justify,
+                columns=5)
+
+
 def schedule_result(inst: Instance, assign: np.ndarray, method: str, lower_bound: int,
                     order: np.ndarray | None = None, *, justify: bool = False,
                     **kw) -> PlanResult:

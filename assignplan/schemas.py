@@ -1,10 +1,12 @@
-"""JSON Schemas of the batch and plan documents, generated from the pydantic models."""
+"""JSON Schemas of the batch, plan and runtime-model documents, generated from the pydantic
+models."""
 
 from __future__ import annotations
 
 import json
 
 from assignplan.documents import Batch, PlanDoc
+from assignplan.risk.models import ModelDocument
 
 SCHEMA_ID = "https://assignplan.invalid/schemas/"
 
@@ -13,7 +15,9 @@ def schema_texts() -> dict[str, str]:
     """File name -> schema text (stable formatting, so a test can diff the committed files)."""
     out = {}
     for name, model, title in (("batch.schema.json", Batch, "assignplan batch"),
-                               ("plan.schema.json", PlanDoc, "assignplan plan")):
+                               ("plan.schema.json", PlanDoc, "assignplan plan"),
+                               ("runtime-model.schema.json", ModelDocument,
+                                "assignplan runtime model")):
         schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
                   "$id": SCHEMA_ID + name, "title": title, **model.model_json_schema()}
         schema["title"] = title

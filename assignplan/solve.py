@@ -8,7 +8,8 @@ the lower bound) and returns the one result type; this module owns what they sha
 - the lower bound, computed once per batch (unless the caller has it) and attached to the
   result in one place, raised to a bound the method proved itself (exact's);
 - the time budget: it counts from the call, so the bound's time comes off the method's share;
-- the exact method's size guard.
+- the exact method's size guard;
+- the robust objective (`risk.robust`), which only the ga reads.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ from __future__ import annotations
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -25,6 +27,9 @@ from assignplan.errors import InputError
 from assignplan.instance import Instance
 from assignplan.methods.ga.settings import GASettings
 from assignplan.plan import PlanResult
+
+if TYPE_CHECKING:
+    from assignplan.risk.robust import Robust
 
 EXACT_MAX_JOBS = 300  # above this, exact rarely proves anything within a budget of minutes
 
@@ -44,12 +49,14 @@ class ExactSettings(BaseModel):
 
 @dataclass(frozen=True)
 class Method:
-    """A registered method: how to run it and the settings type it reads (None: none)."""
+    """A registered method: how to run it, the settings type it reads (None: none), and
+    whether it can plan for a robust objective."""
 
     name: str
     run: Callable[..., PlanResult]
     settings: type[BaseModel] | None
     summary: str
+    robust: bool = False
 
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
@@ -60,11 +67,18 @@ def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
 
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
-        progress: Progress | None, bound: int) -> PlanResult:
+        progress: Progress | None, bound: int, robust: Robust | None = None) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
+    if robust is None:
+        return solve_ga(inst, settings=settings, lower_bound=bound, seed=seed, budget=budget,
+                        on_generation=progress)
+    from assignplan.risk.robust import robust_evaluate
+
     return solve_ga(inst, settings=settings, lower_bound=bound, seed=seed, budget=budget,
-                    on_generation=progress)
+                    on_generation=progress, bound_stops=False,
+                    evaluate=robust_evaluate(inst, robust,
+                                             justify=settings.improvement.justify))
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
@@ -80,7 +94,8 @@ def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
 
 
 METHODS: dict[str, Method] = {m.name: m for m in (
-    Method("ga", _ga, GASettings, "genetic algorithm over the assignment matrix (default)"),
+    Method("ga", _ga, GASettings, "genetic algorithm over the assignment matrix (default)",
+           robust=True),
     Method("greedy", _greedy, None, "list scheduling, longest job first, earliest finish"),
     Method("exact", _exact, ExactSettings, "CP-SAT; proves optimality on small batches"),
 )}
@@ -101,22 +116,27 @@ def method_named(name: str) -> Method:
 
 def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
           settings: BaseModel | None = None, progress: Progress | None = None,
-          bound: LowerBound | None = None) -> PlanResult:
+          bound: LowerBound | None = None, robust: Robust | None = None) -> PlanResult:
     """Plan `inst` with `method` within `budget` seconds from this call.
 
     `settings`: the method's settings object (default: its defaults); another type is an
     error. `bound`: `bounds.lower_bound(inst)` when the caller already has it (then its time
-    is not charged here). The result carries the lower bound, its parts, and the method's
-    own seconds.
+    is not charged here). `robust`: plan for a quantile of the makespan under sampled run
+    times (`risk.robust`; the ga only, another method is an error). The result carries the
+    lower bound, its parts, and the method's own seconds.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
+    if robust is not None and not chosen.robust:
+        raise InputError(f"--robust: only the ga method plans for it; {method} keeps its own"
+                         " objective")
     settings = _settings_for(chosen, settings)
     if bound is None:
         bound = lower_bound(inst, deadline=t0 + budget)
     started = time.perf_counter()
+    extra = {"robust": robust} if robust is not None else {}
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
-                        settings=settings, progress=progress, bound=bound.value)
+                        settings=settings, progress=progress, bound=bound.value, **extra)
     proven = max(bound.value, result.solver_bound or 0)
     return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
                    seconds=time.perf_counter() - started)

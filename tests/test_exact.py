@@ -203,7 +203,10 @@ def test_tiny_budget_never_claims_a_wrong_optimum():
         except SolveError as err:
             assert given is None and "no plan found within" in str(err)
             continue
-        assert res.solver_bound <= 60 * opt <= res.makespan
+        # the hint's own plan, when CP-SAT completes nothing in time (a loaded machine), comes
+        # back without a solver bound: it claims nothing
+        assert (res.solver_bound is None and given is not None) or res.solver_bound <= 60 * opt
+        assert 60 * opt <= res.makespan
         if res.status == "optimal":
             assert res.makespan == 60 * opt
         else:

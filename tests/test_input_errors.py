@@ -77,6 +77,8 @@ CASES = [
     ("negative-ready", mutated(_set(["jobs", 0, "ready_h"], -1)),
      "jobs[0].ready_h: must be at least 0 and at most 100,000 h (got -1)"),
     ("bool-as-number", mutated(_set(["jobs", 0, "gpus"], True)), "jobs[0].gpus: must be a whole number (got true)"),
+    ("limit-below-hours", mutated(_set(["jobs", 1, "limit_h"], 1.5)), "jobs[1].limit_h: 1.5 h is below the job's own estimate of 2 h"),
+    ("zero-limit", mutated(_set(["jobs", 1, "limit_h"], 0)), "jobs[1].limit_h: must be greater than 0 and at most 100,000 h (got 0)"),
 ]
 
 # Issue 18: every time-like input and every resource is bounded, so no minute count can

@@ -15,6 +15,7 @@ from collections import Counter
 from collections.abc import Sequence
 from html import escape
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pandas as pd
 
@@ -29,6 +30,9 @@ from assignplan.report.figures import NODE_ROW_LIMIT
 from assignplan.report.scene import stylesheet
 from assignplan.report.svg import render_svg
 from assignplan.units import clock, counted, number
+
+if TYPE_CHECKING:
+    from assignplan.risk.figures import Risk
 
 OPEN_TABLE_ROWS = 500  # longer job tables start folded, so the charts stay in reach
 FIRST_VIOLATIONS = 5  # violations quoted in the banner of a plan that fails the check
@@ -190,11 +194,12 @@ def job_table_html(inst: Instance, jobs: pd.DataFrame) -> str:
 
 
 def render_html_report(inst: Instance, result: PlanResult, violations: Sequence[Violation], *,
-                       title: str | None = None) -> str:
+                       title: str | None = None, risk: Risk | None = None) -> str:
     """The whole report page as one string (see the module docstring for what it holds).
 
     ``violations``: what `check.check_plan` found in the plan (empty when it passed); the
-    page opens with it.
+    page opens with it. ``risk``: the plan's replays under sampled run times
+    (`risk.figures.assess`), shown in a section of their own after the charts.
     """
     s = summary(inst, result)
     nodes = node_frame(inst, result)
@@ -217,6 +222,10 @@ def render_html_report(inst: Instance, result: PlanResult, violations: Sequence[
         note = _timeline_note(inst) if name == "timeline" else note
         parts.append(f'<section><h2>{heading}</h2><p class="note">{note}</p>'
                      f"{render_svg(scene)}</section>")
+    if risk is not None:
+        from assignplan.report.risk import risk_scene, risk_section_html
+
+        parts.append(risk_section_html(inst, risk, render_svg(risk_scene(inst, risk))))
     parts += [
         f"<section><h2>Nodes</h2>{node_table_html(inst, nodes)}</section>",
         f"<section><h2>Jobs</h2>{job_table_html(inst, job_frame(inst, result))}</section>",
@@ -230,9 +239,10 @@ def render_html_report(inst: Instance, result: PlanResult, violations: Sequence[
 
 
 def write_html_report(path: Path | str, inst: Instance, result: PlanResult,
-                      violations: Sequence[Violation], *, title: str | None = None) -> int:
+                      violations: Sequence[Violation], *, title: str | None = None,
+                      risk: Risk | None = None) -> int:
     """Write the report page atomically; returns the bytes written."""
-    text = render_html_report(inst, result, violations, title=title)
+    text = render_html_report(inst, result, violations, title=title, risk=risk)
     atomic_write_text(path, text)
     return len(text.encode("utf-8"))
 

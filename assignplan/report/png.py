@@ -114,13 +114,19 @@ def write_png(path: Path | str, scene: Scene) -> None:
     atomic_write(path, lambda p: fig.savefig(p, format="png", dpi=DPI * SCALE))
 
 
-def write_png_charts(folder: Path | str, inst: Instance, result: PlanResult) -> list[Path]:
-    """timeline.png, utilisation.png, node-utilisation.png and, with history, convergence.png:
-    the same scenes the HTML page shows."""
+def write_png_charts(folder: Path | str, inst: Instance, result: PlanResult,
+                     risk=None) -> list[Path]:
+    """timeline.png, utilisation.png, node-utilisation.png and, with history, convergence.png
+    (and risk-makespan.png with the plan's runtime `risk`): the scenes the HTML page shows."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     written = []
-    for name, scene in plan_scenes(inst, result).items():
+    scenes = plan_scenes(inst, result)
+    if risk is not None:
+        from assignplan.report.risk import risk_scene
+
+        scenes["risk-makespan"] = risk_scene(inst, risk)
+    for name, scene in scenes.items():
         write_png(folder / f"{name}.png", scene)
         written.append(folder / f"{name}.png")
     return written

@@ -75,6 +75,8 @@ STYLES: dict[str, Style] = {
     "best": Style(stroke=PALETTE[0]),
     "median": Style(stroke=PALETTE[1], dash=(5, 3)),
     "bound": Style(stroke="#9A9A9A", width=1.2, dash=(3, 3)),
+    "keep": Style(stroke=PALETTE[0]),  # runtime risk: the two replay policies
+    "dispatch": Style(stroke=PALETTE[5], dash=(6, 3)),
     "nodebar": Style(fill=RESOURCE_COLOURS["cores"]),
     "gpudot": Style(fill=RESOURCE_COLOURS["GPUs"], stroke="#FFFFFF", width=0.8),
 }
