@@ -104,6 +104,27 @@ class Objective(BaseModel):
     weighted_completion_h: float
 
 
+class ObjectiveGaps(BaseModel):
+    """Each term's gap to its lower bound, in percent; a zero tardiness bound has no relative
+    gap (null when the plan is late at all: read the excess, in weighted hours)."""
+
+    model_config = ConfigDict(strict=True, extra="forbid")
+    makespan_pct: float
+    weighted_tardiness_pct: float | None
+    weighted_tardiness_excess_h: float
+    weighted_completion_pct: float | None
+
+
+class Turnaround(BaseModel):
+    """Mean and 90th percentile wait (start - ready), mean bounded slowdown and its threshold."""
+
+    model_config = ConfigDict(strict=True, extra="forbid")
+    mean_wait_h: float
+    p90_wait_h: float
+    mean_bounded_slowdown: float
+    bounded_slowdown_threshold_min: int
+
+
 class HistoryRow(BaseModel):
     """One generation of an iterative method: best and median fitness."""
 
@@ -131,6 +152,10 @@ class PlanDoc(BaseModel):
                     "unless the method proved a better one.")
     gap_pct: float
     objective: Objective | None = None
+    objective_bounds: Objective | None = Field(
+        default=None, description="A lower bound on each term of the objective (hours).")
+    gaps_pct: ObjectiveGaps | None = None
+    turnaround: Turnaround | None = None
     seconds: float = 0.0
     assignments: list[Assignment]
     history: list[HistoryRow] = Field(default_factory=list)

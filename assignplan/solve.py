@@ -5,8 +5,9 @@ the lower bound) and returns the one result type; this module owns what they sha
 
 - the registry of methods, each with the settings type it reads (a method given settings it
   does not read is an error, never silently ignored);
-- the lower bound, computed once per batch (unless the caller has it) and attached to the
-  result in one place, raised to a bound the method proved itself (exact's);
+- the lower bounds, one per term of the objective, computed once per batch (unless the
+  caller has them) and attached to the result in one place, the makespan's raised to a bound
+  the method proved itself (exact's);
 - the time budget: it counts from the call, so the bound's time comes off the method's share;
 - the exact method's size guard.
 """
@@ -106,8 +107,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
 
     `settings`: the method's settings object (default: its defaults); another type is an
     error. `bound`: `bounds.lower_bound(inst)` when the caller already has it (then its time
-    is not charged here). The result carries the lower bound, its parts, and the method's
-    own seconds.
+    is not charged here). The result carries the lower bound of each term of the objective,
+    the parts of the makespan's and the completion time's, and the method's own seconds.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
@@ -119,6 +120,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
                         settings=settings, progress=progress, bound=bound.value)
     proven = max(bound.value, result.solver_bound or 0)
     return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
+                   tardiness_bound=bound.tardiness, completion_bound=bound.completion,
+                   completion_parts=dict(bound.completion_parts),
                    seconds=time.perf_counter() - started)
 
 
