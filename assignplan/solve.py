@@ -1,7 +1,7 @@
 """Solve a batch with a method: the one way from an instance to a plan.
 
 Every method has the same signature (instance, seed, budget, its settings, a progress hook,
-the lower bound) and returns the one result type; this module owns what they share:
+the lower bounds) and returns the one result type; this module owns what they share:
 
 - the registry of methods, each with the settings type it reads (a method given settings it
   does not read is an error, never silently ignored);
@@ -54,30 +54,31 @@ class Method:
 
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
-            progress: Progress | None, bound: int) -> PlanResult:
+            progress: Progress | None, bound: LowerBound) -> PlanResult:
     from assignplan.methods.greedy import solve_greedy
 
-    return solve_greedy(inst, lower_bound=bound)
+    return solve_greedy(inst, lower_bound=bound.value)
 
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
-        progress: Progress | None, bound: int) -> PlanResult:
+        progress: Progress | None, bound: LowerBound) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
-    return solve_ga(inst, settings=settings, lower_bound=bound, seed=seed, budget=budget,
-                    on_generation=progress)
+    return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed, budget=budget,
+                    on_generation=progress, term_bounds=(bound.tardiness, bound.completion))
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
-           progress: Progress | None, bound: int) -> PlanResult:
+           progress: Progress | None, bound: LowerBound) -> PlanResult:
     from assignplan.methods.exact import solve_exact
-    from assignplan.methods.greedy import greedy_assign
+    from assignplan.methods.greedy import solve_greedy
 
     if inst.n_jobs > EXACT_MAX_JOBS and not settings.force:
         raise InputError(exact_too_big(inst.n_jobs) + "; use --method ga, or --force to try"
                          " anyway")
-    return solve_exact(inst, lower_bound=bound, budget=budget, hint=greedy_assign(inst),
-                       seed=seed, workers=settings.workers)
+    greedy = solve_greedy(inst, lower_bound=bound.value)
+    return solve_exact(inst, lower_bound=bound.value, budget=budget,
+                       hint=(greedy.assign, greedy.start), seed=seed, workers=settings.workers)
 
 
 METHODS: dict[str, Method] = {m.name: m for m in (
@@ -117,7 +118,7 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
         bound = lower_bound(inst, deadline=t0 + budget)
     started = time.perf_counter()
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
-                        settings=settings, progress=progress, bound=bound.value)
+                        settings=settings, progress=progress, bound=bound)
     proven = max(bound.value, result.solver_bound or 0)
     return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
                    tardiness_bound=bound.tardiness, completion_bound=bound.completion,

@@ -253,3 +253,23 @@ def test_wspt_kernel_matches_its_twin():
         busy, _ = wspt_busy_times(release, work, weight, cap_t, cap_rate)
         np.testing.assert_allclose(busy, twin_wspt(release, work, weight, cap_t, cap_rate),
                                    rtol=1e-9)
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_greedy_and_ga_reach_smiths_optimum_on_one_node(seed):
+    # One node, whole-node jobs: Smith's sequence is optimal (Smith 1956) and equals the bound
+    # (above); the greedy method and the ga must both reach it.
+    from assignplan.methods.ga import ga_settings
+    from assignplan.solve import solve
+
+    rng = np.random.default_rng(100 + seed)
+    n = int(rng.integers(3, 9))
+    hours = [round(float(h), 2) for h in rng.uniform(0.1, 6.0, n)]
+    weights = [float(w) for w in rng.integers(1, 6, n)]
+    _, inst = instance_of(one_node_doc(hours, weights))
+    opt = smith_optimum(inst)
+    greedy = solve(inst, "greedy", budget=5.0)
+    ga = solve(inst, "ga", budget=30.0, settings=ga_settings(generations=10))
+    for res in (greedy, ga):
+        assert objective(inst, res.end)[2] == pytest.approx(opt, rel=1e-12), res.method
+        assert res.completion_bound == pytest.approx(opt, rel=1e-8)
