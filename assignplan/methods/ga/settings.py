@@ -15,6 +15,7 @@ records the settings it was made with.
 from __future__ import annotations
 
 import json
+import math
 import tomllib
 from pathlib import Path
 from typing import Literal
@@ -196,6 +197,13 @@ class GASettings(BaseModel):
     seeding: SeedingSettings = SeedingSettings()
     completion: CompletionSettings = CompletionSettings()
     stopping: StoppingSettings = StoppingSettings()
+
+    @property
+    def most_generations(self) -> int:
+        """The most generations a run can record: the makespan phases' and the final
+        phase's share on top of them."""
+        gens = self.stopping.generations
+        return gens + math.ceil(self.completion.completion_share * gens)
 
     def replace(self, **groups: dict) -> GASettings:
         """A copy with some fields of some groups changed:
