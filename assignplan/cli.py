@@ -83,8 +83,8 @@ def load_batch_and_warn(path: Path):
 
 
 GenerationsOpt = Annotated[int | None, typer.Option(
-    metavar="N", min=0, help="ga: most generations (default 2,000; the budget usually ends "
-    "the run first).")]
+    metavar="N", min=0, help="ga: most generations of the makespan phases (default 2,000; "
+    "the completion phase adds up to 30 %; the budget usually ends the run first).")]
 GASettingsOpt = Annotated[Path | None, typer.Option(
     "--ga-settings", metavar="FILE", help="ga: tuning settings, a TOML or JSON file "
     "(see docs/methods.md).")]
@@ -236,7 +236,7 @@ def solve(
 
     with steps.step("lower bound"):
         bound = lower_bound(inst, deadline=deadline)
-    stepper = steps.generations(settings.stopping.generations, bound.value / 60) \
+    stepper = steps.generations(settings.most_generations, bound.value / 60) \
         if method == "ga" else _method_step(steps, method)
     with stepper as tick:
         result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
