@@ -36,7 +36,7 @@ test: $(STAMP) browser
 # Benchmarks report measured figures into benchmarks/RESULTS.md (about 15 minutes in all).
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_builder.py --repeats 7 --pop 64 --seed 0
-	$(BIN)/python benchmarks/bench_real_weeks.py --weeks 2,13,20,34,45 --ga-seconds 10
+	$(BIN)/python benchmarks/bench_real_weeks.py --weeks 2,13,20,34,45 --ga-seconds 20
 	$(BIN)/python benchmarks/bench_reference.py
 	$(BIN)/python benchmarks/bench_ga.py --seed 0
 

@@ -56,7 +56,9 @@ def compare_records(inst: Instance, rows: list[CompareRow]) -> list[dict]:
     """Plain records of a comparison (the `compare --json` output and the table's data).
 
     gap_pct is to the provable lower bound (the strongest any method proved); gap_best_pct to
-    the best makespan found; gap_optimum_pct to the optimum when exact proved one.
+    the best makespan found; gap_optimum_pct to the optimum when exact proved one;
+    tardiness_gap_pct and completion_gap_pct to the bounds on those terms (see
+    `plan.term_gap_pct`: against a zero tardiness bound, read tardiness_excess_h).
     """
     found = [r.result for r in rows if r.result is not None]
     bound = max((r.lower_bound for r in found), default=0)
@@ -69,7 +71,10 @@ def compare_records(inst: Instance, rows: list[CompareRow]) -> list[dict]:
                "makespan_h": None, "lower_bound_h": bound / 60,
                "provable_bound_h": own / 60, "gap_pct": None,
                "gap_best_pct": None, "gap_optimum_pct": None, "core_utilisation_pct": None,
-               "late_jobs": None, "weighted_tardiness_h": None, "seconds": None}
+               "late_jobs": None, "weighted_tardiness_h": None, "tardiness_gap_pct": None,
+               "tardiness_excess_h": None, "weighted_completion_h": None,
+               "completion_gap_pct": None, "mean_wait_h": None, "p90_wait_h": None,
+               "mean_bounded_slowdown": None, "seconds": None}
         if row.result is not None:
             r, s = row.result, summary(inst, row.result)
             rec.update(
@@ -80,6 +85,12 @@ def compare_records(inst: Instance, rows: list[CompareRow]) -> list[dict]:
                 core_utilisation_pct=s["core_utilisation_pct"],
                 late_jobs=int(np.sum((inst.due != NO_DUE) & (r.end > inst.due))),
                 weighted_tardiness_h=s["weighted_tardiness_h"],
+                tardiness_gap_pct=s["weighted_tardiness_gap_pct"],
+                tardiness_excess_h=s["weighted_tardiness_excess_h"],
+                weighted_completion_h=s["weighted_completion_h"],
+                completion_gap_pct=s["weighted_completion_gap_pct"],
+                mean_wait_h=s["mean_wait_h"], p90_wait_h=s["p90_wait_h"],
+                mean_bounded_slowdown=s["mean_bounded_slowdown"],
                 seconds=round(r.seconds, 3),
             )
         records.append(rec)

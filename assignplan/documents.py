@@ -230,6 +230,39 @@ class Objective(BaseModel):
         title="Weighted completion (h)", description="Sum of weight x end time.")
 
 
+class ObjectiveGaps(BaseModel):
+    """Each term's gap to its lower bound, in percent; a zero tardiness bound has no relative
+    gap (null when the plan is late at all: read the excess, in weighted hours)."""
+
+    model_config = _PLAN
+    makespan_pct: float = Field(title="Makespan gap (%)",
+                                description="Makespan above its lower bound, per cent.")
+    weighted_tardiness_pct: float | None = Field(
+        title="Tardiness gap (%)", description="Weighted tardiness above its lower bound, per "
+        "cent; null when the bound is 0 and the plan is late.")
+    weighted_tardiness_excess_h: float = Field(
+        title="Tardiness excess (h)",
+        description="Weighted tardiness above its lower bound, in weighted hours.")
+    weighted_completion_pct: float | None = Field(
+        title="Completion gap (%)",
+        description="Weighted completion time above its lower bound, per cent.")
+
+
+class Turnaround(BaseModel):
+    """Mean and 90th percentile wait (start - ready), mean bounded slowdown and its threshold."""
+
+    model_config = _PLAN
+    mean_wait_h: float = Field(title="Mean wait (h)", description="Mean of start - ready.")
+    p90_wait_h: float = Field(title="P90 wait (h)",
+                              description="90th percentile of start - ready.")
+    mean_bounded_slowdown: float = Field(
+        title="Mean bounded slowdown",
+        description="Mean of (wait + run) / max(run, threshold), at least 1.")
+    bounded_slowdown_threshold_min: int = Field(
+        title="Slowdown threshold (min)",
+        description="Runs shorter than this count as this long in the slowdown.")
+
+
 class HistoryRow(BaseModel):
     """One generation of an iterative method: best and median fitness."""
 
@@ -273,6 +306,13 @@ class PlanDoc(BaseModel):
                                   description="Makespan above the lower bound, per cent.")
     objective: Objective | None = Field(default=None, title="Objective",
                                         description="The objective's three terms.")
+    objective_bounds: Objective | None = Field(
+        default=None, title="Objective bounds",
+        description="A lower bound on each term of the objective (hours).")
+    gaps_pct: ObjectiveGaps | None = Field(default=None, title="Gaps (%)",
+                                           description="Each term's gap to its bound.")
+    turnaround: Turnaround | None = Field(default=None, title="Turnaround",
+                                          description="Waits and bounded slowdown.")
     seconds: float = Field(default=0.0, title="Seconds",
                            description="The method's own run time.")
     assignments: list[Assignment] = Field(title="Assignments",

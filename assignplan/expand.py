@@ -10,10 +10,12 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from datetime import datetime
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
 import networkx as nx
+import numpy as np
 
 from assignplan.documents import CALENDAR_HELP, Batch
 from assignplan.errors import InputError
@@ -63,20 +65,64 @@ class Job:
 
 
 @dataclass(frozen=True)
-class ExpandedBatch:
-    """The batch after count expansion and cross-field checks: one entry per node and job.
+class JobSpec:
+    """One job group of the batch, expanded: what its members share, and their names.
 
-    Every time is in hours from the window start, whichever form the document used.
-    `warnings`: doubtful but valid input, one line each with its JSON path; `changes`: the
-    inventory changes applied (`whatif`), one line each for the summary.
+    ``first``: the member index of its first job (members are numbered in document order);
+    ``follows``: the member indices every member waits for.
+    """
+
+    doc_index: int
+    group: str
+    names: tuple[str, ...]
+    first: int
+    cores: int
+    memory_mib: int
+    gpus: int
+    hours: float
+    needs: frozenset[str]
+    follows: tuple[int, ...]
+    ready_h: float
+    due_h: float | None
+    weight: float
+    limit_h: float | None = None
+
+
+@dataclass(frozen=True)
+class ExpandedBatch:
+    """The batch after count expansion and cross-field checks.
+
+    Jobs are kept per group (`specs`: a 50,000-job batch of sweeps is a few thousand of
+    them); `jobs` gives one `Job` per member, built on first use, for readers that want
+    them one by one (the checker). Every time is in hours from the window start, whichever
+    form the document used. `warnings`: doubtful but valid input, one line each with its
+    JSON path. `members` replaces the jobs built from `specs` (a replayed future's run
+    times, for the checker). `changes`: the inventory changes applied (`whatif`), one line
+    each for the summary.
     """
 
     window_start: datetime
     window_hours: float
     nodes: tuple[Node, ...]
-    jobs: tuple[Job, ...]
+    specs: tuple[JobSpec, ...]
     warnings: tuple[str, ...] = ()
+    members: tuple[Job, ...] | None = None
     changes: tuple[str, ...] = ()
+
+    @cached_property
+    def n_jobs(self) -> int:
+        return sum(len(spec.names) for spec in self.specs)
+
+    @cached_property
+    def jobs(self) -> tuple[Job, ...]:
+        if self.members is not None:
+            return self.members
+        names = [n for spec in self.specs for n in spec.names]
+        return tuple(
+            Job(name, spec.group, spec.doc_index, spec.cores, spec.memory_mib, spec.gpus,
+                spec.hours, spec.needs, tuple(names[p] for p in spec.follows), spec.ready_h,
+                spec.due_h, spec.weight, spec.limit_h)
+            for spec in self.specs for name in spec.names)
 
 
 def member_names(name: str, count: int) -> list[str]:
@@ -146,15 +192,15 @@ def expand_batch(batch: Batch, source: str = "<batch>",
     notes: list[str] = []
     if changes:
         nodes, notes = _apply_changes(batch, nodes, list(changes), change_problems)
-    jobs = _expand_jobs(batch, problems, warnings)
-    blamed = _check_removals(list(changes), before, nodes, jobs, change_problems)
-    _check_capacity(batch, nodes, jobs, problems, skip=blamed)
-    _check_cycles(batch, jobs, problems)
+    specs = _expand_jobs(batch, problems, warnings)
+    blamed = _check_removals(list(changes), before, nodes, specs, change_problems)
+    _check_capacity(batch, nodes, specs, problems, skip=blamed)
+    _check_cycles(specs, problems)
     _check_totals(batch, nodes, problems)
     if problems or change_problems:
         raise InputError([f"{source}: {p}" for p in problems] + change_problems)
-    return ExpandedBatch(batch.window.start, batch.window.hours, tuple(nodes), tuple(jobs),
-                         tuple(warnings), tuple(notes))
+    return ExpandedBatch(batch.window.start, batch.window.hours, tuple(nodes), tuple(specs),
+                         tuple(warnings), changes=tuple(notes))
 
 
 def _apply_changes(batch: Batch, nodes: list[Node], changes: list[Change],
@@ -176,30 +222,32 @@ def _apply_changes(batch: Batch, nodes: list[Node], changes: list[Change],
 
 
 def _check_removals(changes: list[Change], before: list[Node], after: list[Node],
-                    jobs: list[Job], problems: list[str]) -> set[int]:
+                    specs: list[JobSpec], problems: list[str]) -> set[int]:
     """Job groups that some node could hold before the changes and none can after: one line
     each naming the jobs and the removals; returns their document indices."""
     removals = [c.where for c in changes if isinstance(c, Without)]
-    if not removals:
+    if not removals or not before or not specs:
         return set()
+    _, kind_before, ok_before, _ = hosts(before, specs)
+    held_before = ok_before.any(axis=1)[kind_before]
+    if after:
+        _, kind_after, ok_after, _ = hosts(after, specs)
+        held_after = ok_after.any(axis=1)[kind_after]
+    else:
+        held_after = np.zeros(len(specs), dtype=bool)
     out: set[int] = set()
-    by_group: dict[int, list[str]] = {}
-    for job in jobs:
-        by_group.setdefault(job.doc_index, []).append(job.name)
-    for job in jobs:
-        if job.doc_index in out or not any(can_hold(n, job) for n in before) \
-                or any(can_hold(n, job) for n in after):
-            continue
-        out.add(job.doc_index)
-        names = by_group[job.doc_index]
+    for gi in np.flatnonzero(held_before & ~held_after).tolist():
+        spec = specs[gi]
+        out.add(spec.doc_index)
+        names = spec.names
         shown = ", ".join(names) if len(names) <= 3 else f"{names[0]} ... {names[-1]}"
         problems.append(f"{'; '.join(removals)}: no node left can hold"
-                        f" {counted(len(names), 'job')} of jobs[{job.doc_index}] ({shown}):"
-                        f" each needs {_needs(job)}, and only nodes taken out have that")
+                        f" {counted(len(names), 'job')} of jobs[{spec.doc_index}] ({shown}):"
+                        f" each needs {_needs(spec)}, and only nodes taken out have that")
     return out
 
 
-def _needs(job: Job) -> str:
+def _needs(job: Job | JobSpec) -> str:
     """What a job asks of a node, in words: '16 cores, 128 GiB, 2 GPUs, tags accel'."""
     out = [counted(job.cores, "core"), f"{job.memory_mib / 1024:g} GiB"]
     if job.gpus:
@@ -250,23 +298,29 @@ def expand_nodes(batch: Any, problems: list[str]) -> list[Node]:
     return nodes
 
 
-def _expand_jobs(batch: Batch, problems: list[str], warnings: list[str]) -> list[Job]:
-    members: dict[str, list[str]] = {}  # job or group name -> member names
-    seen: dict[str, int] = {}
+def _expand_jobs(batch: Batch, problems: list[str], warnings: list[str]) -> list[JobSpec]:
+    """One `JobSpec` per job group: members named and numbered, follows resolved to member
+    indices (a group named in `follows` means every member), times read as hours."""
+    index: dict[str, int] = {}  # member name -> member index
+    groups: dict[str, list[int]] = {}  # group name -> member indices
+    named: list[tuple[str, ...]] = []
+    base = 0
     for gi, g in enumerate(batch.jobs):
-        names = member_names(g.name, g.count)
-        for name in names:
-            if name in seen:
+        names = tuple(member_names(g.name, g.count))
+        named.append(names)
+        for k, name in enumerate(names):
+            if name in index:
                 problems.append(
-                    f"jobs[{gi}].name: job '{name}' duplicates a job of jobs[{seen[name]}]"
-                    " (names are compared after count expansion)"
-                )
-            seen.setdefault(name, gi)
-        members.setdefault(g.name, []).extend(n for n in names if n not in members.get(g.name, []))
-        for name in names:
-            members.setdefault(name, [name])
+                    f"jobs[{gi}].name: job '{name}' duplicates a job of"
+                    f" jobs[{_doc_of(named, index[name])}] (names are compared after count"
+                    " expansion)")
+            else:
+                index[name] = base + k
+        groups.setdefault(g.name, []).extend(range(base, base + len(names)))
+        base += len(names)
     all_tags = {t for g in batch.nodes for t in g.tags}
-    jobs: list[Job] = []
+    specs: list[JobSpec] = []
+    base = 0
     for gi, g in enumerate(batch.jobs):
         if g.limit_h is not None and g.limit_h < g.hours:
             problems.append(f"jobs[{gi}].limit_h: {g.limit_h:g} h is below the job's own"
@@ -274,45 +328,62 @@ def _expand_jobs(batch: Batch, problems: list[str], warnings: list[str]) -> list
         for k, tag in enumerate(g.needs):
             if tag not in all_tags:
                 problems.append(f"jobs[{gi}].needs[{k}]: no node has tag '{tag}'")
-        follows: list[str] = []
+        follows: dict[int, None] = {}  # ordered, without repeats
         for k, ref in enumerate(g.follows):
-            if ref not in members:
+            if ref in groups:
+                follows.update(dict.fromkeys(groups[ref]))
+            elif ref in index:
+                follows[index[ref]] = None
+            else:
                 problems.append(f"jobs[{gi}].follows[{k}]: no job or job group named '{ref}'")
-                continue
-            follows.extend(m for m in members[ref] if m not in follows)
         origin = batch.window.start
         ready = _input_hours(g.ready_h, g.ready, f"jobs[{gi}].ready", origin, problems,
                              required=False)
         due = _input_hours(g.due_h, g.due, f"jobs[{gi}].due", origin, problems, required=False)
         ready = 0.0 if ready is None else ready
-        warnings.extend(_time_warnings(batch, gi, ready, due))
-        for name in member_names(g.name, g.count):
-            jobs.append(
-                Job(
-                    name, g.name, gi, g.cores, memory_mib(g.memory_gib), g.gpus, g.hours,
-                    frozenset(g.needs), tuple(follows), ready, due, g.weight, g.limit_h,
-                )
-            )
-    return jobs
+        specs.append(JobSpec(gi, g.name, named[gi], base, g.cores, memory_mib(g.memory_gib),
+                             g.gpus, g.hours, frozenset(g.needs), tuple(follows), ready, due,
+                             g.weight, g.limit_h))
+        base += len(named[gi])
+    warnings.extend(_time_warnings(batch, specs))
+    return specs
 
 
-def _time_warnings(batch: Batch, gi: int, ready: float, due: float | None) -> list[str]:
-    """Valid but doubtful times of job group `gi`: due before ready, ready past the window."""
-    g, origin = batch.jobs[gi], batch.window.start
-    ready_min, end_min = ceil_minutes(ready * 60), ceil_minutes(batch.window.hours * 60)
-    ready_path = f"jobs[{gi}].{'ready' if g.ready is not None else 'ready_h'}"
+def _doc_of(named: list[tuple[str, ...]], member: int) -> int:
+    """The job group (document index) member number `member` belongs to."""
+    total = 0
+    for gi, names in enumerate(named):
+        total += len(names)
+        if member < total:
+            return gi
+    return len(named) - 1
+
+
+def _time_warnings(batch: Batch, specs: list[JobSpec]) -> list[str]:
+    """Valid but doubtful times: due before ready, ready past the window (per job group,
+    computed for all groups at once)."""
+    if not specs:
+        return []
+    origin = batch.window.start
+    ready_min = ceil_minutes(np.array([s.ready_h for s in specs]) * 60)
+    end_min = ceil_minutes(batch.window.hours * 60)
+    due = np.array([np.nan if s.due_h is None else s.due_h for s in specs])
+    ready = np.array([s.ready_h for s in specs])
     out = []
-    if due is not None and due < ready:
-        out.append(f"jobs[{gi}].{'due' if g.due is not None else 'due_h'}: due at"
-                   f" {clock(origin, floor_minutes(due * 60))} before it is ready at"
-                   f" {clock(origin, ready_min)}, so it will be late")
-    if ready_min >= end_min:
-        out.append(f"{ready_path}: ready at {clock(origin, ready_min)}, when the window has"
-                   f" ended ({clock(origin, end_min)}); it can only run past the window")
+    for gi in np.flatnonzero((due < ready) | (ready_min >= end_min)).tolist():
+        g, spec = batch.jobs[gi], specs[gi]
+        if spec.due_h is not None and spec.due_h < spec.ready_h:
+            out.append(f"jobs[{gi}].{'due' if g.due is not None else 'due_h'}: due at"
+                       f" {clock(origin, floor_minutes(spec.due_h * 60))} before it is ready at"
+                       f" {clock(origin, int(ready_min[gi]))}, so it will be late")
+        if ready_min[gi] >= end_min:
+            path = f"jobs[{gi}].{'ready' if g.ready is not None else 'ready_h'}"
+            out.append(f"{path}: ready at {clock(origin, int(ready_min[gi]))}, when the window"
+                       f" has ended ({clock(origin, end_min)}); it can only run past the window")
     return out
 
 
-def can_hold(node: Node, job: Job) -> bool:
+def can_hold(node: Node, job: Job | JobSpec) -> bool:
     """True when the node has the cores, memory, GPUs and tags the job needs."""
     return (
         job.cores <= node.cores
@@ -322,7 +393,7 @@ def can_hold(node: Node, job: Job) -> bool:
     )
 
 
-def _shortfall(node: Node, job: Job) -> list[str]:
+def _shortfall(node: Node, job: Job | JobSpec) -> list[str]:
     short = []
     if job.cores > node.cores:
         short.append(f"{job.cores - node.cores} cores")
@@ -336,18 +407,44 @@ def _shortfall(node: Node, job: Job) -> list[str]:
     return short
 
 
-def _check_capacity(
-    batch: Batch, nodes: list[Node], jobs: list[Job], problems: list[str],
-    skip: set[int] | None = None,
-) -> None:
-    reported: set[int] = set(skip or ())
-    for job in jobs:
-        if job.doc_index in reported or any(can_hold(n, job) for n in nodes):
+def hosts(nodes: list[Node] | tuple[Node, ...], specs: list[JobSpec] | tuple[JobSpec, ...]
+          ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(node_type int64[N], spec_kind int64[G], ok bool[K, T], type_node int64[T]): nodes
+    that no job tells apart (same cores, memory, GPUs and tags) share a type, job groups with
+    the same demand and needs share a kind, and ok says which kinds each type can hold;
+    type_node is each type's first node. Broadcast over kinds x types, never jobs x nodes."""
+    type_key: dict = {}
+    node_type = np.array([type_key.setdefault((n.cores, n.memory_mib, n.gpus, n.tags),
+                                              len(type_key)) for n in nodes], dtype=np.int64)
+    kind_key: dict = {}
+    spec_kind = np.array([kind_key.setdefault((s.cores, s.memory_mib, s.gpus, s.needs),
+                                              len(kind_key)) for s in specs], dtype=np.int64)
+    cap = np.array([k[:3] for k in type_key], dtype=np.int64).reshape(-1, 3)
+    need = np.array([k[:3] for k in kind_key], dtype=np.int64).reshape(-1, 3)
+    ok = np.all(need[:, None, :] <= cap[None, :, :], axis=2)
+    tags = [k[3] for k in type_key]
+    for k, key in enumerate(kind_key):
+        if key[3]:
+            ok[k] &= [key[3] <= t for t in tags]
+    type_node = np.zeros(len(type_key), dtype=np.int64)
+    type_node[node_type[::-1]] = np.arange(len(nodes))[::-1]  # first node of each type
+    return node_type, spec_kind, ok, type_node
+
+
+def _check_capacity(batch: Batch, nodes: list[Node], specs: list[JobSpec],
+                    problems: list[str], skip: set[int] | None = None) -> None:
+    """Every job group needs a node type that can hold it (checked per group and type);
+    groups in `skip` (document indices) are already reported."""
+    if not nodes or not specs:
+        return
+    _, spec_kind, ok, type_node = hosts(nodes, specs)
+    for gi in np.flatnonzero(~ok.any(axis=1)[spec_kind]).tolist():
+        job = specs[gi]
+        if job.doc_index in (skip or ()):
             continue
-        reported.add(job.doc_index)
         # The closest node is the one with the fewest things missing, then the smallest relative
         # shortfall: that is the node the admin most likely meant.
-        def distance(n: Node, job: Job = job) -> tuple[int, float]:
+        def distance(n: Node, job: JobSpec = job) -> tuple[int, float]:
             rel = (
                 max(0, job.cores - n.cores) / job.cores
                 + max(0, job.memory_mib - n.memory_mib) / job.memory_mib
@@ -355,35 +452,33 @@ def _check_capacity(
             )
             return (len(_shortfall(n, job)), rel)
 
-        closest = min(nodes, key=distance)
+        closest = min((nodes[i] for i in type_node.tolist()), key=distance)
         problems.append(
-            f"jobs[{job.doc_index}]: no node can hold job '{job.name}' (needs {job.cores} cores,"
-            f" {job.memory_mib / 1024:g} GiB, {job.gpus} GPUs"
+            f"jobs[{job.doc_index}]: no node can hold job '{job.names[0]}' (needs {job.cores}"
+            f" cores, {job.memory_mib / 1024:g} GiB, {job.gpus} GPUs"
             + (f", tags {', '.join(sorted(job.needs))}" if job.needs else "")
             + f"); closest node '{closest.name}' is short of {', '.join(_shortfall(closest, job))}"
         )
 
 
-def _check_cycles(batch: Batch, jobs: list[Job], problems: list[str]) -> None:
+def _check_cycles(specs: list[JobSpec], problems: list[str]) -> None:
+    """`follows` must not loop. Members of a group share their follows, so a loop between
+    members is a loop between their groups and back: the check runs on groups."""
+    group_of = np.repeat(np.arange(len(specs)), [len(s.names) for s in specs])
     graph = nx.DiGraph()
-    graph.add_nodes_from(j.name for j in jobs)
-    graph.add_edges_from((p, j.name) for j in jobs for p in j.follows)
-    index = {j.name: j.doc_index for j in jobs}
-    reported: set[frozenset[str]] = set()
+    graph.add_nodes_from(range(len(specs)))
+    graph.add_edges_from((int(g), s) for s, spec in enumerate(specs) if spec.follows
+                         for g in set(group_of[list(spec.follows)].tolist()))
     for component in nx.strongly_connected_components(graph):
         if len(component) == 1:
             (only,) = component
             if not graph.has_edge(only, only):
                 continue
         cycle = nx.find_cycle(graph.subgraph(component))
-        names = [u for u, _v in cycle] + [cycle[0][0]]
-        key = frozenset(names)
-        if key in reported:
-            continue
-        reported.add(key)
+        names = [specs[u].group for u, _v in cycle] + [specs[cycle[0][0]].group]
         problems.append(
-            f"jobs[{index[names[0]]}].follows: dependency cycle {' -> '.join(names)}"
-            " (each must end before the next starts)"
+            f"jobs[{specs[cycle[0][0]].doc_index}].follows: dependency cycle"
+            f" {' -> '.join(names)} (each must end before the next starts)"
         )
 
 
@@ -393,14 +488,14 @@ _RESOURCE_UNITS = (("cores", "core"), ("memory", "MiB"), ("GPUs", "GPU"))
 def _check_totals(batch: Batch, nodes: list[Node], problems: list[str]) -> None:
     """Every job's resource-minutes on the slowest node, summed per resource, must stay within
     MAX_RESOURCE_MINUTES, so no sum or time the planner forms can overflow (see units)."""
-    if not nodes:
+    if not nodes or not batch.jobs:
         return
     slowest = min(n.speed for n in nodes)
+    longest = duration_minutes(np.array([g.hours for g in batch.jobs]), slowest).tolist()
     totals = [0, 0, 0]  # Python integers: exact however large
-    for g in batch.jobs:
-        longest = int(duration_minutes(g.hours, slowest))
+    for g, minutes in zip(batch.jobs, longest, strict=True):
         for r, demand in enumerate((g.cores, memory_mib(g.memory_gib), g.gpus)):
-            totals[r] += g.count * demand * longest
+            totals[r] += g.count * demand * minutes
     for (resource, unit), total in zip(_RESOURCE_UNITS, totals, strict=True):
         if total > MAX_RESOURCE_MINUTES:
             problems.append(

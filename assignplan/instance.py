@@ -12,7 +12,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from assignplan.expand import ExpandedBatch
+from assignplan.expand import ExpandedBatch, hosts
 from assignplan.units import ceil_minutes, duration_minutes, floor_minutes
 
 RESOURCES = ("cores", "memory", "gpus")
@@ -288,51 +288,54 @@ def priority_order(hours: np.ndarray, pred_ptr: np.ndarray, pred_idx: np.ndarray
 
 
 def build_instance(batch: ExpandedBatch) -> Instance:
-    """Convert an expanded, checked batch into arrays (one pass, no validation left to do)."""
-    nodes, jobs = batch.nodes, batch.jobs
+    """Convert an expanded, checked batch into arrays: per job group, then repeated over its
+    members with numpy (no Python object per member), no validation left to do."""
+    nodes, specs = batch.nodes, batch.specs
+    counts = np.array([len(spec.names) for spec in specs], dtype=np.int64)
     capacity = np.array([[n.cores, n.memory_mib, n.gpus] for n in nodes], dtype=np.int64)
-    demand = np.array([[j.cores, j.memory_mib, j.gpus] for j in jobs], dtype=np.int64)
-    hours = np.array([j.hours for j in jobs], dtype=np.float64)
+
+    def per_job(values, dtype) -> np.ndarray:
+        return np.repeat(np.asarray(values, dtype=dtype), counts, axis=0)
+
+    demand = per_job([[s.cores, s.memory_mib, s.gpus] for s in specs], np.int64)
+    hours = per_job([s.hours for s in specs], np.float64)
     speeds, node_speed = np.unique(np.array([n.speed for n in nodes], dtype=np.float64),
                                    return_inverse=True)
     dur = duration_minutes(hours[:, None], speeds[None, :]).astype(np.int32)
-
-    index = {j.name: k for k, j in enumerate(jobs)}
-    preds = [sorted({index[p] for p in j.follows}) for j in jobs]
-    succs: list[list[int]] = [[] for _ in jobs]
-    for k, ps in enumerate(preds):
-        for p in ps:
-            succs[p].append(k)
-    pred_ptr, pred_idx = _csr(preds)
-    succ_ptr, succ_idx = _csr(succs)
+    pred_ptr, pred_idx, succ_ptr, succ_idx = _follows(specs, counts)
 
     windows = [sorted(n.maintenance) for n in nodes]
     maint_ptr, _ = _csr([[0] * len(w) for w in windows])
     maint_start = np.array([floor_minutes(s * 60) for w in windows for s, _ in w], dtype=np.int64)
     maint_end = np.array([ceil_minutes(e * 60) for w in windows for _, e in w], dtype=np.int64)
 
-    ready = np.array([ceil_minutes(j.ready_h * 60) for j in jobs], dtype=np.int64)
-    due = np.array(
-        [NO_DUE if j.due_h is None else floor_minutes(j.due_h * 60) for j in jobs], dtype=np.int64
-    )
+    no_due = np.array([s.due_h is None for s in specs])
+    due_h = np.array([0.0 if s.due_h is None else s.due_h for s in specs])
+    due = np.where(no_due, NO_DUE, floor_minutes(due_h * 60) if len(specs) else 0)
+    no_limit = np.array([s.limit_h is None for s in specs])
+    limit_h = np.array([0.0 if s.limit_h is None else s.limit_h for s in specs])
+    limit = np.where(no_limit, NO_LIMIT, ceil_minutes(limit_h * 60) if len(specs) else 0)
+    node_type, spec_kind, ok, _ = hosts(nodes, specs)
     return Instance(
-        job_names=tuple(j.name for j in jobs),
-        job_groups=tuple(j.group for j in jobs),
+        job_names=tuple(name for spec in specs for name in spec.names),
+        job_groups=tuple(name for spec, n in zip(specs, counts.tolist(), strict=True)
+                         for name in [spec.group] * n),
         node_names=tuple(n.name for n in nodes),
         node_groups=tuple(n.group for n in nodes),
         window_start=batch.window_start,
         window_minutes=ceil_minutes(batch.window_hours * 60),
         capacity=capacity,
-        demand=demand,
+        demand=demand.reshape(-1, 3),
         speeds=speeds,
         node_speed=node_speed.reshape(-1).astype(np.int32),
         hours=hours,
         dur=dur,
-        elig=_eligibility(batch, capacity, demand),
+        elig=Eligibility.build(per_job(spec_kind, np.int64), node_type, ok),
         node_class=_node_classes(capacity, node_speed.reshape(-1), nodes),
-        ready=ready,
-        due=due,
-        weight=np.array([j.weight for j in jobs], dtype=np.float64),
+        ready=per_job(ceil_minutes(np.array([s.ready_h for s in specs], dtype=np.float64)
+                                   * 60), np.int64),
+        due=per_job(due, np.int64),
+        weight=per_job([s.weight for s in specs], np.float64),
         pred_ptr=pred_ptr,
         pred_idx=pred_idx,
         succ_ptr=succ_ptr,
@@ -341,8 +344,7 @@ def build_instance(batch: ExpandedBatch) -> Instance:
         maint_start=maint_start,
         maint_end=maint_end,
         order=priority_order(hours, pred_ptr, pred_idx, succ_ptr, succ_idx),
-        limit=np.array([NO_LIMIT if j.limit_h is None else ceil_minutes(j.limit_h * 60)
-                        for j in jobs], dtype=np.int64),
+        limit=per_job(limit, np.int64),
         res_ptr=np.zeros(len(nodes) + 1, dtype=np.int64),
         res_start=np.zeros(0, dtype=np.int64),
         res_end=np.zeros(0, dtype=np.int64),
@@ -350,28 +352,21 @@ def build_instance(batch: ExpandedBatch) -> Instance:
     )
 
 
-def _eligibility(batch: ExpandedBatch, capacity: np.ndarray, demand: np.ndarray
-                 ) -> Eligibility:
-    """Node types (capacity and tags) and, per distinct demand and needs of the jobs, the
-    types that can hold it; broadcasting over kinds x types, never jobs x nodes."""
-    type_key = {}
-    node_type = np.empty(len(batch.nodes), dtype=np.int32)
-    for i, n in enumerate(batch.nodes):
-        node_type[i] = type_key.setdefault((n.cores, n.memory_mib, n.gpus, n.tags),
-                                           len(type_key))
-    type_cap = np.array([k[:3] for k in type_key], dtype=np.int64).reshape(-1, 3)
-    type_tags = [k[3] for k in type_key]
-    kind_key: dict = {}
-    job_kind = np.empty(len(batch.jobs), dtype=np.int64)
-    for j, job in enumerate(batch.jobs):
-        job_kind[j] = kind_key.setdefault((job.cores, job.memory_mib, job.gpus, job.needs),
-                                          len(kind_key))
-    kind_demand = np.array([k[:3] for k in kind_key], dtype=np.int64).reshape(-1, 3)
-    ok = np.all(kind_demand[:, None, :] <= type_cap[None, :, :], axis=2)
-    for k, key in enumerate(kind_key):
-        if key[3]:
-            ok[k] &= [key[3] <= tags for tags in type_tags]
-    return Eligibility.build(job_kind, node_type, ok)
+def _follows(specs, counts: np.ndarray) -> tuple[np.ndarray, ...]:
+    """(pred_ptr, pred_idx, succ_ptr, succ_idx): CSR of every member's predecessors (its
+    group's follows, ascending) and successors (ascending), built with numpy."""
+    follows = [np.array(sorted(set(s.follows)), dtype=np.int64) for s in specs]
+    per_member = np.repeat([len(f) for f in follows], counts) if len(specs) else np.zeros(0)
+    pred_ptr = np.zeros(int(counts.sum()) + 1, dtype=np.int64)
+    pred_ptr[1:] = np.cumsum(per_member)
+    pred_idx = np.concatenate([np.tile(f, n) for f, n in zip(follows, counts.tolist(),
+                                                             strict=True)] or [np.zeros(0)])
+    pred_idx = pred_idx.astype(np.int64)
+    job = np.repeat(np.arange(len(pred_ptr) - 1), np.diff(pred_ptr))
+    by_pred = np.lexsort((job, pred_idx))
+    succ_ptr = np.zeros(len(pred_ptr), dtype=np.int64)
+    succ_ptr[1:] = np.cumsum(np.bincount(pred_idx, minlength=len(pred_ptr) - 1))
+    return pred_ptr, pred_idx, succ_ptr, job[by_pred].astype(np.int64)
 
 
 def _node_classes(capacity: np.ndarray, node_speed: np.ndarray, nodes) -> np.ndarray:

@@ -10,10 +10,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from assignplan.bounds import PART_NAMES, binding_parts
+from assignplan.bounds import COMPLETION_PART_NAMES, PART_NAMES, binding_parts
 from assignplan.instance import NO_DUE, Instance
-from assignplan.plan import PlanResult, objective
-from assignplan.units import clock, hours_of, iso
+from assignplan.plan import BSLD_THRESHOLD, PlanResult, objective, term_gap_pct, turnaround
+from assignplan.units import clock, hours_of, iso, number
 
 LISTED = 10  # late jobs and jobs past the window named in the summary, the worst first
 
@@ -72,8 +72,65 @@ def _bound_source(result: PlanResult) -> str | None:
     return ", ".join(hit) if hit else "solver"
 
 
+def completion_source_text(source: str | None) -> str:
+    """`summary`'s weighted_completion_bound_set_by in words ("" if unknown)."""
+    return "" if source is None else COMPLETION_PART_NAMES.get(source, source)
+
+
+def tardiness_text(s: dict) -> str:
+    """'12.50 h, bound 2.00 h (gap 525.00 %)'; against a zero bound 'bound 0' (no relative
+    gap: the whole value is the excess)."""
+    value, bound = s["weighted_tardiness_h"], s.get("weighted_tardiness_bound_h")
+    text = f"{number(value, 2)} h"
+    if bound is None:
+        return text
+    if bound > 0:
+        gap = number(s["weighted_tardiness_gap_pct"], 2)
+        return text + f", bound {number(bound, 2)} h (gap {gap} %)"
+    return text + ", bound 0"
+
+
+def completion_text(s: dict) -> str:
+    """'4,256.00 h, bound 3,900.00 h (gap 9.13 %), set by ...'."""
+    text = f"{number(s['weighted_completion_h'], 2)} h"
+    if s.get("weighted_completion_bound_h") is None:
+        return text
+    why = completion_source_text(s.get("weighted_completion_bound_set_by"))
+    return (text + f", bound {number(s['weighted_completion_bound_h'], 2)} h (gap "
+            f"{number(s['weighted_completion_gap_pct'], 2)} %)"
+            + (f", set by {why}" if why else ""))
+
+
+def turnaround_text(s: dict) -> str:
+    """Mean and P90 wait, mean bounded slowdown with its threshold."""
+    return (f"wait mean {number(s['mean_wait_h'], 2)} h, P90 {number(s['p90_wait_h'], 2)} h;"
+            f" bounded slowdown {number(s['mean_bounded_slowdown'], 2)}"
+            f" ({s['bounded_slowdown_threshold_min']} min threshold)")
+
+
+def _term_bounds(result: PlanResult, tard: float, compl: float) -> dict:
+    """The bound and gap of the weighted tardiness and the weighted completion time (None
+    where the result carries no bound): see `plan.term_gap_pct` for a zero bound."""
+    tb, cb = result.tardiness_bound, result.completion_bound
+    parts = result.completion_parts
+    return {
+        "weighted_tardiness_bound_h": None if tb is None else tb / 60,
+        "weighted_tardiness_gap_pct": None if tb is None else _round(term_gap_pct(tard, tb)),
+        "weighted_tardiness_excess_h": None if tb is None else (tard - tb) / 60,
+        "weighted_completion_bound_h": None if cb is None else cb / 60,
+        "weighted_completion_gap_pct": None if cb is None else _round(term_gap_pct(compl, cb)),
+        "weighted_completion_bound_set_by": max(parts, key=parts.get) if parts else None,
+    }
+
+
+def _round(pct: float | None) -> float | None:
+    return None if pct is None else round(pct, 2)
+
+
 def summary(inst: Instance, result: PlanResult) -> dict:
-    """The plan's headline figures (the keys of `solve --json`)."""
+    """The plan's headline figures (the keys of `solve --json`): the makespan, the weighted
+    tardiness and the weighted completion time each with its lower bound and gap, the
+    turnaround figures (`plan.turnaround`), utilisation, jobs late or past the window."""
     mk, tard, compl = objective(inst, result.end)
     cap = inst.capacity.astype(np.float64)
     avail_mk = inst.available_minutes(mk).astype(np.float64)
@@ -109,6 +166,9 @@ def summary(inst: Instance, result: PlanResult) -> dict:
         "late": _worst(inst, result.end - inst.due, late, "late_h"),
         "weighted_tardiness_h": tard / 60,
         "weighted_completion_h": compl / 60,
+        **_term_bounds(result, tard, compl),
+        **turnaround(inst, result.start, result.end),
+        "bounded_slowdown_threshold_min": BSLD_THRESHOLD,
         "seed": result.seed,
         "seconds": round(result.seconds, 3),
     }

@@ -15,7 +15,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from assignplan.bounds import LowerBound, lower_bound
+from assignplan.bounds import LowerBound
 from assignplan.expand import ExpandedBatch
 from assignplan.instance import Instance, build_instance
 from assignplan.plan import PlanResult
@@ -35,18 +35,27 @@ class FreePart:
 def free_batch(batch: ExpandedBatch, pins: Pins) -> ExpandedBatch:
     """The batch without its pinned jobs: each other job ready from max(ready, now, end of
     each pinned predecessor), following only jobs still to plan. The same object when nothing
-    is pinned and `now` is the window start: a replan then plans exactly what solve plans."""
+    is pinned and `now` is the window start: a replan then plans exactly what solve plans.
+
+    Members of a group share their follows, so they share their new ready time too: the
+    batch stays one `JobSpec` per group (a group all pinned drops out)."""
     if not pins.jobs and pins.now <= 0:
         return batch
-    jobs = []
-    for job in batch.jobs:
-        if job.name in pins.jobs:
+    names = [n for spec in batch.specs for n in spec.names]
+    keep = np.array([n not in pins.jobs for n in names], dtype=bool)
+    renumber = np.cumsum(keep) - 1  # old member index -> new, valid where kept
+    specs = []
+    first = 0
+    for spec in batch.specs:
+        kept = tuple(n for n in spec.names if n not in pins.jobs)
+        if not kept:
             continue
-        ready = max([job.ready_h * 60, pins.now]
-                    + [pins.jobs[p].end for p in job.follows if p in pins.jobs])
-        jobs.append(replace(job, ready_h=ready / 60,
-                            follows=tuple(p for p in job.follows if p not in pins.jobs)))
-    return replace(batch, jobs=tuple(jobs))
+        ends = [pins.jobs[names[p]].end for p in spec.follows if not keep[p]]
+        ready = max([spec.ready_h * 60, pins.now] + ends) / 60
+        follows = tuple(int(renumber[p]) for p in spec.follows if keep[p])
+        specs.append(replace(spec, names=kept, first=first, ready_h=ready, follows=follows))
+        first += len(kept)
+    return replace(batch, specs=tuple(specs), members=None)
 
 
 def free_instance(batch: ExpandedBatch, pins: Pins) -> FreePart:
@@ -84,15 +93,15 @@ def pinned_end(pins: Pins) -> int:
     return max((pin.end for pin in pins.jobs.values()), default=0)
 
 
-def replan_bound(free: FreePart, pins: Pins, *, deadline: float | None = None) -> LowerBound:
-    """`bounds.lower_bound` of the jobs still to plan (ready from now, the running jobs'
-    capacity taken), raised to the latest pinned end (part "pinned")."""
-    bound = LowerBound(0, {}) if free.inst is None else lower_bound(free.inst,
-                                                                     deadline=deadline)
+def replan_bound(free_bound: LowerBound | None, pins: Pins) -> LowerBound:
+    """The whole week's makespan bound: `free_bound` (`bounds.lower_bound` of the jobs still
+    to plan, ready from now, the running jobs' capacity taken; None when none is left)
+    raised to the latest pinned end (part "pinned")."""
+    bound = LowerBound(0, {}) if free_bound is None else free_bound
     if not pins.jobs:
         return bound
     end = pinned_end(pins)
-    return LowerBound(max(bound.value, end), {**bound.parts, "pinned": end})
+    return replace(bound, value=max(bound.value, end), parts={**bound.parts, "pinned": end})
 
 
 def merge(inst: Instance, free: FreePart, result: PlanResult | None, pins: Pins,

@@ -6,7 +6,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from assignplan.documents import Assignment, HistoryRow, Objective, PlanDoc
+from assignplan.documents import (
+    Assignment,
+    HistoryRow,
+    Objective,
+    ObjectiveGaps,
+    PlanDoc,
+    Turnaround,
+)
 from assignplan.instance import NO_DUE, Instance
 from assignplan.reading import plan_hours
 from assignplan.units import calendar, counted, hours_of, offset_text
@@ -36,6 +43,43 @@ def gap_pct(makespan: int, lower_bound: int) -> float:
     return 100.0 * (makespan - lower_bound) / lower_bound
 
 
+def term_gap_pct(value: float, bound: float) -> float | None:
+    """Relative gap of an objective term to its lower bound, in percent: 100 (v - b) / b.
+
+    A zero bound (weighted tardiness when every job can meet its due time alone) has no
+    relative gap: 0.0 when the value is zero too, else None, and the excess v - b in hours
+    is the figure to read.
+    """
+    if bound > 0:
+        return 100.0 * (value - bound) / bound
+    return 0.0 if value <= 0 else None
+
+
+BSLD_THRESHOLD = 10  # minutes: runs shorter than this count as this long in bounded slowdown
+
+
+def turnaround(inst: Instance, start: np.ndarray, end: np.ndarray) -> dict[str, float]:
+    """The figures admins read off a schedule, in hours and plain ratios.
+
+    wait_j = start_j - ready_j (the job's own ready time, so time spent waiting for the jobs
+    it follows counts as waiting); bounded slowdown
+    bsld_j = max(1, (wait_j + run_j) / max(run_j, BSLD_THRESHOLD)) (D. G. Feitelson,
+    L. Rudolph, U. Schwiegelshohn, K. C. Sevcik, P. Wong, "Theory and practice in parallel
+    job scheduling", JSSPP 1997: there the threshold is about 10 s for interactive jobs; our
+    durations are whole minutes of batch work, so 10 minutes). Means over jobs, unweighted;
+    P90 by linear interpolation.
+    """
+    start = np.asarray(start, dtype=np.int64)
+    run = np.asarray(end, dtype=np.int64) - start
+    wait = start - inst.ready
+    if len(wait) == 0:
+        return {"mean_wait_h": 0.0, "p90_wait_h": 0.0, "mean_bounded_slowdown": 1.0}
+    slowdown = np.maximum(1.0, (wait + run) / np.maximum(run, BSLD_THRESHOLD))
+    return {"mean_wait_h": float(wait.mean()) / 60,
+            "p90_wait_h": float(np.percentile(wait, 90)) / 60,
+            "mean_bounded_slowdown": float(slowdown.mean())}
+
+
 @dataclass(frozen=True, eq=False)
 class PlanResult:
     """A plan: node and start minute per job, plus how it was found.
@@ -44,7 +88,10 @@ class PlanResult:
     ``lower_bound``: minutes (the provable bound of `bounds.lower_bound`, or a method's own
     better bound such as a proven optimum). ``status``: optimal | feasible | unknown.
     ``bound_parts``: minutes of each part of `bounds.lower_bound` (empty when not computed),
-    so a reader can see which argument sets the bound.
+    so a reader can see which argument sets the bound. ``tardiness_bound`` and
+    ``completion_bound``: lower bounds on the weighted tardiness and the weighted completion
+    time in weighted minutes (`bounds.completion`; None when not computed), the latter with
+    its ``completion_parts``.
     """
 
     method: str
@@ -58,6 +105,9 @@ class PlanResult:
     history: list[HistoryRow] = field(default_factory=list)
     solver_bound: int | None = None
     bound_parts: dict[str, int] = field(default_factory=dict)
+    tardiness_bound: float | None = None
+    completion_bound: float | None = None
+    completion_parts: dict[str, float] = field(default_factory=dict)
 
     @property
     def makespan(self) -> int:
@@ -82,6 +132,16 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
     start on the minute grid (`units.hours_of`) and as an ISO 8601 calendar time."""
     mk, tard, compl = objective(inst, result.end)
     origin = inst.window_start
+    bounds = gaps = None
+    if result.tardiness_bound is not None and result.completion_bound is not None:
+        bounds = Objective(makespan_h=hours_of(result.lower_bound),
+                           weighted_tardiness_h=result.tardiness_bound / 60,
+                           weighted_completion_h=result.completion_bound / 60)
+        gaps = ObjectiveGaps(
+            makespan_pct=round(result.gap_pct, 4),
+            weighted_tardiness_pct=_rounded(term_gap_pct(tard, result.tardiness_bound)),
+            weighted_tardiness_excess_h=(tard - result.tardiness_bound) / 60,
+            weighted_completion_pct=_rounded(term_gap_pct(compl, result.completion_bound)))
     return PlanDoc(
         method=result.method,
         status=result.status,
@@ -95,6 +155,10 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
             makespan_h=hours_of(mk), weighted_tardiness_h=hours_of(tard),
             weighted_completion_h=hours_of(compl),
         ),
+        objective_bounds=bounds,
+        gaps_pct=gaps,
+        turnaround=Turnaround(**turnaround(inst, result.start, result.end),
+                              bounded_slowdown_threshold_min=BSLD_THRESHOLD),
         seconds=round(result.seconds, 3),
         assignments=[
             Assignment(
@@ -109,6 +173,10 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
         ],
         history=list(result.history),
     )
+
+
+def _rounded(pct: float | None) -> float | None:
+    return None if pct is None else round(pct, 4)
 
 
 def calendar_time(inst: Instance, minute: int, *, short: bool = False) -> str:
@@ -149,21 +217,27 @@ def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:
             j, i = job_index[a.job], node_index[a.node]
             assign[j] = i
             start[j] = round(start_h * 60)
-            end[j] = start[j] + inst.duration[j, i] if end_h is None else round(end_h * 60)
+            end[j] = start[j] + inst.duration_on(j, i) if end_h is None else round(end_h * 60)
     missing = [inst.job_names[j] for j in np.flatnonzero(assign < 0)]
     if missing:
         problems.append(f"assignments: {counted(len(missing), 'job')} without a row,"
                         f" e.g. '{missing[0]}'")
     if problems:
         raise InputError(problems)
+    bounds = doc.objective_bounds
+    tardiness_bound = None if bounds is None else bounds.weighted_tardiness_h * 60
+    completion_bound = None if bounds is None else bounds.weighted_completion_h * 60
     if doc.lower_bound_h is None:
+        # a hand-written plan: every term's bound computed here, as solve would
         from assignplan.bounds import lower_bound
 
         bound = lower_bound(inst)
         lower, parts = bound.value, dict(bound.parts)
+        tardiness_bound, completion_bound = bound.tardiness, bound.completion
     else:
         lower = round(doc.lower_bound_h * 60)
         parts = {k: round(v * 60) for k, v in doc.lower_bound_parts_h.items()}
     return PlanResult(doc.method or "hand-written", assign, start, end, lower,
                       status=doc.status, seed=doc.seed, seconds=doc.seconds,
-                      history=list(doc.history), bound_parts=parts)
+                      history=list(doc.history), bound_parts=parts,
+                      tardiness_bound=tardiness_bound, completion_bound=completion_bound)

@@ -83,6 +83,15 @@ def build_schedule(inst: Instance, assign: np.ndarray, order: np.ndarray | None 
     return start[0]
 
 
+def population_starts(inst: Instance, assign2d: np.ndarray, order2d: np.ndarray) -> np.ndarray:
+    """Start minutes int64[P, J] of assignments int64[P, J], each decoded in its own order
+    (int64[P, J]) by the serial SGS (`build_schedule` for a population, no justification)."""
+    assign2d = check_assign(inst, assign2d)
+    start, _ = _run(inst, assign2d, check_order(inst, order2d), keep_starts=True,
+                    justify=False)
+    return start
+
+
 def evaluate_population(inst: Instance, assign2d: np.ndarray,
                         order: np.ndarray | None = None, *, justify: bool = False,
                         spread: bool = False, tail: bool = False) -> np.ndarray:

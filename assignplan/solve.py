@@ -1,12 +1,13 @@
 """Solve a batch with a method: the one way from an instance to a plan.
 
 Every method has the same signature (instance, seed, budget, its settings, a progress hook,
-the lower bound) and returns the one result type; this module owns what they share:
+the lower bounds) and returns the one result type; this module owns what they share:
 
 - the registry of methods, each with the settings type it reads (a method given settings it
   does not read is an error, never silently ignored);
-- the lower bound, computed once per batch (unless the caller has it) and attached to the
-  result in one place, raised to a bound the method proved itself (exact's);
+- the lower bounds, one per term of the objective, computed once per batch (unless the
+  caller has them) and attached to the result in one place, the makespan's raised to a bound
+  the method proved itself (exact's);
 - the time budget: it counts from the call, so the bound's time comes off the method's share;
 - the exact method's size guard;
 - the robust objective (`risk.robust`), which only the ga reads.
@@ -60,37 +61,42 @@ class Method:
 
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
-            progress: Progress | None, bound: int) -> PlanResult:
+            progress: Progress | None, bound: LowerBound) -> PlanResult:
     from assignplan.methods.greedy import solve_greedy
 
-    return solve_greedy(inst, lower_bound=bound)
+    return solve_greedy(inst, lower_bound=bound.value)
 
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
-        progress: Progress | None, bound: int, robust: Robust | None = None) -> PlanResult:
+        progress: Progress | None, bound: LowerBound,
+        robust: Robust | None = None) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
     if robust is None:
-        return solve_ga(inst, settings=settings, lower_bound=bound, seed=seed, budget=budget,
-                        on_generation=progress)
+        return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed,
+                        budget=budget, on_generation=progress,
+                        term_bounds=(bound.tardiness, bound.completion))
     from assignplan.risk.robust import robust_evaluate
 
-    return solve_ga(inst, settings=settings, lower_bound=bound, seed=seed, budget=budget,
+    # the robust score's completion column is not the objective's, so no completion phase
+    settings = settings.replace(completion={"completion_share": 0.0})
+    return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed, budget=budget,
                     on_generation=progress, bound_stops=False,
                     evaluate=robust_evaluate(inst, robust,
                                              justify=settings.improvement.justify))
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
-           progress: Progress | None, bound: int) -> PlanResult:
+           progress: Progress | None, bound: LowerBound) -> PlanResult:
     from assignplan.methods.exact import solve_exact
-    from assignplan.methods.greedy import greedy_assign
+    from assignplan.methods.greedy import solve_greedy
 
     if inst.n_jobs > EXACT_MAX_JOBS and not settings.force:
         raise InputError(exact_too_big(inst.n_jobs) + "; use --method ga, or --force to try"
                          " anyway")
-    return solve_exact(inst, lower_bound=bound, budget=budget, hint=greedy_assign(inst),
-                       seed=seed, workers=settings.workers)
+    greedy = solve_greedy(inst, lower_bound=bound.value)
+    return solve_exact(inst, lower_bound=bound.value, budget=budget,
+                       hint=(greedy.assign, greedy.start), seed=seed, workers=settings.workers)
 
 
 METHODS: dict[str, Method] = {m.name: m for m in (
@@ -123,7 +129,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     error. `bound`: `bounds.lower_bound(inst)` when the caller already has it (then its time
     is not charged here). `robust`: plan for a quantile of the makespan under sampled run
     times (`risk.robust`; the ga only, another method is an error). The result carries the
-    lower bound, its parts, and the method's own seconds.
+    lower bound of each term of the objective, the parts of the makespan's and the
+    completion time's, and the method's own seconds.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
@@ -136,9 +143,11 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     started = time.perf_counter()
     extra = {"robust": robust} if robust is not None else {}
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
-                        settings=settings, progress=progress, bound=bound.value, **extra)
+                        settings=settings, progress=progress, bound=bound, **extra)
     proven = max(bound.value, result.solver_bound or 0)
     return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
+                   tardiness_bound=bound.tardiness, completion_bound=bound.completion,
+                   completion_parts=dict(bound.completion_parts),
                    seconds=time.perf_counter() - started)
 
 

@@ -1,14 +1,14 @@
 """What-if changes to the node inventory: nodes taken out, taken down for a while, or added.
 
 Three kinds of change, spelt the same way everywhere a batch is read (`solve`, `replan`,
-`risk`, `compare`; `--change`, repeatable, or an overlay file `--changes FILE`):
+`risk`, `compare`; options, each repeatable, or an overlay file `--changes FILE`):
 
-- ``without:NAME``: take out a node, or every member of a group (``NAME`` may be a glob
+- ``--without NAME``: take out a node, or every member of a group (``NAME`` may be a glob
   pattern such as ``gpu-*``);
-- ``down:NAME@FROM..TO``: a maintenance window on a node or group (times as calendar times
-  or hours from the window start; no ``TO``: down until further notice);
-- ``add:GROUP=COUNT``: COUNT more members of an existing node group, named on from its last
-  member (``gpu-09``, ``gpu-10`` after ``gpu-08``).
+- ``--down NAME@FROM..TO``: a maintenance window on a node or group (times as calendar
+  times or hours from the window start; no ``TO``: down until further notice);
+- ``--add GROUP=COUNT``: COUNT more members of an existing node group, named on from its
+  last member (``gpu-09``, ``gpu-10`` after ``gpu-08``).
 
 They are applied in one place, `apply_node_changes`, while the batch is expanded and before
 any cross-field check, so every command sees the same inventory and every later check (a job
@@ -19,6 +19,8 @@ the batch still names the nodes it used.
 from __future__ import annotations
 
 import fnmatch
+import re
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from datetime import datetime
 from typing import Annotated, Any
@@ -30,12 +32,8 @@ from assignplan.errors import InputError
 from assignplan.reading import calendar_hours, read_text, validate_json
 from assignplan.units import MAX_OFFSET_HOURS, clock, counted, number
 
-CHANGE_HELP = ("without:NAME (a node or group; globs such as gpu-*), down:NAME@FROM..TO "
-               "(calendar times or hours from the window start; no TO: until further "
-               "notice), add:GROUP=COUNT")
-
-NamePattern = Annotated[str, Field(min_length=1, max_length=200,
-                                   pattern=r"^[A-Za-z0-9_.:+\-*?\[\]!]+$")]
+NAME_CHARS = r"[A-Za-z0-9_.:+\-*?\[\]!]{1,200}"
+NamePattern = Annotated[str, Field(min_length=1, max_length=200, pattern=f"^{NAME_CHARS}$")]
 
 
 @dataclass(frozen=True)
@@ -74,24 +72,43 @@ Change = Without | Down | Add
 # --------------------------------------------------------------------------- spelling
 
 
-def parse_change(text: str) -> Change:
-    """One `--change` value; InputError naming it when it is none of the three spellings."""
-    where = f"--change {text}"
-    kind, sep, rest = text.partition(":")
-    if not sep or kind not in ("without", "down", "add") or not rest:
-        raise InputError(f"{where}: not a change; write {CHANGE_HELP}")
+def parse_changes(without: Sequence[str] = (), down: Sequence[str] = (),
+                  add: Sequence[str] = (), overlay: Any = None) -> list[Change]:
+    """The changes of the command-line options (`--without`, `--down`, `--add`, each
+    repeatable) and of an overlay file, in the order without, add, down (file first);
+    InputError with one line per value that is none of the spellings."""
+    out: list[Change] = [] if overlay is None else load_changes(overlay)
+    problems: list[str] = []
+    for kind, values in (("without", without), ("add", add), ("down", down)):
+        for text in values:
+            try:
+                out.append(parse_change(kind, text))
+            except InputError as err:
+                problems += err.problems
+    if problems:
+        raise InputError(problems)
+    return out
+
+
+def parse_change(kind: str, text: str) -> Change:
+    """One option value: `--without NAME`, `--add GROUP=COUNT` or `--down NAME@FROM..TO`."""
+    where = f"--{kind} {text}"
     if kind == "without":
-        return Without(rest, where)
+        if not text or not re.fullmatch(NAME_CHARS, text):
+            raise InputError(f"{where}: write --without NAME (a node, a group or a glob such"
+                             " as gpu-*)")
+        return Without(text, where)
     if kind == "add":
-        group, eq, count = rest.partition("=")
+        group, eq, count = text.partition("=")
         if not eq or not group or not count.strip().isdigit() or int(count) < 1:
-            raise InputError(f"{where}: write add:GROUP=COUNT with COUNT a whole number of at"
-                             " least 1")
+            raise InputError(f"{where}: write --add GROUP=COUNT with COUNT a whole number of"
+                             " at least 1")
         return Add(group, int(count), where)
-    name, at, span = rest.partition("@")
+    name, at, span = text.partition("@")
     first, dots, last = span.partition("..")
     if not at or not name or not dots or not first:
-        raise InputError(f"{where}: write down:NAME@FROM..TO (TO may be left out)")
+        raise InputError(f"{where}: write --down NAME@FROM..TO (times as hours from the"
+                         " window start or ISO 8601 calendar times; TO may be left out)")
     return Down(name, _time_text(first, where), _time_text(last, where) if last else None,
                 where)
 

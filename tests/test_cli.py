@@ -137,7 +137,7 @@ def test_ga_is_the_default_and_reproducible(tmp_path):
     a, b = json.loads(first.read_text()), json.loads(second.read_text())
     assert a["method"] == "ga" and a["seed"] == 7
     assert json.dumps(a["assignments"]) == json.dumps(b["assignments"])
-    assert 0 < len(a["history"]) <= 41
+    assert 0 < len(a["history"]) <= 41 + 12  # 40 makespan generations, 30 % more at most
     assert {"generation", "best_makespan_h", "median_makespan_h"} <= a["history"][0].keys()
     assert runner.invoke(app, ["check", str(SMALL), str(first)]).exit_code == 0
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import json
+import math
 
 import numpy as np
 import pytest
@@ -14,7 +15,7 @@ from assignplan.bounds import lower_bound
 from assignplan.check import check_plan
 from assignplan.generate import batch_doc, generate
 from assignplan.methods.ga import ga_settings, run_island, solve_ga
-from assignplan.methods.ga.seeding import greedy_variant_orders
+from assignplan.methods.ga.seeding import completion_seeds, greedy_variant_orders
 from assignplan.methods.greedy import greedy_assign, solve_greedy
 from assignplan.plan import objective, to_plan_doc
 from assignplan.schedule import evaluate_population
@@ -40,11 +41,15 @@ def identical_whole_node(m: int, hours: list[float]) -> dict:
 @settings(max_examples=100, deadline=None)
 @given(batches(max_jobs=14, p_follows=0.3, p_maintenance=0.5))
 def test_every_ga_plan_passes_the_checker_and_is_no_worse_than_greedy(d):
+    # under the default objective (makespan, weighted tardiness, weighted completion) no ga
+    # plan is lexicographically worse than the greedy method's
     batch, inst = instance_of(d)
     bound = lower_bound(inst).value
     res = solve_ga(inst, settings=SMALL, lower_bound=bound, seed=0, budget=60.0)
     assert check_plan(batch, to_plan_doc(inst, res)) == []
     assert bound <= res.makespan <= greedy_makespan(inst)
+    greedy = solve_greedy(inst, lower_bound=bound)
+    assert objective(inst, res.end) <= objective(inst, greedy.end)
     assert res.method == "ga" and res.seed == 0 and res.history
 
 
@@ -95,22 +100,32 @@ def test_same_batch_seed_and_config_give_the_same_plan():
 def test_history_hook_and_stopping_rules():
     _, inst = instance_of(batch_doc(generate("small", 1)))
     rows = []
-    res = solve_ga(inst, settings=ga_settings(generations=12, stagnation=1000), lower_bound=0,
-                   seed=3, budget=600.0, on_generation=rows.append)
-    assert rows == res.history and [r.generation for r in rows] == list(range(13))
+    cfg = ga_settings(generations=12, stagnation=1000, completion_stagnation=1000)
+    res = solve_ga(inst, settings=cfg, lower_bound=0, seed=3, budget=600.0,
+                   on_generation=rows.append)
+    # 12 makespan generations, then the final phase's share of them on top
+    final = math.ceil(cfg.completion.completion_share * 12)
+    assert rows == res.history and [r.generation for r in rows] == list(range(13 + final))
     best = [r.best_makespan_h for r in rows]
     assert best == sorted(best, reverse=True)  # elitism: the best never gets worse
     assert all(r.median_makespan_h >= r.best_makespan_h for r in rows)
     assert all(b.evaluations > a.evaluations for a, b in zip(rows, rows[1:], strict=False))
     assert res.makespan == round(best[-1] * 60)
-    stalled = solve_ga(inst, settings=ga_settings(generations=10_000, stagnation=3), lower_bound=0,
+    stalled = solve_ga(inst, settings=ga_settings(generations=10_000, stagnation=3,
+                                                  completion_stagnation=3), lower_bound=0,
                        seed=3, budget=600.0)
     assert len(stalled.history) < 10_000
     _, inst = instance_of(batch_doc(generate("small", 1, True)))
     assert not np.any(inst.due != inst.due.max())  # no due times: tardiness is always 0
-    at_bound = solve_ga(inst, settings=ga_settings(generations=10_000), seed=3, budget=600.0,
-                        lower_bound=greedy_makespan(inst))
-    assert len(at_bound.history) == 1  # greedy already meets the given bound
+    alone = solve_ga(inst, settings=ga_settings(generations=10_000, completion_share=0.0),
+                     seed=3, budget=600.0, lower_bound=greedy_makespan(inst))
+    assert len(alone.history) == 1  # greedy already meets the given bound
+    # with the final phase, the weighted completion time still improves; its stagnation
+    # limit stops it
+    at_bound = solve_ga(inst, settings=ga_settings(generations=10_000, completion_stagnation=3),
+                        seed=3, budget=600.0, lower_bound=greedy_makespan(inst))
+    assert 1 < len(at_bound.history) < 10_000
+    assert objective(inst, at_bound.end) <= objective(inst, alone.end)
 
 
 def test_custom_evaluate_is_the_only_scorer_of_the_population():
@@ -144,9 +159,10 @@ def test_reported_plan_is_the_evaluated_one():
     # justified fitness, evolved orders: the plan solve_ga returns has exactly the objective
     # the run scored for its best individual (schedule_result rebuilds the same schedule);
     # `evaluate` here is solve_ga's default scorer, so both runs take the same path (no
-    # reserved phase: solve_ga is then one run_island)
+    # reserved phase, no final phase: solve_ga is then one run_island)
     _, inst = instance_of(batch_doc(generate("small", 3)))
-    cfg = ga_settings(generations=8, mu=8, lam=8, local_evaluations=8, reserve_share=0.0)
+    cfg = ga_settings(generations=8, mu=8, lam=8, local_evaluations=8, reserve_share=0.0,
+                      completion_share=0.0)
     assert cfg.improvement.justify and cfg.variation.evolve_order
     assert cfg.improvement.tiebreak == "tail"
 
@@ -154,7 +170,8 @@ def test_reported_plan_is_the_evaluated_one():
         return evaluate_population(inst, a, o, justify=True, tail=True)
 
     island = run_island(inst, cfg, rng=np.random.default_rng(4), evaluate=evaluate,
-                        lower_bound=0, deadline=float("inf"))
+                        lower_bound=0, deadline=float("inf"),
+                        extra=completion_seeds(inst, 0, 0))  # solve_ga's one extra seed
     pop, fit, orders = island.assign, island.score[:, :3], island.orders
     assert orders.shape == pop.shape
     np.testing.assert_array_equal(fit, evaluate_population(inst, pop, orders, justify=True))

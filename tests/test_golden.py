@@ -20,7 +20,7 @@ from assignplan.check import check_plan
 from assignplan.expand import ExpandedBatch, expand_batch, load_batch
 from assignplan.instance import Instance, build_instance
 from assignplan.methods.ga import ga_settings
-from assignplan.methods.greedy import greedy_assign
+from assignplan.methods.greedy import solve_greedy
 from assignplan.plan import to_plan_doc
 from assignplan.published import pcmax_batch, read_pcmax
 from assignplan.reading import parse_batch_text
@@ -47,11 +47,12 @@ def _batch(name: str) -> ExpandedBatch:
 
 @cache
 def _run(name: str) -> tuple[ExpandedBatch, Instance, dict]:
-    """Everything recorded for one batch: bound, greedy and ga plans, ga history."""
+    """Everything recorded for one batch: bound, the greedy method's and a ga plan, ga history."""
     batch = _batch(name)
     inst = build_instance(batch)
     bound = lower_bound(inst)
-    assign, start = greedy_assign(inst)
+    greedy = solve_greedy(inst, lower_bound=bound.value)
+    assign, start = greedy.assign, greedy.start
     ga = solve(inst, "ga", seed=GA_SEED, budget=1e6, bound=bound,
                settings=ga_settings(generations=GENERATIONS[name]))
     record = {

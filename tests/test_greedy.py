@@ -186,3 +186,47 @@ def test_heterogeneous_generator_is_seeded_and_greedy_plan_checks():
     assert inst.demand[:, 2].any() and len(inst.pred_idx) > 0
     res = solve_greedy(inst, lower_bound=lower_bound(inst).value)
     assert check_plan(batch, to_plan_doc(inst, res)) == []
+
+
+# ----------------------------------------------------------------- orders for the third term
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_every_candidate_plan_is_valid_and_greedy_keeps_the_lexicographic_best(seed):
+    from assignplan.methods.greedy import candidate_plans, completion_variants
+    from assignplan.plan import make_result, objective
+    from tests.strategies import random_batch_doc
+
+    batch, inst = instance_of(random_batch_doc(np.random.default_rng(seed), max_jobs=14,
+                                               p_follows=0.3, p_maintenance=0.5, p_ready=0.4))
+    bound = lower_bound(inst).value
+    plans = candidate_plans(inst, bound)
+    horizon = int(inst.end_times(*plans["longest"]).max())
+    for assign, start in list(plans.values()) + completion_variants(inst, horizon)[:12]:
+        plan = make_result(inst, "greedy", assign, start, bound)
+        assert check_plan(batch, to_plan_doc(inst, plan)) == []
+    best = solve_greedy(inst, lower_bound=bound)
+    assert objective(inst, best.end) == min(objective(inst, inst.end_times(*p))
+                                            for p in plans.values())
+
+
+def test_completion_order_puts_the_long_jobs_first_then_smiths_rule_within_follows():
+    from assignplan.methods.orders import completion_order, critical_jobs, smith_keys
+
+    d = {"window": {"start": "2026-12-07T00:00:00", "hours": 168.0},
+         "nodes": [{"name": "n", "count": 2, "cores": 4, "memory_gib": 8.0}],
+         "jobs": [{"name": "short", "cores": 1, "memory_gib": 1.0, "hours": 1.0},
+                  {"name": "heavy", "cores": 1, "memory_gib": 1.0, "hours": 2.0, "weight": 4.0},
+                  {"name": "long", "cores": 1, "memory_gib": 1.0, "hours": 10.0},
+                  {"name": "tail", "cores": 1, "memory_gib": 1.0, "hours": 0.5,
+                   "follows": ["long"]},
+                  {"name": "before", "cores": 1, "memory_gib": 1.0, "hours": 3.0},
+                  {"name": "after", "cores": 1, "memory_gib": 1.0, "hours": 0.1,
+                   "follows": ["before"]}]}
+    _, inst = instance_of(d)
+    bound = lower_bound(inst).value  # 10.5 h: long, then tail
+    critical = critical_jobs(inst, bound, 0.5)
+    assert [inst.job_names[j] for j in np.flatnonzero(critical)] == ["long", "tail"]
+    order = [inst.job_names[j] for j in completion_order(inst, critical, smith_keys(inst))]
+    # Smith's keys p / w: heavy 0.5 h, short 1 h, before 3 h; after (0.1 h) waits for before
+    assert order == ["long", "tail", "heavy", "short", "before", "after"]

@@ -16,6 +16,7 @@ from assignplan.errors import SolveError
 from assignplan.expand import ExpandedBatch, expand_batch
 from assignplan.instance import Instance, build_instance
 from assignplan.methods.ga import GASettings, ga_settings
+from assignplan.methods.greedy import greedy_assign
 from assignplan.plan import PlanResult, to_plan_doc
 from assignplan.published import (
     HOUR,
@@ -37,10 +38,12 @@ PCMAX_VERIFIED = read_column(DATA / "pcmax" / "optima.csv", "verified")
 
 # Bounded by generations and stagnation only (the time limit is a far-off safety net), so every
 # run is deterministic: same instance, seed and config, same plan.
-GA_TEST_CONFIG = ga_settings(generations=100, stagnation=40)
+# These runs count makespan optima only: the ga's final phase, which works on the weighted
+# completion time, is off (completion_share 0) to keep the suite's budget.
+GA_TEST_CONFIG = ga_settings(generations=100, stagnation=40, completion_share=0.0)
 # t60: no setting we measured solves any of the 20 to 1 h (see RESULTS.md), and every ga
 # generation spends its full repacking effort there, so the suite runs them short.
-T60_GA_CONFIG = ga_settings(generations=30, stagnation=15)
+T60_GA_CONFIG = ga_settings(generations=30, stagnation=15, completion_share=0.0)
 GA_SEED = 0
 GA_SAFETY_SECONDS = 900.0
 # CP-SAT limits: the 10-job P||Cmax instances prove optimal within a few seconds; the bin
@@ -116,6 +119,11 @@ def bin_packing_runs(names: list[str], methods: tuple[str, ...],
                 tally.solved[m].append(name)
     print({m: tally.count(m) for m in methods}, "of", len(names))
     return tally, results
+
+
+def lpt_makespan(inst: Instance) -> int:
+    """The makespan of list scheduling longest first (the greedy method's "longest" plan)."""
+    return int(inst.end_times(*greedy_assign(inst)).max())
 
 
 def greedy_count_where_exact_planned(tally: Tally, results: dict) -> int:
@@ -319,7 +327,9 @@ def test_graham_lpt_family(m):
     # m, m, m; LPT gives 4m - 1, the optimum is 3m (family from memory; m = 4 checked by
     # exhaustive search, see worked_examples.json).
     eb, inst = batch_of(pcmax_batch(graham_lpt_family(m), m))
-    assert run("greedy", eb, inst).makespan == (4 * m - 1) * HOUR
+    assert lpt_makespan(inst) == (4 * m - 1) * HOUR
+    # the greedy method keeps the best of several orders, LPT among them
+    assert run("greedy", eb, inst).makespan <= (4 * m - 1) * HOUR
     exact = run("exact", eb, inst, budget=EXACT_SMALL_LIMIT)
     assert (exact.makespan, exact.status) == (3 * m * HOUR, "optimal")
     assert run("ga", eb, inst).makespan <= 1.01 * 3 * m * HOUR
@@ -330,5 +340,6 @@ def test_graham_worked_example_file():
     ex = json.loads((DATA / "examples" / "worked_examples.json").read_text())["examples"][0]
     assert tuple(ex["processing_times"]) == graham_lpt_family(ex["machines"])
     eb, inst = batch_of(pcmax_batch(ex["processing_times"], ex["machines"]))
-    assert run("greedy", eb, inst).makespan == ex["published_lpt_makespan"] * HOUR
+    assert lpt_makespan(inst) == ex["published_lpt_makespan"] * HOUR
+    assert run("greedy", eb, inst).makespan <= ex["published_lpt_makespan"] * HOUR
     assert run("ga", eb, inst).makespan == ex["published_optimal_makespan"] * HOUR

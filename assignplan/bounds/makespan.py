@@ -1,13 +1,15 @@
-"""Provable lower bounds on the makespan (whole minutes) of any feasible plan of an instance."""
+"""Provable lower bounds on the makespan (whole minutes) of any feasible plan of an instance,
+and with them the bounds on the other two terms of the objective (`completion`)."""
 
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import networkx as nx
 import numpy as np
 
+from assignplan.bounds.completion import completion_bound, tardiness_bound
 from assignplan.bounds.configurations import configuration_bound
 from assignplan.instance import RESOURCES, Instance
 
@@ -27,10 +29,16 @@ _REL_SLACK = 1e-9
 
 @dataclass(frozen=True)
 class LowerBound:
-    """A lower bound on the makespan in minutes and the component each part of it came from."""
+    """Lower bounds of a batch, one per term of the objective: the makespan in minutes and the
+    component each part of it came from (`value`, `parts`); the weighted tardiness and the
+    weighted completion time in weighted minutes, the latter with its parts
+    (`completion.completion_bound`)."""
 
     value: int
     parts: dict[str, int]
+    tardiness: float = 0.0
+    completion: float = 0.0
+    completion_parts: dict[str, float] = field(default_factory=dict)
 
 
 PART_NAMES = {  # one line each for tables and reports; the docstring below has the detail
@@ -63,8 +71,10 @@ def lower_bound(inst: Instance, *, deadline: float | None = None) -> LowerBound:
     """The largest of several bounds, each valid for every feasible plan of `inst`.
 
     `deadline` (a `time.perf_counter()` reading): past it, the configuration LP of further
-    node-set classes is skipped (the parts it has are valid bounds all the same); the other
-    parts are cheap and always computed.
+    node-set classes and the completion bound's flow LP are skipped (the parts it has are
+    valid bounds all the same); the other parts are cheap and always computed. The bounds on
+    weighted tardiness and weighted completion come from the same head times
+    (`completion.tardiness_bound`, `completion.completion_bound`).
 
     - ``job``: max_j min_{i eligible} eft_i(ready_j, dur_ji), where eft_i(t, d) is the earliest
       end of a d-minute run starting at or after t on node i outside its maintenance.
@@ -95,7 +105,11 @@ def lower_bound(inst: Instance, *, deadline: float | None = None) -> LowerBound:
                                                   floor=max(parts.values()), deadline=deadline)
     g = time_grid(inst)
     parts["grid"] = -(-max(parts.values()) // g) * g
-    return LowerBound(value=max(parts.values()), parts=parts)
+    completion, completion_parts = completion_bound(inst, est, fin, ref, classes,
+                                                    deadline=deadline)
+    return LowerBound(value=max(parts.values()), parts=parts,
+                      tardiness=tardiness_bound(inst, fin), completion=completion,
+                      completion_parts=completion_parts)
 
 
 def time_grid(inst: Instance) -> int:

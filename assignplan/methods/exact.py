@@ -208,18 +208,17 @@ def solve_exact(
     if status == cp_model.INFEASIBLE:
         raise SolveError("exact: internal error, the model is infeasible despite a safe horizon")
     fallback = _hint_result(inst, hint, lower_bound, seed)
+    solver_bound = math.ceil(solver.best_objective_bound - 1e-6)
     if status not in _FOUND and fallback is not None:
         # CP-SAT may not complete even a good hint in a short limit; the hint's plan stands,
         # with what the search proved of the makespan (valid whether or not it found a plan)
-        proved = math.ceil(solver.best_objective_bound - 1e-6)
-        return replace(fallback, seconds=time.perf_counter() - t0, solver_bound=proved,
-                       lower_bound=max(int(lower_bound), proved))
+        return replace(fallback, seconds=time.perf_counter() - t0, solver_bound=solver_bound,
+                       lower_bound=max(int(lower_bound), solver_bound))
     if status not in _FOUND:
         raise SolveError(
             f"exact: no plan found within {budget:g} s (status {solver.status_name(status)});"
             " try a longer --budget or --method ga"
         )
-    solver_bound = math.ceil(solver.best_objective_bound - 1e-6)
     proven = status == cp_model.OPTIMAL
     plan = _read_plan(mdl, solver)
 

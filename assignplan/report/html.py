@@ -23,7 +23,14 @@ from assignplan import __version__
 from assignplan.check import Violation
 from assignplan.files import atomic_write_text
 from assignplan.instance import Instance
-from assignplan.metrics import bound_source_text, job_frame, node_frame, summary
+from assignplan.metrics import (
+    bound_source_text,
+    completion_text,
+    job_frame,
+    node_frame,
+    summary,
+    tardiness_text,
+)
 from assignplan.plan import PlanResult
 from assignplan.report.charts import plan_scenes
 from assignplan.report.figures import NODE_ROW_LIMIT
@@ -100,8 +107,16 @@ def summary_cards(inst: Instance, s: dict) -> str:
         _card("past the window", f"{s['jobs_past_window']:,}", "jobs ending after it",
               "warn" if s["jobs_past_window"] else "ok"),
         _card("late jobs", f"{s['late_jobs']:,}",
-              f"weighted tardiness {number(s['weighted_tardiness_h'], 2)} h",
+              f"weighted tardiness {escape(tardiness_text(s))}",
               "warn" if s["late_jobs"] else "ok"),
+        _card("weighted completion", f"{number(s['weighted_completion_h'], 0)} h",
+              escape(completion_text(s).split(", ", 1)[1]) if s.get(
+                  "weighted_completion_bound_h") is not None else "sum of weight x end"),
+        _card("mean wait", f"{number(s['mean_wait_h'], 2)} h",
+              f"from ready to start; P90 {number(s['p90_wait_h'], 2)} h; mean bounded"
+              f" slowdown {number(s['mean_bounded_slowdown'], 2)} (runs under"
+              f" {s['bounded_slowdown_threshold_min']} min count as"
+              f" {s['bounded_slowdown_threshold_min']} min)"),
         _card("method", escape(f"{s['method']}"),
               f"{escape(s['status'])}, solved in {s['seconds']:.2f} s{seed}"),
     ]

@@ -274,4 +274,4 @@ def sample_documents(batch: ExpandedBatch, inst: Instance, start: np.ndarray, en
                       Assignment(job=inst.job_names[j], node=inst.node_names[int(where[j])],
                                  start_h=int(start[j]) / 60, end_h=int(end[j]) / 60)
                       for j in range(inst.n_jobs)])
-    return replace(batch, jobs=jobs), doc
+    return replace(batch, members=jobs), doc

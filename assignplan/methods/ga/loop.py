@@ -18,6 +18,7 @@ from assignplan.methods.ga.improvers import Context, improvers
 from assignplan.methods.ga.improvers.repack import keys_for_order
 from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.ga.population import (
+    COMPLETION,
     MAKESPAN,
     TARDINESS,
     Evaluate,
@@ -27,7 +28,7 @@ from assignplan.methods.ga.population import (
     progress_columns,
     selection_key,
 )
-from assignplan.methods.ga.seeding import initial_population
+from assignplan.methods.ga.seeding import completion_seeds, initial_population
 from assignplan.methods.ga.selection import lex_less, lex_rank
 from assignplan.methods.ga.settings import GASettings, sized
 from assignplan.methods.ga.variation import vary
@@ -52,7 +53,12 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
                evaluate: Evaluate, lower_bound: int, deadline: float,
                on_generation: OnGeneration | None = None,
                migrants: np.ndarray | None = None,
-               migrant_keys: np.ndarray | None = None, bound_stops: bool = True) -> Island:
+               migrant_keys: np.ndarray | None = None,
+               initial: tuple[np.ndarray, np.ndarray] | None = None,
+               extra: tuple[np.ndarray, np.ndarray] | None = None,
+               final: bool = False, patience: float | None = None,
+               term_bounds: tuple[float, float] | None = None,
+               bound_stops: bool = True) -> Island:
     """One ga run: seed, then per generation select, vary, repair, evaluate, improve,
     survive, record; until the generations, the stagnation limit, the deadline (a
     `time.perf_counter()` reading) or, with `bound_stops`, the lower bound (with no tardiness
@@ -60,15 +66,31 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
 
     `migrants` (int64[m, J], valid plans) replace the last members of the initial population,
     decoded by `migrant_keys` (float64[m, J]) if given, else in the best greedy order: the
-    seam for the reserved phase and for island models.
+    seam for the reserved phase and for island models. `initial` (plans int64[P, J], their
+    order keys float64[P, J]) is the whole initial population instead of `seeding`'s;
+    `extra` (the same) joins it on top of mu (survival trims the pool back to mu).
+
+    `final`: the completion phase. Plans are compared by the objective itself (makespan,
+    weighted tardiness, weighted completion), so no plan that loses a makespan minute or a
+    tardiness unit ever ranks above one that does not; a better completion time counts as
+    progress against stagnation, the makespan bound does not stop the run, and the
+    improvement steps are the completion phase's (`improvers(..., final=True)`).
+    `patience`: seconds without a better (makespan, tardiness) after which the run stops;
+    `term_bounds` (final phase): (weighted tardiness, weighted completion) bounds whose meeting
+    stops it.
     """
     index = EligibleIndex.of(inst)
-    scorer, pop = _seed(inst, settings, index, evaluate, migrants, migrant_keys, rng=rng)
+    if final:
+        settings = settings.replace(improvement={"tiebreak": "none"})
+    scorer, pop = _seed(inst, settings, index, evaluate, migrants, migrant_keys, initial,
+                        extra, rng=rng)
     ctx = Context(inst, index, scorer, lower_bound, settings.improvement.justify,
                   settings.population.survival)
-    steps = improvers(settings, ctx)
+    steps = improvers(settings, ctx, final=final)
     survive = survival.SCHEMES[settings.population.survival]
-    stop = _Stopping(settings, lower_bound if bound_stops else -1, deadline, pop)
+    stop = _Stopping(settings, None if final or not bound_stops else lower_bound, deadline,
+                     pop, columns=3 if final else None, patience=patience,
+                     targets=term_bounds if final else None)
     history = _History(on_generation)
     history.add(0, scorer.evaluations, pop)
     for generation in range(1, settings.stopping.generations + 1):
@@ -91,17 +113,24 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
 
 
 def _seed(inst: Instance, settings: GASettings, index: EligibleIndex, evaluate: Evaluate,
-          migrants: np.ndarray | None, migrant_keys: np.ndarray | None, *,
+          migrants: np.ndarray | None, migrant_keys: np.ndarray | None,
+          initial: tuple[np.ndarray, np.ndarray] | None,
+          extra: tuple[np.ndarray, np.ndarray] | None, *,
           rng: np.random.Generator) -> tuple[Scorer, Population]:
-    """The scorer (with the fixed decoding order of the best greedy seed) and the scored
-    initial population, migrants included."""
-    assign, keys, best = initial_population(inst, settings, index, rng=rng)
+    """The scorer (with the fixed decoding order of the best greedy seed, or of the first
+    member of `initial`) and the scored initial population, migrants included."""
+    if initial is None:
+        assign, keys, best = initial_population(inst, settings, index, rng=rng)
+    else:
+        (assign, keys), best = initial, 0
     order = orders_from_keys(inst, keys[[best]])[0]  # keys 1 give exactly inst.order
     if migrants is not None and len(migrants):
         keep = max(1, settings.population.mu - len(migrants))
         assign = np.concatenate([assign[:keep], migrants])
         keys = np.concatenate([keys[:keep], np.repeat(keys[[best]], len(migrants), axis=0)
                                if migrant_keys is None else migrant_keys])
+    if extra is not None:
+        assign, keys = np.concatenate([assign, extra[0]]), np.concatenate([keys, extra[1]])
     evolve = settings.variation.evolve_order
     scorer = Scorer(inst, evaluate, Genomes(inst.n_jobs, evolve), order,
                     selection_key(settings.improvement.tiebreak, inst))
@@ -109,34 +138,54 @@ def _seed(inst: Instance, settings: GASettings, index: EligibleIndex, evaluate: 
 
 
 class _Stopping:
-    """Stagnation (generations without progress on the key's leading columns), the deadline,
-    and a makespan at the bound with no tardiness left (the weighted completion time might
-    still improve: we accept that)."""
+    """Stagnation (generations without progress on the key's leading columns), the deadline
+    (also when a generation of the usual length would not end before it: on 1,200 jobs one
+    takes seconds, and a phase overrunning its share starves the next one), `patience`
+    seconds without a better (makespan, tardiness) (the makespan phase, when a final phase
+    follows), and a makespan at the bound with no tardiness left (the weighted completion time
+    is the final phase's to improve: it stops instead when tardiness and completion meet
+    `targets`, their bounds)."""
 
-    def __init__(self, settings: GASettings, lower_bound: int, deadline: float,
-                 pop: Population):
+    def __init__(self, settings: GASettings, lower_bound: int | None, deadline: float,
+                 pop: Population, columns: int | None = None, patience: float | None = None,
+                 targets: tuple[float, float] | None = None):
         self.limit, self.lower_bound, self.deadline = (settings.stopping.stagnation,
                                                        lower_bound, deadline)
-        self.columns = progress_columns(settings.improvement.tiebreak)
+        self.patience, self.targets = patience, targets
+        self.columns = columns or progress_columns(settings.improvement.tiebreak)
         self.since_better = 0
         self.best_key = pop.key[int(np.argmin(lex_rank(pop.key)))]
         self.best_score = pop.score[int(np.argmin(lex_rank(pop.score[:, :3])))]
+        self.last = self.gained = time.perf_counter()
+        self.lengths: list[float] = []
 
     @property
     def best_makespan(self) -> int:
         return int(self.best_score[MAKESPAN])
 
     def update(self, pop: Population) -> None:
+        now = time.perf_counter()
+        self.lengths.append(now - self.last)
+        self.last = now
         best = int(np.argmin(lex_rank(pop.key)))
         better = lex_less(pop.key[best, : self.columns], self.best_key[: self.columns])[0]
         self.since_better = 0 if better else self.since_better + 1
+        if lex_less(pop.score[best, :2], self.best_score[:2])[0]:
+            self.gained = now
         self.best_key, self.best_score = pop.key[best], pop.score[best]
 
     def done(self) -> bool:
-        at_bound = (self.best_score[MAKESPAN] <= self.lower_bound
+        at_bound = (self.lower_bound is not None and self.best_score[MAKESPAN] <= self.lower_bound
                     and self.best_score[TARDINESS] == 0)
-        return (at_bound or self.since_better >= self.limit
-                or time.perf_counter() >= self.deadline)
+        if self.targets is not None:  # float bounds, a hair below their value: meet within
+            tard, compl = self.targets  # a millionth
+            at_bound = (self.best_score[TARDINESS] <= tard * (1 + 1e-6) + 1e-6
+                        and self.best_score[COMPLETION] <= compl * (1 + 1e-6) + 1e-6)
+        usual = float(np.median(self.lengths)) if self.lengths else 0.0
+        now = time.perf_counter()
+        waited = self.patience is not None and now - self.gained >= self.patience
+        return (at_bound or waited or self.since_better >= self.limit
+                or now + usual >= self.deadline)
 
 
 class _History:
@@ -168,7 +217,8 @@ def default_evaluate(inst: Instance, settings: GASettings) -> Evaluate:
 
 def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: int,
              budget: float, on_generation: OnGeneration | None = None,
-             evaluate: Evaluate | None = None, bound_stops: bool = True) -> PlanResult:
+             evaluate: Evaluate | None = None, bound_stops: bool = True,
+             term_bounds: tuple[float, float] | None = None) -> PlanResult:
     """The ga plan as a PlanResult (method "ga", status "feasible", seed and history kept).
 
     One generator, `numpy.random.default_rng(seed)`, drives every random choice, so the same
@@ -176,56 +226,138 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     stagnation or the bound; a stop on `budget` (seconds) depends on machine speed.
     `evaluate` scores a population (default `default_evaluate`; it must return the
     `population.SCORE_COLUMNS` columns); the returned plan is rebuilt exactly as the default scorer
-    built it. Never worse than greedy: every greedy seed decodes to its greedy plan and the
-    best member by (makespan, tardiness) always survives. `bound_stops=False` keeps the run
-    going at the lower bound: for a scorer whose makespan column the bound does not bound
-    (the robust one's quantile of replayed makespans can fall below it).
+    built it. Never lexicographically worse than greedy: the final phase starts from the
+    greedy method's plan (`seeding.completion_seeds`), every seed decodes to its plan or a
+    better one, and that phase keeps the best member by the objective itself.
+    `bound_stops=False` keeps the run going at the lower bound: for a scorer whose makespan
+    column the bound does not bound (the robust one's quantile of replayed makespans can fall
+    below it).
 
-    Phases: when scarce node groups are worth keeping for the jobs that need them
-    (`balance.reserved_eligibility`), the first `seeding.reserve_share` of the budget and of
-    the generations plans with them reserved; its best half then joins the seeds of the
-    second phase on the whole eligibility, whose history continues the first's.
+    Phases, each continuing the history of the one before:
+    1. reserved (optional): when scarce node groups are worth keeping for the jobs that need
+       them (`balance.reserved_eligibility`), `seeding.reserve_share` of the first two
+       phases' budget and generations plans with them reserved; its best half joins the
+       seeds of the next phase, on the whole eligibility;
+    2. makespan: the plateau tie-breaks of `improvement.tiebreak` steer the search to a
+       shorter makespan; seeded also with the greedy method's plan (more plans of completion
+       orders here cost the makespan search: on Falkenauer's u120 bin packing 13 of 20
+       optima with six of them, 16 without);
+    3. completion (`completion.completion_share` of the budget and what phase 2 leaves of
+       it; at most that share of `stopping.generations` more generations, so a run limited
+       by generations keeps all of them for the makespan): plans compared by the objective
+       itself, seeded with phase 2's population, the greedy plan and completion orders read
+       back from the best makespan, improved by re-decoding, node-local re-sequencing and
+       time-window repacking (`improvers.redecode`, `.resequence`, `.window`); it stops
+       after `completion.completion_stagnation` generations without a better completion
+       time, or once the weighted tardiness and completion meet `term_bounds` (weighted
+       minutes).
     """
     t0 = time.perf_counter()
     rng = np.random.default_rng(seed)
     settings = sized(settings, inst.n_jobs)
     evaluate = evaluate or default_evaluate(inst, settings)
+    comp = settings.completion
+    early_end = t0 + (1.0 - comp.completion_share) * budget
+    seed_end = t0 + comp.completion_seed_time * budget
+    history = _Phases(on_generation)
+    island = _makespan_phases(
+        inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound, t0=t0,
+        end=early_end, seed_end=seed_end,
+        patience=comp.patience * budget if comp.completion_share > 0 else None,
+        history=history, bound_stops=bound_stops)
+    if comp.completion_share > 0:
+        final = math.ceil(comp.completion_share * settings.stopping.generations)
+        island = _completion_phase(inst, settings.replace(stopping={"generations": final}),
+                                   island, rng=rng, evaluate=evaluate,
+                                   lower_bound=lower_bound, end=t0 + budget,
+                                   seed_end=time.perf_counter() + comp.completion_seed_time
+                                   * budget, history=history, term_bounds=term_bounds)
+    order = island.orders if island.orders.ndim == 1 else island.orders[0]
+    return schedule_result(inst, island.assign[0], "ga", lower_bound, order,
+                           justify=settings.improvement.justify, status="feasible", seed=seed,
+                           seconds=time.perf_counter() - t0, history=history.rows)
+
+
+class _Phases:
+    """The history of a run made of phases: each phase's rows continue the last one's
+    generation and evaluation counts; a later phase's generation 0 (its seeds, the end of the
+    phase before plus fresh ones) is not a generation of the run and is left out."""
+
+    def __init__(self, on_generation: OnGeneration | None):
+        self.rows: list[HistoryRow] = []
+        self.on_generation = on_generation
+        self.offset = (0, 0)
+
+    @property
+    def generation(self) -> int:
+        return self.rows[-1].generation if self.rows else 0
+
+    def start(self) -> None:
+        """A new phase begins: its counts add to where the last one ended."""
+        if self.rows:
+            self.offset = (self.rows[-1].generation, self.rows[-1].evaluations)
+
+    def add(self, row: HistoryRow) -> None:
+        if row.generation == 0 and self.rows:
+            return
+        row = row.model_copy(update={"generation": row.generation + self.offset[0],
+                                     "evaluations": row.evaluations + self.offset[1]})
+        self.rows.append(row)
+        if self.on_generation is not None:
+            self.on_generation(row)
+
+
+def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Generator,
+                     evaluate: Evaluate, lower_bound: int, t0: float, end: float,
+                     seed_end: float, patience: float | None, history: _Phases,
+                     bound_stops: bool = True) -> Island:
+    """Phases 1 and 2 of `solve_ga` (within `end`, a `time.perf_counter()` reading; phase 2
+    also stops after `patience` seconds without a better makespan or tardiness)."""
     share = settings.seeding.reserve_share
     reserved = reserved_eligibility(inst) if share > 0 else None
-    history: list[HistoryRow] = []
     migrants = migrant_keys = None
     if reserved is not None:
         first = settings.replace(stopping={
             "generations": math.ceil(share * settings.stopping.generations)})
         island = run_island(dataclasses.replace(inst, elig=reserved), first, rng=rng,
                             evaluate=evaluate, lower_bound=lower_bound,
-                            deadline=t0 + share * budget, on_generation=on_generation,
+                            deadline=t0 + share * (end - t0), on_generation=history.add,
                             bound_stops=bound_stops)
-        history = island.history
         n = max(1, settings.population.mu // 2)
         migrants = island.assign[:n]
         if settings.variation.evolve_order:
             migrant_keys = np.stack([keys_for_order(inst, o) for o in island.orders[:n]])
         settings = settings.replace(stopping={"generations": max(
-            settings.stopping.generations - (len(history) - 1), 0)})
-    gen0, evals0 = (history[-1].generation, history[-1].evaluations) if history else (0, 0)
+            settings.stopping.generations - history.generation, 0)})
+    extra = completion_seeds(inst, lower_bound, 0, deadline=seed_end)
+    history.start()
+    return run_island(inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound,
+                      deadline=end, on_generation=history.add, migrants=migrants,
+                      migrant_keys=migrant_keys, extra=extra, patience=patience,
+                      bound_stops=bound_stops)
 
-    def shifted(row: HistoryRow) -> HistoryRow:
-        return row.model_copy(update={"generation": row.generation + gen0,
-                                      "evaluations": row.evaluations + evals0})
 
-    def forward(row: HistoryRow) -> None:
-        # the second phase's generation 0 (the first's end plus fresh seeds) is not a
-        # generation of the run
-        if on_generation is not None and (row.generation > 0 or not history):
-            on_generation(shifted(row))
-
-    island = run_island(inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound,
-                        deadline=t0 + budget, on_generation=forward, migrants=migrants,
-                        migrant_keys=migrant_keys, bound_stops=bound_stops)
-    history = history + [shifted(r) for r in island.history[(1 if history else 0):]]
-    order = island.orders if island.orders.ndim == 1 else island.orders[0]
-    return schedule_result(inst, island.assign[0], "ga", lower_bound, order,
-                           justify=settings.improvement.justify, status="feasible", seed=seed,
-                           seconds=time.perf_counter() - t0, history=history)
-
+def _completion_phase(inst: Instance, settings: GASettings, island: Island, *,
+                      rng: np.random.Generator, evaluate: Evaluate, lower_bound: int,
+                      end: float, seed_end: float, history: _Phases,
+                      term_bounds: tuple[float, float] | None) -> Island:
+    """Phase 3 of `solve_ga`: seeded with the best of `island`, the greedy plan, the best
+    completion orders read back from its makespan (`seeding.completion_seeds`), at most half
+    of the other places, and the rest of `island`."""
+    mu = settings.population.mu
+    horizon = int(island.score[0, MAKESPAN])
+    seeds, seed_keys = completion_seeds(inst, lower_bound, settings.completion.completion_seeds,
+                                        horizon=horizon, deadline=seed_end)
+    n_var = min(len(seeds) - 1, max(0, mu - 2) // 2 if len(island.assign) > 1 else mu)
+    n_own = max(1, mu - 1 - n_var)
+    orders = island.orders if island.orders.ndim == 2 else np.broadcast_to(
+        island.orders, (len(island.assign), inst.n_jobs))
+    own_keys = np.stack([keys_for_order(inst, o) for o in orders[:n_own]])
+    own = island.assign[:n_own]
+    assign = np.concatenate([own[:1], seeds[: 1 + n_var], own[1:]])
+    keys = np.concatenate([own_keys[:1], seed_keys[: 1 + n_var], own_keys[1:]])
+    history.start()
+    return run_island(inst, settings.replace(stopping={
+        "stagnation": settings.completion.completion_stagnation}), rng=rng, evaluate=evaluate,
+        lower_bound=lower_bound, deadline=end, on_generation=history.add,
+        initial=(assign, keys), final=True, term_bounds=term_bounds)

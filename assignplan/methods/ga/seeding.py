@@ -11,7 +11,12 @@ from assignplan.methods.ga.encoding import EligibleIndex, random_population
 from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.ga.selection import lex_rank
 from assignplan.methods.ga.settings import GASettings
-from assignplan.methods.greedy import greedy_assign
+from assignplan.methods.greedy import (
+    best_plan,
+    candidate_plans,
+    completion_variants,
+    greedy_assign,
+)
 from assignplan.plan import objective
 from assignplan.schedule import check_order
 
@@ -77,3 +82,40 @@ def initial_population(inst: Instance, settings: GASettings, index: EligibleInde
     rest = random_population(inst, mu - len(seeds), index, rng=rng)
     all_keys = np.stack(keys + [keys[best]] * len(rest))
     return np.concatenate([seeds, rest]), all_keys, best
+
+
+def plan_keys(inst: Instance, start: np.ndarray) -> np.ndarray:
+    """float64[J] order keys that decode a plan in its start order (ties by inst.order), so
+    the builder starts no job later than the plan does (`repack.start_order`)."""
+    from assignplan.methods.ga.improvers.repack import keys_for_order, start_order
+
+    return keys_for_order(inst, start_order(start, inst.order))
+
+
+def completion_seeds(inst: Instance, makespan_bound: int, n: int, *,
+                     horizon: int | None = None, deadline: float | None = None
+                     ) -> tuple[np.ndarray, np.ndarray]:
+    """(int64[k, J] plans, float64[k, J] their order keys), best first: the greedy method's
+    plan (`greedy.candidate_plans`, best of them), then the n lexicographically best distinct
+    plans of `greedy.completion_variants` read backwards from `horizon` (default: the greedy
+    plans' best makespan) that differ from it. The greedy plan always comes first, so a phase
+    seeded with these ends no worse than greedy in the objective's own order."""
+    plans = candidate_plans(inst, makespan_bound)
+    first = plans[best_plan(inst, plans)]
+    if horizon is None:
+        horizon = min(int(inst.end_times(*p).max()) for p in plans.values())
+    pool = [first] + list(plans.values())
+    if n > 0:
+        pool += completion_variants(inst, horizon, deadline=deadline)
+    scores = np.array([objective(inst, inst.end_times(*p)) for p in pool])
+    rank = [0] + [k for k in np.argsort(lex_rank(scores), kind="stable").tolist() if k]
+    chosen, seen = [], set()
+    for k in rank:
+        code = pool[k][0].tobytes() + pool[k][1].tobytes()
+        if code not in seen:
+            seen.add(code)
+            chosen.append(k)
+        if len(chosen) == n + 1:
+            break
+    return (np.stack([pool[k][0] for k in chosen]),
+            np.stack([plan_keys(inst, pool[k][1]) for k in chosen]))

@@ -15,6 +15,7 @@ records the settings it was made with.
 from __future__ import annotations
 
 import json
+import math
 import tomllib
 from pathlib import Path
 from typing import Literal
@@ -141,26 +142,83 @@ class SeedingSettings(BaseModel):
                     "relaxation nothing; 0: no reserved phase.")
 
 
+class CompletionSettings(BaseModel):
+    """The final phase: the best makespan and tardiness held (lexicographic selection), the
+    weighted completion time minimised."""
+
+    model_config = _FROZEN
+    completion_share: float = Field(
+        default=0.3, ge=0.0, le=1.0,
+        description="Share of the budget kept for the final phase (a makespan phase that "
+                    "stops early, at the bound or out of patience, leaves it the rest); it "
+                    "runs at most this share of `stopping.generations` on top of them. "
+                    "0: no final phase.")
+    completion_stagnation: int = Field(
+        default=20, ge=1, le=10_000_000,
+        description="The final phase stops after this many generations without a better "
+                    "weighted completion time.")
+    patience: float = Field(
+        default=0.2, gt=0.0, le=1.0,
+        description="Share of the budget the makespan phase may go without a better "
+                    "(makespan, tardiness) before the final phase takes over (with a final "
+                    "phase only).")
+    completion_seeds: int = Field(
+        default=6, ge=0, le=10_000,
+        description="List-scheduling plans of completion orders (`greedy.completion_variants`)"
+                    " seeded into the final phase, the lexicographically best first.")
+    completion_seed_time: float = Field(
+        default=0.1, ge=0.0, le=1.0,
+        description="Share of the budget the completion variants may take to build.")
+    redecode_trials: int = Field(
+        default=12, ge=0, le=10_000,
+        description="Completion orders each node of the best plan may take per generation "
+                    "of the final phase, its nodes kept (`improvers.redecode`); 0: off.")
+    redecode_rounds: int = Field(
+        default=8, ge=1, le=10_000,
+        description="Re-decodings of the best plan per generation while each one helps.")
+    resequence_trials: int = Field(
+        default=10_000, ge=0, le=10_000_000,
+        description="Node rebuilds the node-local re-sequencing by Smith's rule may spend on "
+                    "the best plan per generation of the final phase "
+                    "(`improvers.resequence`); 0: off.")
+    window_jobs: int = Field(
+        default=25, ge=0, le=10_000,
+        description="Jobs of a time window of the best plan CP-SAT re-assigns and re-times per "
+                    "generation of the final phase (`improvers.window`); 0 or 1: off.")
+    window_effort: float = Field(
+        default=0.05, gt=0.0, le=60.0,
+        description="CP-SAT deterministic time limit of one window repacking.")
+
+
 class StoppingSettings(BaseModel):
     """When a run ends (besides the time budget and reaching the lower bound)."""
 
     model_config = _FROZEN
-    generations: int = Field(default=2_000, ge=0, le=10_000_000,
-                             description="Most generations (the budget usually ends the run "
-                                         "first); `--generations` sets it.")
+    generations: int = Field(default=2_000, ge=0, le=10_000_000, description=(
+        "Generations of the makespan phases (the budget usually ends the run first; the "
+        "final phase adds at most completion.completion_share of this many); "
+        "`--generations` sets it."))
     stagnation: int = Field(default=300, ge=1, le=10_000_000,
                             description="Stop after this many generations without a better best.")
 
 
 class GASettings(BaseModel):
-    """Every setting of the genetic algorithm, in five groups."""
+    """Every setting of the genetic algorithm, in six groups."""
 
     model_config = _FROZEN
     population: PopulationSettings = PopulationSettings()
     variation: VariationSettings = VariationSettings()
     improvement: ImprovementSettings = ImprovementSettings()
     seeding: SeedingSettings = SeedingSettings()
+    completion: CompletionSettings = CompletionSettings()
     stopping: StoppingSettings = StoppingSettings()
+
+    @property
+    def most_generations(self) -> int:
+        """The most generations a run can record: the makespan phases' and the final
+        phase's share on top of them."""
+        gens = self.stopping.generations
+        return gens + math.ceil(self.completion.completion_share * gens)
 
     def replace(self, **groups: dict) -> GASettings:
         """A copy with some fields of some groups changed:
@@ -233,10 +291,11 @@ def _plain(error: dict) -> str:
     return message.replace("Input should be", "must be").replace("Value error, ", "")
 
 
-_GROUP_OF = {name: group for group, model in (
+_GROUP_OF = {name: group for group, model in (  # every field name is unique across groups
     ("population", PopulationSettings), ("variation", VariationSettings),
     ("improvement", ImprovementSettings), ("seeding", SeedingSettings),
-    ("stopping", StoppingSettings)) for name in model.model_fields}
+    ("completion", CompletionSettings), ("stopping", StoppingSettings))
+    for name in model.model_fields}
 
 
 def ga_settings(**fields) -> GASettings:

@@ -10,7 +10,13 @@ key. The loop knows none of their settings.
 - `OrderPromotion`: the same node's decoding order (best offspring; evolved orders only);
 - `Descent`: node-local moves, swaps and ejection chains off the last-ending node, each
   trial rebuilding only the nodes it touches (best member);
-- `Repack`: CP-SAT re-assigns the jobs of the makespan node and a few partners (best member).
+- `Repack`: CP-SAT re-assigns the jobs of the makespan node and a few partners (best member);
+- `Redecode` (the final phase's): the best member's nodes kept, its jobs re-timed in
+  completion orders, node by node (`redecode`);
+- `Resequence` (the final phase's): jobs moved forward in their node's sequence by Smith's
+  rule, or to other nodes, while every node ends by the makespan (`resequence`);
+- `WindowRepack` (the final phase's): CP-SAT re-assigns and re-times the jobs of a time
+  window of the plan for the weighted completion time (`window`).
 """
 
 from __future__ import annotations
@@ -26,8 +32,13 @@ from assignplan.methods.ga.encoding import EligibleIndex
 from assignplan.methods.ga.improvers.descent import descent_step
 from assignplan.methods.ga.improvers.moves import improve
 from assignplan.methods.ga.improvers.order import improve_order
+from assignplan.methods.ga.improvers.redecode import redecode_trial
 from assignplan.methods.ga.improvers.repack import repack_step
-from assignplan.methods.ga.population import Population, Scorer
+from assignplan.methods.ga.improvers.resequence import resequence_step
+from assignplan.methods.ga.improvers.window import window_step
+from assignplan.methods.ga.order_keys import orders_from_keys
+from assignplan.methods.ga.population import MAKESPAN, Population, Scorer
+from assignplan.methods.ga.selection import lex_less
 from assignplan.methods.ga.settings import GASettings
 
 
@@ -126,8 +137,67 @@ class Repack:
         return pool if found is None else c.replaced(pool, b, *found)
 
 
-def improvers(settings: GASettings, ctx: Context) -> list[Improver]:
-    """The steps `settings.improvement` turns on, in the order they run."""
+@dataclass(frozen=True, eq=False)
+class Redecode:
+    ctx: Context
+    trials: int
+    rounds: int  # re-decodings of the best member while each one helps
+
+    def improve(self, pool: Population, *, rng: np.random.Generator) -> Population:
+        c, b = self.ctx, self.ctx.best(pool)
+        if pool.keys is None:  # one fixed decoding order: nothing to re-decode into
+            return pool
+        assign = pool.assign[b]
+        for _ in range(self.rounds):
+            keys = redecode_trial(c.inst, assign, int(pool.score[b, MAKESPAN]),
+                                  c.order_of(pool, b), self.trials, rng=rng)[None]
+            scores = c.scorer.build(assign[None], orders_from_keys(c.inst, keys))
+            if not lex_less(c.scorer.key_of(assign[None], scores), pool.key[b])[0]:
+                break
+            pool = c.replaced(pool, b, assign, keys[0], scores[0])
+        return pool
+
+
+@dataclass(frozen=True, eq=False)
+class Resequence:
+    ctx: Context
+    budget: int
+
+    def improve(self, pool: Population, *, rng: np.random.Generator) -> Population:
+        c, b = self.ctx, self.ctx.best(pool)
+        found = resequence_step(pool.assign[b], None if pool.keys is None else pool.keys[b],
+                                pool.score[b], c.inst, c.order_of(pool, b), c.scorer.build,
+                                c.scorer.key_of, budget=self.budget, justify=c.justify)
+        return pool if found is None else c.replaced(pool, b, *found)
+
+
+@dataclass(frozen=True, eq=False)
+class WindowRepack:
+    ctx: Context
+    size: int
+    effort: float
+
+    def improve(self, pool: Population, *, rng: np.random.Generator) -> Population:
+        c, b = self.ctx, self.ctx.best(pool)
+        found = window_step(pool.assign[b], None if pool.keys is None else pool.keys[b],
+                            pool.score[b], c.inst, c.order_of(pool, b), c.scorer.build,
+                            c.scorer.key_of, size=self.size, deterministic_time=self.effort,
+                            justify=c.justify, rng=rng)
+        return pool if found is None else c.replaced(pool, b, *found)
+
+
+def improvers(settings: GASettings, ctx: Context, *, final: bool = False) -> list[Improver]:
+    """The steps `settings.improvement` turns on, in the order they run; in the final phase
+    (`final`), the completion phase's steps (`settings.completion`) instead."""
+    if final:
+        comp, steps = settings.completion, []
+        if comp.redecode_trials and settings.variation.evolve_order:
+            steps.append(Redecode(ctx, comp.redecode_trials, comp.redecode_rounds))
+        if comp.resequence_trials:
+            steps.append(Resequence(ctx, comp.resequence_trials))
+        if comp.window_jobs >= 2:
+            steps.append(WindowRepack(ctx, comp.window_jobs, comp.window_effort))
+        return steps
     imp = settings.improvement
     steps: list[Improver] = []
     if imp.local_search:
