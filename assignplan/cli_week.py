@@ -200,6 +200,7 @@ def register(app: typer.Typer) -> None:
     """Mount the commands of this module on the `assignplan` app."""
     app.command(name="replan")(reports_errors(_checked(replan)))
     app.command(name="diff")(reports_errors(diff))
+    app.command(name="size")(reports_errors(size))
 
 
 def _checked(command):
@@ -216,3 +217,86 @@ def _checked(command):
             raise typer.Exit(1) from None
 
     return wrapper
+
+
+def size(
+    batch: BatchArg,
+    within: Annotated[float | None, typer.Option(
+        "--within", metavar="HOURS", min=0.0,
+        help="Deadline: the plan must end within this many hours of the window start.")]
+    = None,
+    by: Annotated[str | None, typer.Option(
+        "--by", metavar="TIME", help="Deadline as a calendar time (or hours from the window "
+        "start).")] = None,
+    vary: Annotated[list[str] | None, typer.Option(
+        "--vary", metavar="GROUP", help="A node group to size (repeatable; default: every "
+        "group).")] = None,
+    seed: SeedOpt = 0,
+    budget: Annotated[float, typer.Option(
+        "--budget", metavar="SECONDS", min=0.1, help="Time for all the probes together.")]
+    = 120.0,
+    probe: Annotated[float, typer.Option(
+        "--probe", metavar="SECONDS", min=0.1, help="ga budget of one probe (after greedy).")]
+    = 3.0,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the sizing as JSON.")] = False,
+) -> None:
+    """How many nodes of each group the batch needs to end by a deadline: counts ruled out
+    by the lower bound, counts confirmed by a plan (greedy, then a short ga run)."""
+    from assignplan.reading import calendar_hours, parse_batch_text, read_text
+    from assignplan.sizing import CONFIRMED, size_batch, size_record
+    from assignplan.units import clock, floor_minutes, number
+
+    if (within is None) == (by is None):
+        raise InputError("size: give the deadline as --within HOURS or --by TIME (one of them)")
+    doc = parse_batch_text(read_text(batch), str(batch))
+    origin = doc.window.start
+    if within is not None:
+        hours = within
+    else:
+        value = _now_value(by)
+        if isinstance(value, datetime):
+            problems: list[str] = []
+            hours = calendar_hours(value, origin, "--by", problems)
+            if problems:
+                raise InputError(problems)
+            if hours <= 0:
+                raise InputError(f"--by {by}: not after the window start ({origin.isoformat()})")
+        else:
+            hours = value
+    deadline = floor_minutes(hours * 60)  # a plan ends by the deadline: whole minutes
+    result = size_batch(doc, deadline, vary=tuple(vary or ()), seed=seed, budget=budget,
+                        probe_seconds=probe)
+    record = size_record(result, origin)
+    if as_json:
+        typer.echo(json.dumps(record, indent=2))
+        return
+    unit = "cost" if result.cost is not None else "nodes"
+    typer.echo(f"deadline {clock(origin, deadline)} ({number(deadline / 60, 2)} h from the"
+               " window start)")
+    if result.found is None:
+        typer.echo("no count tried was confirmed by a plan (the groups were grown up to x4);"
+                   " the deadline may be out of reach")
+    for k, name in enumerate(result.groups):
+        now_count = result.current[k]
+        if name not in result.varied:
+            typer.echo(f"  {name}: {now_count} (held)")
+            continue
+        found = "–" if result.found is None else str(result.found[k])
+        low = result.bound_min.get(name)
+        low_text = "" if low is None else (
+            f"; the bound rules out fewer than {low}"
+            + (" (by bisection)" if result.bisected.get(name) else ""))
+        typer.echo(f"  {name}: {found} (now {now_count}){low_text}")
+    if result.found is not None:
+        typer.echo(f"found: {number(result.total(result.found), None)} {unit} in all,"
+                   f" {CONFIRMED}; a count between the bound's minimum and it may still allow"
+                   " a plan the probes did not find")
+    typer.echo("probes (makespan against node count):")
+    for p in record["probes"]:
+        counts = ", ".join(f"{g} {c}" for g, c in p["counts"].items())
+        plan = " ".join(f"{m} {number(p[f'{m}_h'], 2)} h" for m in ("greedy", "ga")
+                        if p[f"{m}_h"] is not None)
+        bound = "no node for some job" if p["lower_bound_h"] is None else \
+            f"bound {number(p['lower_bound_h'], 2)} h"
+        typer.echo(f"  {counts} ({p['nodes']} nodes): {bound}" + (f", {plan}" if plan else "")
+                   + f": {p['verdict']}")
