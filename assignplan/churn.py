@@ -18,7 +18,8 @@ looks for plans no worse on the objective and with less churn (`least_churn`):
 3. the old plan itself: every job that can stay on its old node kept there, the others
    placed by greedy list scheduling.
 
-The plan with the least churn among those no worse than the method's wins; with nothing to
+The plan with the least churn among those no worse than the method's wins (`terms=2` ranks
+churn before the weighted completion time instead: `replan --fewer-moves`); with nothing to
 reduce (the old plan's nodes and starts kept) the method's plan comes back unchanged, so a
 replan of an unchanged week is the solve of it.
 """
@@ -108,10 +109,11 @@ def _eligible_back(inst: Instance, base: Baseline, assign: np.ndarray) -> np.nda
 
 
 def _lex_le(rows: np.ndarray, ref: tuple) -> np.ndarray:
-    """bool[P]: each fitness row (makespan, tardiness, completion) <= ref lexicographically."""
+    """bool[P]: each fitness row (makespan, tardiness, completion) <= ref lexicographically,
+    over the first len(ref) terms."""
     out = np.zeros(len(rows), dtype=bool)
     tie = np.ones(len(rows), dtype=bool)
-    for c in range(3):
+    for c in range(len(ref)):
         out |= tie & (rows[:, c] < ref[c])
         tie &= rows[:, c] == ref[c]
     return out | tie
@@ -141,7 +143,7 @@ def moved_back(inst: Instance, base: Baseline, assign: np.ndarray, order: np.nda
         if not len(good):
             break
         assign = prefix[good[-1]]
-        ref = tuple(fit[good[-1]])
+        ref = tuple(fit[good[-1]])[: len(ref)]
     return assign
 
 
@@ -166,20 +168,23 @@ def keep_old(inst: Instance, base: Baseline) -> tuple[np.ndarray, np.ndarray]:
 
 
 def least_churn(inst: Instance, result: PlanResult, base: Baseline, *,
-                deadline: float) -> PlanResult:
+                deadline: float, terms: int = 3) -> PlanResult:
     """The plan of least churn among `result` (relabelled), its jobs moved back, and the
-    old plan kept; only plans no worse than `result` on the objective count (see the
-    module docstring). `result` comes back unchanged when none has less churn."""
-    ref = objective(inst, result.end)
+    old plan kept; only plans no worse than `result` on the first `terms` terms of the
+    objective count (see the module docstring; 3: churn after the whole objective, 2: churn
+    before the weighted completion time). `result` comes back unchanged when none has less
+    churn."""
+    ref = objective(inst, result.end)[:terms]
     first = churn_of(base, result.assign, result.start).key
-    best, best_key = result, (ref, first)
+    best, best_key = result, (ref, first, objective(inst, result.end)[terms:])
     if first == (0, 0):
         return result
 
     def offer(assign: np.ndarray, start: np.ndarray) -> None:
         nonlocal best, best_key
         end = inst.end_times(assign, start)
-        key = (objective(inst, end), churn_of(base, assign, start).key)
+        full = objective(inst, end)
+        key = (full[:terms], churn_of(base, assign, start).key, full[terms:])
         if key[0] <= ref and key[1] < first and key < best_key:
             best, best_key = replace(result, assign=assign, start=start, end=end), key
 

@@ -63,6 +63,9 @@ def replan(
     free: Annotated[bool, typer.Option(
         "--free", help="No churn tie-break: plan the jobs not yet started as from scratch.")]
     = False,
+    fewer_moves: Annotated[bool, typer.Option(
+        "--fewer-moves", help="Rank fewer moved and shifted jobs before the weighted "
+        "completion time (after makespan and tardiness), not after it.")] = False,
     as_planned: Annotated[bool, typer.Option(
         "--as-planned", help="Jobs the state does not list that the old plan started before "
         "now are taken to have run as planned (done, or running until their planned end).")]
@@ -90,6 +93,8 @@ def replan(
     from assignplan.files import all_or_nothing, check_output_file
 
     check_output_file(out, "--out")
+    if free and fewer_moves:
+        raise InputError("--free and --fewer-moves: choose one (--free has no churn term)")
     settings = method_settings(method, generations, ga_settings, force)
     inventory = what_if(without, down, add, changes)
     moment = _now_value(now)
@@ -103,7 +108,8 @@ def replan(
     for line in given.batch.warnings:
         typer.echo(f"{batch}: warning: {line}", err=True)
     with _method_step(steps, f"replanning with {method}"):
-        done = run(given, method, seed=seed, budget=budget, settings=settings, free=free)
+        done = run(given, method, seed=seed, budget=budget, settings=settings, free=free,
+                   fewer_moves=fewer_moves)
     from assignplan.check import check_plan
     from assignplan.diff import diff_lines, diff_record, plan_diff
     from assignplan.plan import to_plan_doc
@@ -128,7 +134,8 @@ def replan(
              + (f" ({done.churn.forced:,} had to: their node is gone)"
                 if done.churn.forced else "")
              + f", {counted(done.churn.shifted, 'start')} shifted by more than an hour"
-             + (" (--free: no churn tie-break)" if free else "")]
+             + (" (--free: no churn tie-break)" if free else "")
+             + (" (--fewer-moves: ranked before the completion time)" if fewer_moves else "")]
     lines += stopped_lines(pins)
     difference = plan_diff(done.inst, given.old, replan_rows(done))
     extra = {"replan": {"now": clock(origin, pins.now), "pinned": len(pins.jobs),

@@ -21,7 +21,7 @@ from pathlib import Path
 from pydantic import BaseModel
 
 from assignplan.bounds import lower_bound
-from assignplan.churn import Churn, baseline, churn_of, least_churn
+from assignplan.churn import Churn, baseline, churn_of, keep_old, least_churn
 from assignplan.diff import Row, Rows, rows_of_result
 from assignplan.errors import InputError
 from assignplan.expand import ExpandedBatch, can_hold, expand_batch
@@ -193,9 +193,10 @@ class Replanned:
 
 def replan(given: ReplanInput, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
            settings: BaseModel | None = None, free: bool = False,
-           progress=None) -> Replanned:
+           fewer_moves: bool = False, progress=None) -> Replanned:
     """Plan the jobs of `given` not yet started (see the module docstring) within `budget`
-    seconds; `free`: no churn tie-break (plan them as from scratch)."""
+    seconds; `free`: no churn tie-break (plan them as from scratch); `fewer_moves`: churn
+    ranks before the weighted completion time (after makespan and weighted tardiness)."""
     from assignplan.solve import solve
 
     t0 = time.perf_counter()
@@ -208,15 +209,21 @@ def replan(given: ReplanInput, method: str = "ga", *, seed: int = 0, budget: flo
     free_bound = None
     if part.inst is not None:
         free_bound = lower_bound(part.inst, deadline=deadline)
-        share = 1.0 if free or not given.old else 1.0 - CHURN_SHARE
-        result = solve(part.inst, method, seed=seed,
-                       budget=max(0.0, share * (deadline - time.perf_counter())),
-                       settings=settings, progress=progress, bound=free_bound)
         base = baseline(part.inst, [_old_row(given.old.get(n)) for n in part.inst.job_names],
                         {n: i for i, n in enumerate(part.inst.node_names)})
-        if not free and given.old:
+        churn_counts = not free and bool(given.old)
+        share = 1.0 - CHURN_SHARE if churn_counts else 1.0
+        # The old plan, kept where it can be, is a plan to start from, unless the week is
+        # unchanged (nothing pinned, now at the window start): then the replan is the solve.
+        changed = bool(pins.jobs) or pins.now > 0
+        hint = keep_old(part.inst, base) if churn_counts and changed else None
+        result = solve(part.inst, method, seed=seed,
+                       budget=max(0.0, share * (deadline - time.perf_counter())),
+                       settings=settings, progress=progress, bound=free_bound, hint=hint)
+        if churn_counts:
             result = least_churn(part.inst, result, base,
-                                 deadline=max(deadline, time.perf_counter() + 1.0))
+                                 deadline=max(deadline, time.perf_counter() + 1.0),
+                                 terms=2 if fewer_moves else 3)
         churn = churn_of(base, result.assign, result.start)
     bound = replan_bound(free_bound, pins)
     whole = merge(inst, part, result, pins, bound)
