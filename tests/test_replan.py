@@ -268,3 +268,24 @@ def test_a_job_running_on_a_node_that_went_down_is_replanned_and_said_so(tmp_pat
             result.stdout and "its progress lost" in result.stdout)
     train = next(a for a in json.loads(new.read_text())["assignments"] if a["job"] == "train")
     assert train["start_h"] >= now + 2  # the only node that can hold it is down until then
+
+
+def test_the_readme_example_replans_the_bundled_week(tmp_path):
+    """README: the bundled week on Wednesday noon (examples/week-wednesday.json)."""
+    examples = SMALL.parent
+    week = examples / "institute-week.json"
+    old = tmp_path / "week.json"
+    result = runner.invoke(app, ["solve", str(week), "--method", "greedy", "--out", str(old)])
+    assert result.exit_code == 0, result.output
+    new = tmp_path / "week-new.json"
+    result = runner.invoke(app, ["replan", str(week), str(old), "--state",
+                                 str(examples / "week-wednesday.json"), "--as-planned",
+                                 "--method", "greedy", "--out", str(new), "--json"])
+    assert result.exit_code == 0, result.output
+    summary = json.loads(result.stdout)["replan"]
+    assert summary["now"] == "Wed 09 Dec 12:00"
+    assert len(summary["progress_lost"]) >= 1  # a job was running on a node that went down
+    assert summary["diff"]["only_in_b"] == ["urgent-reanalysis", "ml-finetune",
+                                            "climate-extra-plots"]
+    rows = {a["job"]: a for a in json.loads(new.read_text())["assignments"]}
+    assert rows["materials-md-24"]["end"] == "2026-12-10T02:00:00"  # overran, pinned
