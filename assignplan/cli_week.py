@@ -246,9 +246,15 @@ def size(
         "--probe", metavar="SECONDS", min=0.1, help="ga budget of one probe (after greedy).")]
     = 3.0,
     as_json: Annotated[bool, typer.Option("--json", help="Print the sizing as JSON.")] = False,
+    report: Annotated[Path | None, typer.Option(
+        metavar="REPORT.html", help="Also write a page with the chart of makespan against "
+        "node count and every probe.")] = None,
 ) -> None:
     """How many nodes of each group the batch needs to end by a deadline: counts ruled out
     by the lower bound, counts confirmed by a plan (greedy, then a short ga run)."""
+    from assignplan.files import all_or_nothing, check_output_file
+
+    check_output_file(report, "--report")
     from assignplan.reading import calendar_hours, parse_batch_text, read_text
     from assignplan.sizing import CONFIRMED, size_batch, size_record
     from assignplan.units import clock, floor_minutes, number
@@ -274,6 +280,12 @@ def size(
     result = size_batch(doc, deadline, vary=tuple(vary or ()), seed=seed, budget=budget,
                         probe_seconds=probe)
     record = size_record(result, origin)
+    if report is not None:
+        from assignplan.report.sizing import write_sizing_report
+
+        with all_or_nothing():
+            write_sizing_report(report, record, f"Sizing {batch.name}")
+        typer.echo(f"wrote {report}", err=True)
     if as_json:
         typer.echo(json.dumps(record, indent=2))
         return

@@ -38,7 +38,7 @@ from bench_risk import machine  # noqa: E402
 from assignplan.expand import load_batch  # noqa: E402
 from assignplan.generate import batch_doc, generate  # noqa: E402
 from assignplan.instance import build_instance  # noqa: E402
-from assignplan.plan import to_plan_doc  # noqa: E402
+from assignplan.plan import objective, to_plan_doc  # noqa: E402
 from assignplan.replan import load_replan, replan  # noqa: E402
 from assignplan.solve import solve  # noqa: E402
 
@@ -137,15 +137,18 @@ def main(argv: list[str] | None = None) -> int:
              " Moved: jobs planned again on another node than the old plan's; shifted: starts"
              " moved by more than an hour; both over the jobs planned again.", "",
              "| batch seed | old makespan h | now h | pinned | stopped | planned again | method"
-             " | tie-break | time | makespan h | lower bound h | moved | shifted | reading |",
-             "|---:|---:|---:|---:|---:|---:|---|---|---:|---:|---:|---:|---:|---:|"]
+             " | tie-break | time | makespan h | lower bound h | weighted tardiness h |"
+             " weighted completion h | moved | shifted | reading |",
+             "|---:|---:|---:|---:|---:|---:|---|---|---:|---:|---:|---:|---:|---:|---:|---:|"]
     for facts, rows in weeks:
         for method, mode, seconds, out in rows:
+            terms = objective(out.inst, out.result.end)
             lines.append(
                 f"| {facts['seed']} | {facts['old']:.2f} | {facts['now']:.2f} |"
                 f" {facts['pinned']:,} | {facts['lost']} | {facts['replanned']:,} | {method} |"
                 f" {TIE_BREAKS[mode]} | {seconds:.1f} s |"
                 f" {out.result.makespan / 60:.2f} | {out.result.lower_bound / 60:.2f} |"
+                f" {terms[1] / 60:,.1f} | {terms[2] / 60:,.1f} |"
                 f" {out.churn.moved:,} | {out.churn.shifted:,} | {facts['reading']:.1f} s |")
     lines += ["", "Reproduce: `.venv/bin/python benchmarks/bench_replan.py --seeds"
               f" {args.seeds} --old-seconds {args.old_seconds:g} --seconds {args.seconds:g}`"

@@ -95,3 +95,17 @@ def test_size_command_says_confirmed_and_ruled_out(tmp_path):
                                  "--vary", "nosuch"])
     assert result.exit_code == 2
     assert result.stderr.startswith("--vary nosuch: no node group named 'nosuch'")
+
+
+def test_size_report_page_has_the_chart_and_every_probe(tmp_path):
+    page = tmp_path / "size.html"
+    result = runner.invoke(app, ["size", str(_two_groups(tmp_path, None)), "--within", "12",
+                                 "--vary", "cheap", "--report", str(page), "--budget", "30",
+                                 "--probe", "2"])
+    assert result.exit_code == 0, result.output
+    html = page.read_text(encoding="utf-8")
+    assert "<svg" in html and "Makespan against node count" in html
+    assert html.count("<tr><td>") == len(json.loads(runner.invoke(app, [
+        "size", str(_two_groups(tmp_path, None)), "--within", "12", "--vary", "cheap",
+        "--json", "--budget", "30", "--probe", "2"]).stdout)["probes"])
+    assert "confirmed by a plan" in html and "ruled out by the bound" in html
