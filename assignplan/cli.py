@@ -572,16 +572,39 @@ def check(
     plan: Annotated[Path, typer.Argument(help="Plan JSON to verify.", show_default=False)],
     as_json: Annotated[bool, typer.Option("--json", help="Print the violations as JSON.")]
     = False,
+    state: Annotated[Path | None, typer.Option(
+        "--state", metavar="STATE", help="Check a replanned plan with its pins: the state it "
+        "was replanned from (needs --old).")] = None,
+    old: Annotated[Path | None, typer.Option(
+        "--old", metavar="PLAN.json", help="With --state: the plan that was replaced.")]
+    = None,
+    now: Annotated[str | None, typer.Option(
+        "--now", metavar="TIME", help="With --state: the moment of the replan (default: "
+        "the state's now).")] = None,
+    as_planned: Annotated[bool, typer.Option(
+        "--as-planned", help="With --state: as `replan --as-planned`.")] = False,
 ) -> None:
     """Verify any plan against its batch; list every violation (exit 1 if there is any)."""
     from assignplan.check import check_plan, summary_line
     from assignplan.reading import load_plan
     from assignplan.units import hours_of, iso
 
-    expanded = load_batch_and_warn(batch)
+    pins = None
+    if (state is None) != (old is None):
+        raise InputError("--state and --old: a replanned plan is checked with both")
+    if state is None:
+        if now is not None or as_planned:
+            raise InputError("--now and --as-planned: only --state reads them")
+        expanded = load_batch_and_warn(batch)
+    else:
+        from assignplan.cli_week import _now_value
+        from assignplan.replan import load_replan
+
+        given = load_replan(batch, old, state, now=_now_value(now), as_planned=as_planned)
+        expanded, pins = given.batch, given.pins
     doc = load_plan(plan)
     try:
-        violations = check_plan(expanded, doc)
+        violations = check_plan(expanded, doc, pins)
     except InputError as err:
         raise InputError([f"{plan}: {p}" for p in err.problems]) from None
     if as_json:

@@ -188,6 +188,16 @@ def test_replan_command_says_moves_and_diff(tmp_path):
     assert "moved to another node" in out and "shifted by more than an hour" in out
     assert "differences against the old plan" in out
     assert "what-if: cpu-2 down from Mon 07 Dec 11:00" in out
+    state = ["--state", str(tmp_path / "state.json"), "--old", str(tmp_path / "old.json"),
+             "--as-planned"]
+    checked = runner.invoke(app, ["check", str(SMALL), str(new), *state])
+    assert checked.exit_code == 0, checked.output
+    # the old plan breaks the state: cpu-2 is down from 11:00 under its jobs
+    checked = runner.invoke(app, ["check", str(SMALL), str(tmp_path / "old.json"), *state])
+    assert checked.exit_code == 1 and "maintenance" in checked.stdout
+    checked = runner.invoke(app, ["check", str(SMALL), str(new), "--state",
+                                  str(tmp_path / "state.json")])
+    assert checked.exit_code == 2
 
 
 @pytest.mark.parametrize("state,expected", [
