@@ -118,6 +118,24 @@ def one_week(seed: int, old_seconds: float, seconds: float) -> tuple[dict, list]
     return facts, rows
 
 
+def summary_lines(figures: list[tuple]) -> list[str]:
+    """Moves and shifts of each tie-break relative to --free on the same week and method, and
+    what --fewer-moves costs in weighted completion time (medians and ranges).
+    `figures`: (seed, method, mode, moved, shifted, weighted completion) per replan."""
+    free = {(f[0], f[1]): f for f in figures if f[2] == "free"}
+    out = []
+    for mode in ("churn", "fewer"):
+        moved = [100 * (f[3] / free[f[:2]][3] - 1) for f in figures if f[2] == mode]
+        shifted = [100 * (f[4] / free[f[:2]][4] - 1) for f in figures if f[2] == mode]
+        cost = [100 * (f[5] / free[f[:2]][5] - 1) for f in figures if f[2] == mode]
+        out.append(f"{TIE_BREAKS[mode]}: moved {np.median(moved):+.0f} % (from"
+                   f" {min(moved):+.0f} to {max(moved):+.0f} %), shifted"
+                   f" {np.median(shifted):+.0f} %, weighted completion {np.median(cost):+.1f} %"
+                   f" (from {min(cost):+.1f} to {max(cost):+.1f} %) against --free, over"
+                   f" {len(moved)} replans (3 weeks x ga and greedy).")
+    return out
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seeds", default="1,2,3")
@@ -150,6 +168,10 @@ def main(argv: list[str] | None = None) -> int:
                 f" {out.result.makespan / 60:.2f} | {out.result.lower_bound / 60:.2f} |"
                 f" {terms[1] / 60:,.1f} | {terms[2] / 60:,.1f} |"
                 f" {out.churn.moved:,} | {out.churn.shifted:,} | {facts['reading']:.1f} s |")
+    figures = [(facts["seed"], method, mode, out.churn.moved, out.churn.shifted,
+                objective(out.inst, out.result.end)[2])
+               for facts, rows in weeks for method, mode, _, out in rows]
+    lines += ["", *summary_lines(figures)]
     lines += ["", "Reproduce: `.venv/bin/python benchmarks/bench_replan.py --seeds"
               f" {args.seeds} --old-seconds {args.old_seconds:g} --seconds {args.seconds:g}`"
               " (from the repository root).", "",
