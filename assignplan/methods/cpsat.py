@@ -64,6 +64,32 @@ def add_job(m: cp_model.CpModel, inst: Instance, j: int, nodes: np.ndarray, lo: 
     return s, e, presence
 
 
+def add_freed_jobs(m: cp_model.CpModel, inst: Instance, freed: list[int],
+                   nodes: list[np.ndarray], window: list[tuple[int, int]], slots: NodeSlots,
+                   plan: tuple[np.ndarray, np.ndarray, np.ndarray]
+                   ) -> tuple[list, list, list[dict[int, cp_model.IntVar]]]:
+    """The jobs a repacking frees (`add_job` each, on its `nodes` within its `window`),
+    hinted with their place in `plan` (assign, start, end), and the `follows` edges between
+    two of them: (start vars, end vars, per job {node: presence}), in `freed` order."""
+    assign, start, end = plan
+    local = {j: r for r, j in enumerate(freed)}
+    s_var, e_var, x_of = [], [], []
+    for r, j in enumerate(freed):
+        s, e, xs = add_job(m, inst, j, nodes[r], window[r][0], window[r][1], slots)
+        for i, x in xs.items():
+            m.add_hint(x, bool(assign[j] == i))
+        m.add_hint(s, int(start[j]))
+        m.add_hint(e, int(end[j]))
+        s_var.append(s)
+        e_var.append(e)
+        x_of.append(xs)
+    for j in freed:
+        for p in inst.predecessors(j).tolist():
+            if p in local:
+                m.add(e_var[local[p]] <= s_var[local[j]])
+    return s_var, e_var, x_of
+
+
 def add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[int],
                        intervals: list[cp_model.IntervalVar], x: list[cp_model.IntVar],
                        makespan: cp_model.IntVar) -> None:

@@ -28,7 +28,7 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from assignplan.instance import NO_DUE, Instance
-from assignplan.methods.cpsat import NodeSlots, add_job
+from assignplan.methods.cpsat import NodeSlots, add_freed_jobs
 from assignplan.methods.exact import WEIGHT_SCALE
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
@@ -70,25 +70,16 @@ def repack_window(inst: Instance, assign: np.ndarray, start: np.ndarray, freed: 
     opens = int(start[freed].min())
     m = cp_model.CpModel()
     slots = NodeSlots(inst.n_nodes)
-    s_var, e_var, x_of, los = [], [], [], []
+    window = []
     for j in freed.tolist():
         preds = [int(p) for p in inst.predecessors(j).tolist() if p not in local]
         succs = [int(q) for q in inst.successors(j).tolist() if q not in local]
-        lo = max([opens, int(inst.ready[j])] + [int(end[p]) for p in preds])
-        hi = min([horizon, makespan] + [int(start[q]) for q in succs])
-        los.append(lo)
-        s, e, xs = add_job(m, inst, j, inst.elig.nodes_of(j), lo, hi, slots)
-        for i, x in xs.items():
-            m.add_hint(x, bool(assign[j] == i))
-        m.add_hint(s, int(start[j]))
-        m.add_hint(e, int(end[j]))
-        s_var.append(s)
-        e_var.append(e)
-        x_of.append(xs)
-    for j in freed.tolist():
-        for p in inst.predecessors(j).tolist():
-            if p in local:
-                m.add(e_var[local[p]] <= s_var[local[j]])
+        window.append((max([opens, int(inst.ready[j])] + [int(end[p]) for p in preds]),
+                       min([horizon, makespan] + [int(start[q]) for q in succs])))
+    los = [lo for lo, _ in window]
+    s_var, e_var, x_of = add_freed_jobs(
+        m, inst, freed.tolist(), [inst.elig.nodes_of(j) for j in freed.tolist()], window,
+        slots, (assign, start, end))
     _add_capacity(m, inst, assign, start, end, freed, slots, (min(los), horizon))
     w = np.maximum(np.rint(inst.weight[freed] * WEIGHT_SCALE).astype(np.int64), 0)
     late, coef = [], []
