@@ -28,7 +28,7 @@ from assignplan.expand import ExpandedBatch, can_hold, expand_batch
 from assignplan.instance import NO_DUE, Instance, build_instance
 from assignplan.pinning import free_instance, merge, replan_bound
 from assignplan.plan import PlanResult
-from assignplan.reading import load_plan, parse_batch_text, read_text
+from assignplan.reading import load_plan, parse_batch_text, plan_hours, read_text
 from assignplan.state import (
     JobState,
     OldRow,
@@ -38,6 +38,7 @@ from assignplan.state import (
     resolve_state,
     state_now,
 )
+from assignplan.units import duration_minutes
 from assignplan.whatif import Change, window_change
 
 CHURN_SHARE = 0.1  # of the budget kept for the churn tie-break (the method gets the rest)
@@ -102,8 +103,6 @@ def _new_job_path(problem: str, batch_source: str, state_source: str, n_groups: 
 def _old_rows(plan_path: Path | str, batch: ExpandedBatch) -> Rows:
     """The old plan's rows by job name. Its jobs must be jobs of the batch; a node it names
     that the batch no longer has (a what-if removal) is kept by name: those jobs move."""
-    from assignplan.reading import plan_hours
-
     source = str(plan_path)
     doc = load_plan(plan_path)
     try:
@@ -123,8 +122,6 @@ def _old_rows(plan_path: Path | str, batch: ExpandedBatch) -> Rows:
         if end_h is not None:
             end = round(end_h * 60)
         else:
-            from assignplan.units import duration_minutes
-
             end = start + duration_minutes(jobs[a.job].hours, speed.get(a.node, 1.0))
         out[a.job] = Row(a.node, start, end)
     if problems:

@@ -31,6 +31,7 @@ from assignplan.documents import (
     Name,
 )
 from assignplan.errors import InputError
+from assignplan.expand import can_hold
 from assignplan.reading import (
     calendar_hours,
     format_loc,
@@ -38,7 +39,13 @@ from assignplan.reading import (
     read_text,
     validate_json,
 )
-from assignplan.units import MAX_OFFSET_HOURS, ceil_minutes, clock, duration_minutes
+from assignplan.units import (
+    MAX_OFFSET_HOURS,
+    ceil_minutes,
+    clock,
+    duration_minutes,
+    floor_minutes,
+)
 from assignplan.whatif import NamePattern
 
 _STRICT = ConfigDict(strict=True, extra="forbid", frozen=True, allow_inf_nan=False)
@@ -292,8 +299,6 @@ def resolve_state(state: StateDoc, source: str, batch, now: int,
     node fit it together. A running job whose node has a window (down or maintenance)
     starting before its expected end is not pinned but planned again from now (`lost`).
     """
-    from assignplan.expand import can_hold
-
     jobs = {j.name: j for j in batch.jobs}
     nodes = {n.name: n for n in batch.nodes}
     origin = batch.window_start
@@ -313,7 +318,7 @@ def resolve_state(state: StateDoc, source: str, batch, now: int,
                             f"[{seen[s.job]}]); a job is done or running, not both")
             continue
         seen[s.job] = k
-        pin = _pin(s, where, job, nodes, old.get(s.job), origin, now, problems, can_hold)
+        pin = _pin(s, where, job, nodes, old.get(s.job), origin, now, problems)
         if pin is None:
             continue
         if pin.running:
@@ -336,7 +341,7 @@ def resolve_state(state: StateDoc, source: str, batch, now: int,
 
 
 def _pin(s: JobState, where: str, job, nodes: dict, old: OldRow | None, origin: datetime,
-         now: int, problems: list[str], can_hold) -> Pin | None:
+         now: int, problems: list[str]) -> Pin | None:
     """One job's pin, or None (a problem was added)."""
     before = len(problems)
     for name in ("start", "end"):
@@ -399,8 +404,6 @@ def _minute(value, where: str, origin: datetime, problems: list[str]) -> int | N
 
 def _window_meeting(node, start: int, end: int) -> int | None:
     """Start (minute) of the first window of `node` meeting [start, end), or None."""
-    from assignplan.units import floor_minutes
-
     for a, b in node.maintenance:
         a_min, b_min = floor_minutes(a * 60), ceil_minutes(b * 60)
         if a_min < end and start < b_min:
