@@ -235,8 +235,10 @@ def _old_row(row: Row | None) -> OldRow | None:
 
 def _term_bounds(inst: Instance, result: PlanResult | None, pins: Pins) -> dict:
     """Bounds of the whole plan's tardiness and completion: the free part's bounds plus what
-    the pinned jobs contribute (fixed: their ends are known)."""
-    if result is None or result.tardiness_bound is None or result.completion_bound is None:
+    the pinned jobs contribute (fixed: their ends are known); every job pinned: exactly
+    theirs."""
+    if result is not None and (result.tardiness_bound is None
+                               or result.completion_bound is None):
         return {}
     index = {n: j for j, n in enumerate(inst.job_names)}
     tard = compl = 0.0
@@ -246,6 +248,8 @@ def _term_bounds(inst: Instance, result: PlanResult | None, pins: Pins) -> dict:
         compl += w * pin.end
         if inst.due[j] != NO_DUE:
             tard += w * max(0, pin.end - int(inst.due[j]))
+    if result is None:
+        return {"tardiness_bound": tard, "completion_bound": compl}
     return {"tardiness_bound": result.tardiness_bound + tard,
             "completion_bound": result.completion_bound + compl,
             "completion_parts": dict(result.completion_parts)}

@@ -118,6 +118,11 @@ def test_pinned_jobs_never_move_and_plans_pass_the_checker(seed):
     assert all(int(out.result.start[j]) >= pins.now for j in free)
     doc_new = to_plan_doc(out.inst, out.result)
     assert check_plan(given_.batch, doc_new, pins) == []
+    # the bounds hold for the plan found (a bound above a feasible plan would be wrong)
+    mk, tard, compl = objective(out.inst, out.result.end)
+    assert mk >= out.result.lower_bound
+    assert tard >= out.result.tardiness_bound - 1e-6
+    assert compl >= out.result.completion_bound - 1e-6
 
 
 def test_checker_catches_a_moved_pin_and_a_start_before_now(tmp_path):
@@ -299,3 +304,17 @@ def test_the_readme_example_replans_the_bundled_week(tmp_path):
                                             "climate-extra-plots"]
     rows = {a["job"]: a for a in json.loads(new.read_text())["assignments"]}
     assert rows["materials-md-24"]["end"] == "2026-12-10T02:00:00"  # overran, pinned
+
+
+def test_exact_replan_with_running_jobs_passes_the_checker(tmp_path):
+    """exact holds the running jobs as fixed intervals in its node cumulatives."""
+    old = _old_plan(tmp_path, SMALL)
+    rows = {a["job"]: a for a in json.loads(old.read_text())["assignments"]}
+    now = rows["sweep-4"]["start_h"] + 1
+    state = _write(tmp_path, "state.json", {"now_h": now, "jobs": [
+        {"job": "sweep-4", "status": "running", "start_h": rows["sweep-4"]["start_h"],
+         "end_h": rows["sweep-4"]["end_h"] + 3}]})
+    given_ = load_replan(SMALL, old, state, now=None, as_planned=True)
+    out = replan(given_, "exact", budget=20.0)
+    assert check_plan(given_.batch, to_plan_doc(out.inst, out.result), given_.pins) == []
+    assert out.result.makespan >= out.result.lower_bound
