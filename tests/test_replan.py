@@ -92,6 +92,18 @@ def _random_state(rng: np.random.Generator, batch, inst, old) -> dict:
 def test_pinned_jobs_never_move_and_plans_pass_the_checker(seed):
     """Property over random batches and states: every done or running job keeps its node and
     interval, nothing else starts before now, and the checker with the pins finds nothing."""
+    _pins_hold(seed, "greedy")
+
+
+@settings(max_examples=4, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 2**32 - 1))
+def test_ga_replans_keep_pins_and_pass_the_checker(seed):
+    """The same for the ga, whose improvers (descent, re-sequencing, CP-SAT repacking) each
+    read the running jobs' reservations."""
+    _pins_hold(seed, "ga", settings=ga_settings(generations=6), budget=1e6)
+
+
+def _pins_hold(seed: int, method: str, **kw) -> None:
     rng = np.random.default_rng(seed)
     doc = random_batch_doc(rng, max_jobs=10)
     batch, inst = instance_of(doc)
@@ -107,7 +119,7 @@ def test_pinned_jobs_never_move_and_plans_pass_the_checker(seed):
         except InputError as err:  # a down window may leave a job no node: say so, not crash
             assert all("no node" in p for p in err.problems), err.problems
             return
-        out = replan(given_, "greedy")
+        out = replan(given_, method, **kw)
     pins = given_.pins
     index = {n: k for k, n in enumerate(out.inst.job_names)}
     for name, pin in pins.jobs.items():
