@@ -20,6 +20,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING
 
+import numpy as np
 from pydantic import BaseModel, ConfigDict, Field
 
 from assignplan.bounds import LowerBound, lower_bound
@@ -35,6 +36,7 @@ if TYPE_CHECKING:
 EXACT_MAX_JOBS = 300  # above this, exact rarely proves anything within a budget of minutes
 
 Progress = Callable[[HistoryRow], None]
+Hint = tuple[np.ndarray, np.ndarray]  # a plan to start from: assign, start int64[J]
 
 
 class ExactSettings(BaseModel):
@@ -61,7 +63,8 @@ class Method:
 
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
-            progress: Progress | None, bound: LowerBound) -> PlanResult:
+            progress: Progress | None, bound: LowerBound, hint: Hint | None = None
+            ) -> PlanResult:
     from assignplan.methods.greedy import solve_greedy
 
     return solve_greedy(inst, lower_bound=bound.value)
@@ -69,13 +72,13 @@ def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
         progress: Progress | None, bound: LowerBound,
-        robust: Robust | None = None) -> PlanResult:
+        robust: Robust | None = None, hint: Hint | None = None) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
     if robust is None:
         return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed,
                         budget=budget, on_generation=progress,
-                        term_bounds=(bound.tardiness, bound.completion))
+                        term_bounds=(bound.tardiness, bound.completion), hint=hint)
     from assignplan.risk.robust import robust_evaluate
 
     # the robust score's completion column is not the objective's, so no completion phase
@@ -87,16 +90,19 @@ def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
-           progress: Progress | None, bound: LowerBound) -> PlanResult:
+           progress: Progress | None, bound: LowerBound, hint: Hint | None = None
+           ) -> PlanResult:
     from assignplan.methods.exact import solve_exact
     from assignplan.methods.greedy import solve_greedy
 
     if inst.n_jobs > EXACT_MAX_JOBS and not settings.force:
         raise InputError(exact_too_big(inst.n_jobs) + "; use --method ga, or --force to try"
                          " anyway")
-    greedy = solve_greedy(inst, lower_bound=bound.value)
-    return solve_exact(inst, lower_bound=bound.value, budget=budget,
-                       hint=(greedy.assign, greedy.start), seed=seed, workers=settings.workers)
+    if hint is None:
+        greedy = solve_greedy(inst, lower_bound=bound.value)
+        hint = (greedy.assign, greedy.start)
+    return solve_exact(inst, lower_bound=bound.value, budget=budget, hint=hint, seed=seed,
+                       workers=settings.workers)
 
 
 METHODS: dict[str, Method] = {m.name: m for m in (
@@ -122,7 +128,8 @@ def method_named(name: str) -> Method:
 
 def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
           settings: BaseModel | None = None, progress: Progress | None = None,
-          bound: LowerBound | None = None, robust: Robust | None = None) -> PlanResult:
+          bound: LowerBound | None = None, robust: Robust | None = None,
+          hint: Hint | None = None) -> PlanResult:
     """Plan `inst` with `method` within `budget` seconds from this call.
 
     `settings`: the method's settings object (default: its defaults); another type is an
@@ -130,7 +137,9 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     is not charged here). `robust`: plan for a quantile of the makespan under sampled run
     times (`risk.robust`; the ga only, another method is an error). The result carries the
     lower bound of each term of the objective, the parts of the makespan's and the
-    completion time's, and the method's own seconds.
+    completion time's, and the method's own seconds. `hint`: a feasible plan to start from
+    (a replan's old plan kept as far as it can be): the ga seeds with it, exact takes it as
+    its CP-SAT hint instead of greedy's plan, greedy has no use for it.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
@@ -142,6 +151,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
         bound = lower_bound(inst, deadline=t0 + budget)
     started = time.perf_counter()
     extra = {"robust": robust} if robust is not None else {}
+    if hint is not None:
+        extra["hint"] = hint
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
                         settings=settings, progress=progress, bound=bound, **extra)
     proven = max(bound.value, result.solver_bound or 0)

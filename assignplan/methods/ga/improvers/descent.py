@@ -29,7 +29,14 @@ import numpy as np
 from numba import njit
 
 from assignplan.instance import Instance
-from assignplan.kernels import duration_of, earliest_start, eligible_of, init_node, place
+from assignplan.kernels import (
+    duration_of,
+    earliest_start,
+    eligible_of,
+    init_node,
+    node_slots,
+    place,
+)
 from assignplan.methods.ga.critical import waiting_head
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
@@ -46,7 +53,7 @@ def decode_node(A, i, seq, n, skip, extra, earliest, latest, seg_t, seg_f, seg_l
     (each -1 for none). Writes end[j] of each job placed; returns the node's last end, 0 if
     it is empty, TOO_LATE if some job would end after latest[j]."""
     init_node(i, seg_t, seg_f, seg_lo, seg_n, A.capacity, A.maint_ptr, A.maint_start,
-              A.maint_end)
+              A.maint_end, A.res_ptr, A.res_start, A.res_end, A.res_demand)
     last = np.int64(0)
     for q in range(n + 1):
         if q < n:
@@ -119,10 +126,10 @@ def _descend(A, assign, start, earliest, latest, budget, target):
         _put(lists, fill, i, j)
         end[j] = start[j] + duration_of(A, j, i)
         ends[i] = max(ends[i], end[j])
-    windows = 0
+    fixed = 0  # the most slots a node's maintenance and reservations take
     for i in range(n_nodes):
-        windows = max(windows, maint_ptr[i + 1] - maint_ptr[i])
-    size = 2 * windows + 2 + 2 * width
+        fixed = max(fixed, node_slots(maint_ptr, A.res_ptr, i))
+    size = fixed + 2 * width
     seg_t = np.empty(size, np.int64)
     seg_f = np.empty((size, 3), np.int64)
     seg_lo = np.zeros(n_nodes, np.int64)  # every node decodes into the same scratch slice

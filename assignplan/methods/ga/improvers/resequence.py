@@ -22,7 +22,7 @@ import numpy as np
 from numba import njit
 
 from assignplan.instance import NO_DUE, Instance
-from assignplan.kernels import duration_of
+from assignplan.kernels import duration_of, node_slots
 from assignplan.methods.ga.improvers.descent import TOO_LATE, decode_node, take_out
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
@@ -164,10 +164,10 @@ def _resequence(A, seqs, fill, assign, key, earliest, latest, horizon, budget, j
     of them), assign and start int64[J]: forward moves on every node, then transfers of
     `jobs` between nodes, while either helps. Returns (moves kept, node decodes spent)."""
     n_nodes = seqs.shape[0]
-    windows = 0
+    fixed = 0  # the most slots a node's maintenance and reservations take
     for i in range(n_nodes):
-        windows = max(windows, A.maint_ptr[i + 1] - A.maint_ptr[i])
-    size = 2 * windows + 2 + 2 * seqs.shape[1]
+        fixed = max(fixed, node_slots(A.maint_ptr, A.res_ptr, i))
+    size = fixed + 2 * seqs.shape[1]
     work = (np.empty(size, np.int64), np.empty((size, 3), np.int64),
             np.zeros(n_nodes, np.int64), np.zeros(n_nodes, np.int64),
             np.zeros(start.shape[0], np.int64))

@@ -129,14 +129,22 @@ def _add_capacity(m: cp_model.CpModel, inst: Instance, assign: np.ndarray, start
         blocked = [m.new_fixed_size_interval_var(int(start[f]), int(end[f] - start[f]),
                                                  f"fix{f}") for f in fixed.tolist()]
         maint = [m.new_fixed_size_interval_var(a, b - a, f"m{i}_{a}") for a, b in windows]
+        # reservations (jobs pinned where they run, a replan) hold their share like a fixed job
+        held = [k for k in range(inst.res_ptr[i], inst.res_ptr[i + 1])
+                if inst.res_start[k] < hi and inst.res_end[k] > lo
+                and inst.res_end[k] > max(inst.res_start[k], 0)]
+        kept = [m.new_fixed_size_interval_var(
+            int(max(inst.res_start[k], 0)), int(inst.res_end[k] - max(inst.res_start[k], 0)),
+            f"r{i}_{k}") for k in held]
         for r in range(inst.capacity.shape[1]):
             asked = inst.demand[jobs, r]
             if not asked.any():
                 continue
             cap = int(inst.capacity[i, r])
-            m.add_cumulative(slots.intervals[i] + blocked + maint,
+            m.add_cumulative(slots.intervals[i] + blocked + maint + kept,
                              [int(a) for a in asked] + [int(inst.demand[f, r]) for f in fixed]
-                             + [cap] * len(maint), cap)
+                             + [cap] * len(maint) + [int(inst.res_demand[k, r]) for k in held],
+                             cap)
 
 
 def window_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
