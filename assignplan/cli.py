@@ -159,6 +159,17 @@ class Steps:
             yield tick
 
 
+PriorityOpt = Annotated[str, typer.Option(
+    "--priority", metavar="ORDER",
+    help="What to minimise first: makespan (then weighted tardiness, then weighted "
+         "completion), due (weighted tardiness first, then makespan, then weighted "
+         "completion) or weighted (the --weights sum of the three, in hours).")]
+WeightsOpt = Annotated[str | None, typer.Option(
+    "--weights", metavar="A,B,C",
+    help="--priority weighted: weight per hour of makespan, of weighted tardiness and of "
+         "weighted completion, e.g. 1,10,0.01.")]
+
+
 BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jobs.",
                                           metavar="BATCH", show_default=False)]
 
@@ -207,9 +218,14 @@ def solve(
         "--samples", metavar="K", help="--robust: sampled futures each candidate plan is "
         "scored on (default 32).")] = None,
     model: ModelOpt = None,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
+    from assignplan.priority import parse_priority
+
+    chosen = parse_priority(priority, weights)
 
     to_stdout = out is not None and str(out) == "-"
     if to_stdout and as_json:
@@ -240,7 +256,8 @@ def solve(
         if method == "ga" else _method_step(steps, method)
     with stepper as tick:
         result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
-                     settings=settings, progress=tick, bound=bound, robust=objective)
+                     settings=settings, progress=tick, bound=bound, robust=objective,
+                     priority=chosen)
     replays = _assess(inst, result, runtime, samples=None, seed=seed, steps=steps) \
         if risk else None
     with all_or_nothing():
@@ -375,10 +392,14 @@ def compare(
     out: Annotated[Path | None, typer.Option(
         metavar="PLAN.json", help="Write the best plan found to this JSON file.")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print a JSON list.")] = False,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """Run greedy, ga and (on small batches) exact with one budget each; one row per method."""
     from assignplan.files import all_or_nothing, check_output_file
+    from assignplan.priority import parse_priority
 
+    chosen = parse_priority(priority, weights)
     check_output_file(out, "--out")
     _, inst = _read_instance(batch, Steps(False))
     from assignplan.compare import best_result, compare_methods, compare_records
@@ -386,10 +407,10 @@ def compare(
     from assignplan.report.tables import compare_notes, compare_table, make_console
     from assignplan.solve import METHODS
 
-    rows = compare_methods(inst, tuple(METHODS), seed=seed, budget=budget)
+    rows = compare_methods(inst, tuple(METHODS), seed=seed, budget=budget, priority=chosen)
     records = compare_records(inst, rows)
     with all_or_nothing():
-        best = best_result(inst, rows)
+        best = best_result(inst, rows, chosen)
         if out is not None and best is not None:
             from assignplan.plan import to_plan_doc
 
@@ -400,6 +421,7 @@ def compare(
         make_console().print(compare_table(records))
         for line in compare_notes(records):
             typer.echo(line)
+        typer.echo(f"each method minimised {chosen.describe()}")
     if any(rec["status"] == "failed" for rec in records):
         raise typer.Exit(1)
 
@@ -537,15 +559,26 @@ def check(
             return {"at_h": None if minute is None else hours_of(minute),
                     "at": None if minute is None else iso(expanded.window_start, minute)}
 
-        typer.echo(json.dumps({"ok": not violations, "violations": [
+        typer.echo(json.dumps({"ok": not violations, "made_for": _made_for(doc), "violations": [
             {"kind": v.kind, "job": v.job, "node": v.node, **when(v.minute),
              "message": v.message} for v in violations]}, indent=2))
     else:
         for v in violations:
             typer.echo(v.message)
         typer.echo(summary_line(violations, doc, expanded))
+        if (made_for := _made_for(doc)) is not None:
+            typer.echo(f"the plan was made to minimise {made_for}")
     if violations:
         raise typer.Exit(1)
+
+
+def _made_for(doc) -> str | None:
+    """What the plan document says its method minimised first (None: it does not say)."""
+    from assignplan.priority import Priority
+
+    if doc.priority is None:
+        return None
+    return Priority(doc.priority.name, doc.priority.weights).describe()
 
 
 @app.command()
