@@ -583,6 +583,45 @@ def _made_for(doc) -> str | None:
 
 @app.command()
 @reports_errors
+def export(
+    batch: BatchArg,
+    plan: Annotated[Path, typer.Argument(help="Plan JSON (from solve --out).", show_default=False)],
+    template: Annotated[Path, typer.Option(
+        "--template", metavar="FILE", help="Text template with {job}, {node}, {start} ... "
+        "fields (see README); with an '@@ name' section, one file per job.")],
+    out: Annotated[Path, typer.Option(
+        "--out", metavar="DIR|FILE", help="The folder for one file per job, or the one file.")],
+) -> None:
+    """Write the plan through your own text template: a file per job (scripts) or one file
+    with a block per job (a manifest), in planned start order."""
+    from assignplan.check import check_plan
+    from assignplan.export import read_template, write_export
+    from assignplan.files import all_or_nothing, check_output_dir, check_output_file
+    from assignplan.units import counted
+
+    chosen = read_template(template)
+    if chosen.per_job:
+        check_output_dir(out, "--out")
+    elif out.is_dir():
+        raise InputError(f"--out {out}: is a folder; {template} writes one file (it has no "
+                         "'@@ name' section)")
+    else:
+        check_output_file(out, "--out")
+    expanded, inst = _read_instance(batch, Steps(False))
+    doc, result = _read_plan(plan, inst)
+    violations = check_plan(expanded, doc)
+    with all_or_nothing():
+        wrote = write_export(chosen, inst, result, out)
+    for line in wrote:
+        typer.echo(line, err=True)
+    if violations:
+        typer.echo(f"{plan}: warning: the plan fails the check "
+                   f"({counted(len(violations), 'violation')}); `assignplan check` lists them",
+                   err=True)
+
+
+@app.command()
+@reports_errors
 def schema(
     out: Annotated[Path, typer.Option(
         metavar="FOLDER", help="Folder for batch.schema.json, plan.schema.json and "
