@@ -79,10 +79,11 @@ def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
         return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed,
                         budget=budget, on_generation=progress,
                         term_bounds=(bound.tardiness, bound.completion), priority=priority)
+    from assignplan.methods.ga.loop import for_priority
     from assignplan.risk.robust import robust_evaluate
 
     # the robust score's completion column is not the objective's, so no completion phase
-    settings = settings.replace(completion={"completion_share": 0.0})
+    settings = for_priority(settings.replace(completion={"completion_share": 0.0}), priority)
     return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed, budget=budget,
                     on_generation=progress, bound_stops=False, priority=priority,
                     evaluate=robust_evaluate(inst, robust,

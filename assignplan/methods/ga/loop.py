@@ -295,11 +295,12 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     `priority` (`assignplan.priority`): the order every phase reads the fixed score columns in
     (with the weighted tardiness first, phase 2 is the phase of the tardiness and then the
     makespan, and its greedy seed the best of greedy's plans under that order, its
-    earliest-due-date plan among them); never worse than greedy under the same priority.
+    earliest-due-date plan among them); never worse than greedy under the same priority
+    (`for_priority`).
     """
     t0 = time.perf_counter()
     rng = np.random.default_rng(seed)
-    settings = sized(settings, inst.n_jobs)
+    settings = for_priority(sized(settings, inst.n_jobs), priority)
     evaluate = evaluate or default_evaluate(inst, settings)
     comp = settings.completion
     early_end = t0 + (1.0 - comp.completion_share) * budget
@@ -322,6 +323,16 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     return schedule_result(inst, island.assign[0], "ga", lower_bound, order,
                            justify=settings.improvement.justify, status="feasible", seed=seed,
                            seconds=time.perf_counter() - t0, history=history.rows)
+
+
+def for_priority(settings: GASettings, priority: Priority) -> GASettings:
+    """The settings a run under `priority` uses: forward-backward justification
+    (`improvement.justify`) keeps the schedule that is best with the makespan first
+    (`kernels._justify`), which can be a later one for the due times, so another priority
+    decodes without it (a seed then decodes to its plan or one starting no job later)."""
+    if priority.name == "makespan":
+        return settings
+    return settings.replace(improvement={"justify": False})
 
 
 class _Phases:
