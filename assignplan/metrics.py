@@ -144,8 +144,8 @@ def summary(inst: Instance, result: PlanResult) -> dict:
     return {
         "method": result.method,
         "status": result.status,
-        "priority": result.priority.name,
-        "minimised": result.priority.describe(),
+        "priority": None if result.priority is None else result.priority.name,
+        "minimised": None if result.priority is None else result.priority.describe(),
         "jobs": inst.n_jobs,
         "nodes": inst.n_nodes,
         "makespan_h": mk / 60,

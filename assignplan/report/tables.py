@@ -24,7 +24,8 @@ def summary_table(s: dict) -> Table:
     window_h = s["window_h"]
     fits = "inside" if s["makespan_h"] <= window_h else "PAST"
     rows = [
-        ("method", f"{s['method']} ({s['status']}), minimising {s['minimised']}"),
+        ("method", f"{s['method']} ({s['status']})"
+                   + (f", minimising {s['minimised']}" if s.get("minimised") else "")),
         ("jobs / nodes", f"{counted(s['jobs'], 'job')} on {counted(s['nodes'], 'node')}"),
         ("makespan", f"{number(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
                      f"({fits} the {window_h:g} h window)"),
