@@ -525,3 +525,18 @@ def greedy_list(A, order, job_class, class_ptr, class_nodes, assign, start):
         start[j] = best_s
         end[j] = best_e
     return True
+
+
+@njit(cache=True, parallel=True)
+def greedy_list_pair(A1, order1, A2, order2, job_class, class_ptr, class_nodes, assign, start,
+                     ok):
+    """Two `greedy_list` runs side by side on two threads: (A1, order1) into assign[0],
+    start[0] and (A2, order2) into row 1 (A2 may be another view of the batch, e.g. the
+    mirrored one, with the same eligibility). ok[k]: `greedy_list`'s answer for run k."""
+    for k in prange(2):
+        if k == 0:
+            ok[0] = greedy_list(A1, order1, job_class, class_ptr, class_nodes, assign[0],
+                                start[0])
+        else:
+            ok[1] = greedy_list(A2, order2, job_class, class_ptr, class_nodes, assign[1],
+                                start[1])

@@ -50,6 +50,23 @@ def greedy_assign(inst: Instance, order: np.ndarray | None = None,
     return assign, start
 
 
+def greedy_assign_pair(first: tuple[Instance, np.ndarray], second: tuple[Instance, np.ndarray]
+                       ) -> tuple[tuple[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]]:
+    """`greedy_assign` of two (instance, order) pairs at once, on two threads: the second
+    instance is the same batch seen another way (`mirrored`), with the same eligibility."""
+    (a, order_a), (b, order_b) = first, second
+    order_a, order_b = check_order(a, order_a), check_order(b, order_b)
+    assign = np.empty((2, a.n_jobs), dtype=np.int64)
+    start = np.empty((2, a.n_jobs), dtype=np.int64)
+    ok = np.zeros(2, dtype=np.bool_)
+    e = a.elig
+    kernels.greedy_list_pair(a.arrays, order_a, b.arrays, order_b, e.job_class, e.ptr, e.nodes,
+                             assign, start, ok)
+    if not ok.all():  # cannot happen for a checked batch: every job has an eligible node
+        raise SolveError("greedy: a job has no node that can hold it")
+    return (assign[0], start[0]), (assign[1], start[1])
+
+
 def mirrored(inst: Instance, horizon: int) -> Instance:
     """The batch seen backwards from minute `horizon` (t' = horizon - t): maintenance
     mirrored (`kernels._mirror_windows`), successors as predecessors, no ready times, and a
@@ -79,7 +96,13 @@ def backward_assign(inst: Instance, horizon: int, order: np.ndarray | None = Non
     wants them.
     """
     back = mirrored(inst, horizon)
-    assign, start_back = greedy_assign(back, order)
+    return forwards(inst, back, horizon, *greedy_assign(back, order))
+
+
+def forwards(inst: Instance, back: Instance, horizon: int, assign: np.ndarray,
+             start_back: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """`backward_assign`'s second half: the mirrored plan (assign, start_back on `back`)
+    rebuilt forwards by the serial scheme in its mirrored-back start order."""
     real = horizon - back.end_times(assign, start_back)
     by_start = np.lexsort((np.arange(inst.n_jobs), real))
     return assign, build_schedule(inst, assign, by_start)
@@ -96,15 +119,21 @@ def candidate_plans(inst: Instance, makespan_bound: int, priority: Priority = DE
     - "backward": `backward_assign` from the end of the longest-first plan;
     - "due" (unless the makespan comes first in `priority`): earliest due date first within
       `follows` (`orders.due_order`), each job to the node where it ends earliest.
+
+    Two at a time on two threads (`greedy_assign_pair`): longest with completion, then smith
+    with backward, which needs the longest plan's end.
     """
-    plans = {"longest": greedy_assign(inst)}
     keys = smith_keys(inst)
-    plans["completion"] = greedy_assign(inst, completion_order(
-        inst, critical_jobs(inst, makespan_bound, LONG_SHARE), keys))
-    plans["smith"] = greedy_assign(inst, completion_order(
-        inst, critical_jobs(inst, makespan_bound, None), keys))
+    plans = {}
+    plans["longest"], plans["completion"] = greedy_assign_pair(
+        (inst, inst.order),
+        (inst, completion_order(inst, critical_jobs(inst, makespan_bound, LONG_SHARE), keys)))
     longest_end = int(inst.end_times(*plans["longest"]).max())
-    plans["backward"] = backward_assign(inst, longest_end)
+    back = mirrored(inst, longest_end)
+    plans["smith"], mirror_plan = greedy_assign_pair(
+        (inst, completion_order(inst, critical_jobs(inst, makespan_bound, None), keys)),
+        (back, back.order))
+    plans["backward"] = forwards(inst, back, longest_end, *mirror_plan)
     if priority.name != "makespan":
         plans["due"] = greedy_assign(inst, due_order(inst))
     return plans
