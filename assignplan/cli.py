@@ -189,6 +189,17 @@ class Steps:
             yield tick
 
 
+PriorityOpt = Annotated[str, typer.Option(
+    "--priority", metavar="ORDER",
+    help="What to minimise first: makespan (then weighted tardiness, then weighted "
+         "completion), due (weighted tardiness first, then makespan, then weighted "
+         "completion) or weighted (the --weights sum of the three, in hours).")]
+WeightsOpt = Annotated[str | None, typer.Option(
+    "--weights", metavar="A,B,C",
+    help="--priority weighted: weight per hour of makespan, of weighted tardiness and of "
+         "weighted completion, e.g. 1,10,0.01.")]
+
+
 BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jobs.",
                                           metavar="BATCH", show_default=False)]
 
@@ -241,9 +252,14 @@ def solve(
     down: DownOpt = None,
     add: AddOpt = None,
     changes: ChangesOpt = None,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
+    from assignplan.priority import parse_priority
+
+    chosen = parse_priority(priority, weights)
 
     to_stdout = out is not None and str(out) == "-"
     if to_stdout and as_json:
@@ -275,7 +291,8 @@ def solve(
         if method == "ga" else _method_step(steps, method)
     with stepper as tick:
         result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
-                     settings=settings, progress=tick, bound=bound, robust=objective)
+                     settings=settings, progress=tick, bound=bound, robust=objective,
+                     priority=chosen)
     replays = _assess(inst, result, runtime, samples=None, seed=seed, steps=steps) \
         if risk else None
     with all_or_nothing():
@@ -420,10 +437,14 @@ def compare(
     down: DownOpt = None,
     add: AddOpt = None,
     changes: ChangesOpt = None,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """Run greedy, ga and (on small batches) exact with one budget each; one row per method."""
     from assignplan.files import all_or_nothing, check_output_file
+    from assignplan.priority import parse_priority
 
+    chosen = parse_priority(priority, weights)
     check_output_file(out, "--out")
     expanded, inst = _read_instance(batch, Steps(False), what_if(without, down, add, changes))
     print_changes(expanded)
@@ -432,10 +453,10 @@ def compare(
     from assignplan.report.tables import compare_notes, compare_table, make_console
     from assignplan.solve import METHODS
 
-    rows = compare_methods(inst, tuple(METHODS), seed=seed, budget=budget)
+    rows = compare_methods(inst, tuple(METHODS), seed=seed, budget=budget, priority=chosen)
     records = compare_records(inst, rows)
     with all_or_nothing():
-        best = best_result(inst, rows)
+        best = best_result(inst, rows, chosen)
         if out is not None and best is not None:
             from assignplan.plan import to_plan_doc
 
@@ -446,6 +467,7 @@ def compare(
         make_console().print(compare_table(records))
         for line in compare_notes(records):
             typer.echo(line)
+        typer.echo(f"each method minimised {chosen.describe()}")
     if any(rec["status"] == "failed" for rec in records):
         raise typer.Exit(1)
 
@@ -589,15 +611,65 @@ def check(
             return {"at_h": None if minute is None else hours_of(minute),
                     "at": None if minute is None else iso(expanded.window_start, minute)}
 
-        typer.echo(json.dumps({"ok": not violations, "violations": [
+        typer.echo(json.dumps({"ok": not violations, "made_for": _made_for(doc), "violations": [
             {"kind": v.kind, "job": v.job, "node": v.node, **when(v.minute),
              "message": v.message} for v in violations]}, indent=2))
     else:
         for v in violations:
             typer.echo(v.message)
         typer.echo(summary_line(violations, doc, expanded))
+        if (made_for := _made_for(doc)) is not None:
+            typer.echo(f"the plan was made to minimise {made_for}")
     if violations:
         raise typer.Exit(1)
+
+
+def _made_for(doc) -> str | None:
+    """What the plan document says its method minimised first (None: it does not say)."""
+    from assignplan.priority import Priority
+
+    if doc.priority is None:
+        return None
+    return Priority(doc.priority.name, doc.priority.weights).describe()
+
+
+@app.command()
+@reports_errors
+def export(
+    batch: BatchArg,
+    plan: Annotated[Path, typer.Argument(help="Plan JSON (from solve --out).", show_default=False)],
+    template: Annotated[Path, typer.Option(
+        "--template", metavar="FILE", help="Text template with {job}, {node}, {start} ... "
+        "fields (see README); with an '@@ name' section, one file per job.")],
+    out: Annotated[Path, typer.Option(
+        "--out", metavar="DIR|FILE", help="The folder for one file per job, or the one file.")],
+) -> None:
+    """Write the plan through your own text template: a file per job (scripts) or one file
+    with a block per job (a manifest), in planned start order."""
+    from assignplan.check import check_plan
+    from assignplan.export import read_template, write_export
+    from assignplan.files import all_or_nothing, check_output_dir, check_output_file
+    from assignplan.units import counted
+
+    chosen = read_template(template)
+    if chosen.per_job:
+        check_output_dir(out, "--out")
+    elif out.is_dir():
+        raise InputError(f"--out {out}: is a folder; {template} writes one file (it has no "
+                         "'@@ name' section)")
+    else:
+        check_output_file(out, "--out")
+    expanded, inst = _read_instance(batch, Steps(False))
+    doc, result = _read_plan(plan, inst)
+    violations = check_plan(expanded, doc)
+    with all_or_nothing():
+        wrote = write_export(chosen, inst, result, out)
+    for line in wrote:
+        typer.echo(line, err=True)
+    if violations:
+        typer.echo(f"{plan}: warning: the plan fails the check "
+                   f"({counted(len(violations), 'violation')}); `assignplan check` lists them",
+                   err=True)
 
 
 @app.command()

@@ -10,6 +10,7 @@ from assignplan.errors import AssignplanError
 from assignplan.instance import NO_DUE, Instance
 from assignplan.metrics import summary
 from assignplan.plan import PlanResult, gap_pct, objective
+from assignplan.priority import DEFAULT, Priority
 
 
 @dataclass(frozen=True)
@@ -23,9 +24,9 @@ class CompareRow:
 
 
 def compare_methods(inst: Instance, methods: tuple[str, ...], *, seed: int,
-                    budget: float) -> list[CompareRow]:
-    """Run each method with the same budget and the one lower bound (computed once); exact
-    is skipped above its size guard, with the reason in `note`."""
+                    budget: float, priority: Priority = DEFAULT) -> list[CompareRow]:
+    """Run each method with the same budget, the one lower bound (computed once) and the
+    one `priority`; exact is skipped above its size guard, with the reason in `note`."""
     from assignplan.bounds import lower_bound
     from assignplan.solve import EXACT_MAX_JOBS, exact_too_big, solve
 
@@ -37,7 +38,8 @@ def compare_methods(inst: Instance, methods: tuple[str, ...], *, seed: int,
                                    exact_too_big(inst.n_jobs).removeprefix("exact: ")))
             continue
         try:
-            result = solve(inst, method, seed=seed, budget=budget, bound=bound)
+            result = solve(inst, method, seed=seed, budget=budget, bound=bound,
+                           priority=priority)
         except AssignplanError as err:
             rows.append(CompareRow(method, "failed", None, "; ".join(err.problems)))
             continue
@@ -45,11 +47,13 @@ def compare_methods(inst: Instance, methods: tuple[str, ...], *, seed: int,
     return rows
 
 
-def best_result(inst: Instance, rows: list[CompareRow]) -> PlanResult | None:
-    """The lexicographically best plan of a comparison (makespan, weighted tardiness,
-    weighted completion); ties go to the method listed first."""
+def best_result(inst: Instance, rows: list[CompareRow],
+                priority: Priority = DEFAULT) -> PlanResult | None:
+    """The best plan of a comparison as `priority` reads the objective (by default
+    lexicographic: makespan, weighted tardiness, weighted completion); ties go to the method
+    listed first."""
     found = [r.result for r in rows if r.result is not None]
-    return min(found, key=lambda r: objective(inst, r.end), default=None)
+    return min(found, key=lambda r: priority.key(objective(inst, r.end)), default=None)
 
 
 def compare_records(inst: Instance, rows: list[CompareRow]) -> list[dict]:

@@ -24,13 +24,17 @@ def summary_table(s: dict) -> Table:
     window_h = s["window_h"]
     fits = "inside" if s["makespan_h"] <= window_h else "PAST"
     rows = [
-        ("method", f"{s['method']} ({s['status']})"),
+        ("method", f"{s['method']} ({s['status']})"
+                   + (f", minimising {s['minimised']}" if s.get("minimised") else "")),
         ("jobs / nodes", f"{counted(s['jobs'], 'job')} on {counted(s['nodes'], 'node')}"),
         ("makespan", f"{number(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
                      f"({fits} the {window_h:g} h window)"),
         ("lower bound", f"{number(s['lower_bound_h'], 2)} h (gap {number(s['gap_pct'], 2)} %)"
                         + (f", set by {why}" if (why := bound_source_text(
-                            s.get('lower_bound_set_by'))) else "")),
+                            s.get('lower_bound_set_by'))) else "")
+                        + ("" if s.get("weighted_tardiness_bound_h") is None else
+                           f"; weighted tardiness bound "
+                           f"{number(s['weighted_tardiness_bound_h'], 2)} h")),
         ("utilisation over makespan",
          f"cores {number(s['core_utilisation_pct'], 1, ' %')}, memory "
          f"{number(s['memory_utilisation_pct'], 1, ' %')}, "
