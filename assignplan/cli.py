@@ -159,6 +159,16 @@ class Steps:
             yield tick
 
 
+WorkersOpt = Annotated[int | None, typer.Option(
+    "--workers", metavar="N", help="Run the independent pieces (sample chunks, methods, ga "
+    "islands) on a local Dask cluster of N worker processes, started for this command and "
+    "closed afterwards (optional extra: pip install 'assignplan[distributed]').")]
+ClusterOpt = Annotated[str | None, typer.Option(
+    "--cluster", metavar="ADDRESS", help="Run the independent pieces on the workers of a "
+    "running Dask scheduler (e.g. tcp://10.1.2.3:8786, one started inside an allocation); "
+    "this command starts no batch jobs.")]
+
+
 BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jobs.",
                                           metavar="BATCH", show_default=False)]
 
@@ -275,16 +285,24 @@ def runtime_options(method: str, *, risk: bool, robust: float | None, samples: i
     return parse_model(model or DEFAULT_MODEL)
 
 
-def _assess(inst, result, runtime, *, samples: int | None, seed: int, steps: Steps):
-    """The plan's replays under `samples` (default 1,000) futures of the runtime model."""
+def _assess(inst, result, runtime, *, samples: int | None, seed: int, steps: Steps,
+            executor=None):
+    """The plan's replays under `samples` (default 1,000) futures of the runtime model (on
+    `executor`'s workers when given; the figures are the same)."""
     from assignplan.risk.figures import assess
     from assignplan.risk.replay import DEFAULT_SAMPLES
     from assignplan.risk.sampling import bind
 
     n = DEFAULT_SAMPLES if samples is None else samples
     sampler = bind(runtime, inst)
-    with steps.step(f"replaying {n:,} sampled futures"):
-        return assess(inst, result, sampler, samples=n, seed=seed)
+    text = f"replaying {n:,} sampled futures"
+    with steps.step(text) as status:
+        def done(k: int) -> None:
+            if status is not None:
+                status.update(f"{text}: {k:,} done")
+
+        return assess(inst, result, sampler, samples=n, seed=seed, executor=executor,
+                      on_chunk=done)
 
 
 @contextmanager
@@ -482,9 +500,12 @@ def risk(
         metavar="REPORT.html", help="Also write the plan's HTML report with a runtime-risk "
         "section to this file.")] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress display.")] = False,
+    workers: WorkersOpt = None,
+    cluster: ClusterOpt = None,
 ) -> None:
     """Replay a plan under sampled run times: makespan quantiles, the chance to finish inside
     the window, the jobs likeliest to be late, the nodes that end last."""
+    from assignplan.dask_executor import check_options, open_executor
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
     from assignplan.risk.models import parse_model
     from assignplan.risk.replay import check_samples
@@ -492,11 +513,14 @@ def risk(
     check_output_dir(csv, "--csv")
     check_output_file(report, "--report")
     check_samples(samples)
+    check_options(workers, cluster)
     runtime = parse_model(model or DEFAULT_MODEL)
     steps = Steps(not quiet and not as_json)
     expanded, inst = _read_instance(batch, steps)
     doc, result = _read_plan(plan, inst)
-    replays = _assess(inst, result, runtime, samples=samples, seed=seed, steps=steps)
+    with open_executor(workers, cluster) as executor:
+        replays = _assess(inst, result, runtime, samples=samples, seed=seed, steps=steps,
+                          executor=executor)
     with all_or_nothing():
         wrote = _write_risk_csv(csv, inst, replays) if csv is not None else []
         wrote += _write_report(expanded, doc, inst, result, report, None, replays)
