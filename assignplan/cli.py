@@ -99,7 +99,7 @@ ModelOpt = Annotated[str | None, typer.Option(
 
 
 def method_settings(method: str, generations: int | None, ga_file: Path | None,
-                    force: bool):
+                    force: bool, islands: int | None = None):
     """The settings object of `method` from its options; an option of another method is an
     error naming it, never silently ignored."""
     from assignplan.solve import ExactSettings, method_named
@@ -107,7 +107,8 @@ def method_settings(method: str, generations: int | None, ga_file: Path | None,
     method_named(method)  # an unknown method is reported first
     misplaced = [flag for flag, given, owner in (
         ("--generations", generations is not None, "ga"), ("--ga-settings", ga_file is not None,
-                                                            "ga"), ("--force", force, "exact"))
+                                                            "ga"), ("--force", force, "exact"),
+        ("--islands", islands is not None, "ga"))
         if given and owner != method]
     if misplaced:
         raise InputError([f"{flag}: only the {'exact' if flag == '--force' else 'ga'} method "
@@ -121,6 +122,8 @@ def method_settings(method: str, generations: int | None, ga_file: Path | None,
     settings = read_settings(ga_file) if ga_file is not None else GASettings()
     if generations is not None:
         settings = settings.replace(stopping={"generations": generations})
+    if islands is not None:
+        settings = settings.replace(islands={"count": islands})
     return settings
 
 
@@ -217,8 +220,15 @@ def solve(
         "--samples", metavar="K", help="--robust: sampled futures each candidate plan is "
         "scored on (default 32).")] = None,
     model: ModelOpt = None,
+    islands: Annotated[int | None, typer.Option(
+        "--islands", metavar="K", min=1, max=1024, help="ga: evolve K populations side by "
+        "side, the best plans migrating between them every islands.epoch generations (see "
+        "docs/methods.md); with --workers or --cluster each island runs on a worker.")] = None,
+    workers: WorkersOpt = None,
+    cluster: ClusterOpt = None,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
+    from assignplan.dask_executor import check_options, open_executor
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
 
     to_stdout = out is not None and str(out) == "-"
@@ -228,8 +238,17 @@ def solve(
     check_output_dir(csv, "--csv")
     check_output_file(report, "--report")
     check_output_dir(png, "--png")
-    settings = method_settings(method, generations, ga_settings, force)
+    settings = method_settings(method, generations, ga_settings, force, islands)
     runtime = runtime_options(method, risk=risk, robust=robust, samples=samples, model=model)
+    if islands is not None and islands > 1 and robust is not None:
+        raise InputError("--islands: not with --robust (an island run plans for the objective"
+                         " itself)")
+    if (workers is not None or cluster is not None) and not risk and (
+            settings is None or getattr(settings, "islands", None) is None
+            or settings.islands.count == 1):
+        raise InputError(f"{'--workers' if workers is not None else '--cluster'}: only "
+                         "--islands (above 1) and --risk run pieces on workers")
+    check_options(workers, cluster)
     steps = Steps(not quiet and not as_json and not to_stdout)
     expanded, inst = _read_instance(batch, steps)
     objective = None
@@ -248,11 +267,13 @@ def solve(
         bound = lower_bound(inst, deadline=deadline)
     stepper = steps.generations(settings.most_generations, bound.value / 60) \
         if method == "ga" else _method_step(steps, method)
-    with stepper as tick:
-        result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
-                     settings=settings, progress=tick, bound=bound, robust=objective)
-    replays = _assess(inst, result, runtime, samples=None, seed=seed, steps=steps) \
-        if risk else None
+    with open_executor(workers, cluster) as executor:
+        with stepper as tick:
+            result = run(inst, method, seed=seed,
+                         budget=max(0.0, deadline - time.perf_counter()), settings=settings,
+                         progress=tick, bound=bound, robust=objective, executor=executor)
+        replays = _assess(inst, result, runtime, samples=None, seed=seed, steps=steps,
+                          executor=executor) if risk else None
     with all_or_nothing():
         wrote = _write_outputs(expanded, inst, result, out=None if to_stdout else out,
                                csv=csv, report=report, png=png, risk=replays)

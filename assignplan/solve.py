@@ -25,6 +25,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from assignplan.bounds import LowerBound, lower_bound
 from assignplan.documents import HistoryRow
 from assignplan.errors import InputError
+from assignplan.executor import Executor
 from assignplan.instance import Instance
 from assignplan.methods.ga.settings import GASettings
 from assignplan.plan import PlanResult
@@ -61,7 +62,7 @@ class Method:
 
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
-            progress: Progress | None, bound: LowerBound) -> PlanResult:
+            progress: Progress | None, bound: LowerBound, executor=None) -> PlanResult:
     from assignplan.methods.greedy import solve_greedy
 
     return solve_greedy(inst, lower_bound=bound.value)
@@ -69,9 +70,18 @@ def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
         progress: Progress | None, bound: LowerBound,
-        robust: Robust | None = None) -> PlanResult:
+        robust: Robust | None = None, executor: Executor | None = None) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
+    if settings.islands.count > 1:
+        if robust is not None:
+            raise InputError("--islands: not with --robust (the island run plans for the"
+                             " objective itself)")
+        from assignplan.methods.ga.islands import solve_islands
+
+        return solve_islands(inst, settings=settings, lower_bound=bound.value, seed=seed,
+                             budget=budget, executor=executor, on_generation=progress,
+                             term_bounds=(bound.tardiness, bound.completion))
     if robust is None:
         return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed,
                         budget=budget, on_generation=progress,
@@ -87,7 +97,7 @@ def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
-           progress: Progress | None, bound: LowerBound) -> PlanResult:
+           progress: Progress | None, bound: LowerBound, executor=None) -> PlanResult:
     from assignplan.methods.exact import solve_exact
     from assignplan.methods.greedy import solve_greedy
 
@@ -122,7 +132,8 @@ def method_named(name: str) -> Method:
 
 def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
           settings: BaseModel | None = None, progress: Progress | None = None,
-          bound: LowerBound | None = None, robust: Robust | None = None) -> PlanResult:
+          bound: LowerBound | None = None, robust: Robust | None = None,
+          executor: Executor | None = None) -> PlanResult:
     """Plan `inst` with `method` within `budget` seconds from this call.
 
     `settings`: the method's settings object (default: its defaults); another type is an
@@ -130,7 +141,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     is not charged here). `robust`: plan for a quantile of the makespan under sampled run
     times (`risk.robust`; the ga only, another method is an error). The result carries the
     lower bound of each term of the objective, the parts of the makespan's and the
-    completion time's, and the method's own seconds.
+    completion time's, and the method's own seconds. `executor`: where the ga's islands run
+    (`settings.islands.count` > 1; default in this process); the other methods run here.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
@@ -143,7 +155,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     started = time.perf_counter()
     extra = {"robust": robust} if robust is not None else {}
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
-                        settings=settings, progress=progress, bound=bound, **extra)
+                        settings=settings, progress=progress, bound=bound, executor=executor,
+                        **extra)
     proven = max(bound.value, result.solver_bound or 0)
     return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
                    tardiness_bound=bound.tardiness, completion_bound=bound.completion,

@@ -22,6 +22,9 @@ from assignplan.errors import SolveError
 from assignplan.executor import InProcess
 from assignplan.expand import load_batch
 from assignplan.instance import build_instance
+from assignplan.methods.ga import ga_settings
+from assignplan.plan import to_plan_doc
+from assignplan.reading import load_plan
 from assignplan.risk.models import parse_model
 from assignplan.risk.replay import ReplayJob, Tally, chunks, replay, replay_plan
 from assignplan.risk.sampling import bind
@@ -135,12 +138,32 @@ def plan_file(tmp_path_factory) -> Path:
     return path
 
 
-def test_risk_figures_are_the_same_in_process_on_a_running_cluster_and_on_workers(
-        executor, plan_file):
+def test_risk_figures_are_the_same_in_process_and_on_a_running_cluster(executor, plan_file):
     here = _risk_json(plan=plan_file)
-    address = executor.client.scheduler.address
-    assert _risk_json("--cluster", address, plan=plan_file) == here
-    assert _risk_json("--workers", "1", plan=plan_file) == here
+    assert _risk_json("--cluster", executor.client.scheduler.address, plan=plan_file) == here
+
+
+ISLANDS = {"generations": 6, "count": 3, "epoch": 2, "migrants": 2, "mu": 8, "lam": 12}
+
+
+def test_an_island_run_gives_the_same_plan_in_process_on_one_worker_and_on_two(
+        executor, small, tmp_path):
+    inst, _ = small
+    settings = ga_settings(**ISLANDS)
+    here = solve(inst, "ga", seed=9, budget=600, settings=settings)
+    there = solve(inst, "ga", seed=9, budget=600, settings=settings, executor=executor)
+    np.testing.assert_array_equal(here.assign, there.assign)
+    np.testing.assert_array_equal(here.start, there.start)
+    assert here.history == there.history
+    # one worker, started by the command itself; the epoch length from a settings file
+    toml, out = tmp_path / "ga.toml", tmp_path / "plan.json"
+    toml.write_text("[islands]\nepoch = 2\nmigrants = 2\n[population]\nmu = 8\nlam = 12\n")
+    result = runner.invoke(app, ["solve", str(SMALL), "--seed", "9", "--generations", "6",
+                                 "--islands", "3", "--ga-settings", str(toml), "--workers", "1",
+                                 "--budget", "600", "--out", str(out), "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert load_plan(out).model_dump()["assignments"] == \
+        to_plan_doc(inst, here).model_dump()["assignments"]
 
 
 def test_without_the_extra_workers_says_what_to_install(monkeypatch, plan_file, tmp_path):
