@@ -405,34 +405,67 @@ def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: b
         print_risk(console, inst, risk)
 
 
+def batch_files(paths: list[Path]) -> list[Path]:
+    """The batch files named: a folder stands for its *.json files (sorted); a folder without
+    any, or a path that is neither, is an InputError."""
+    files, problems = [], []
+    for path in paths:
+        if path.is_dir():
+            found = sorted(path.glob("*.json"))
+            if not found:
+                problems.append(f"{path}: a folder without batch files (*.json)")
+            files += found
+        else:
+            files.append(path)
+    if problems:
+        raise InputError(problems)
+    return files
+
+
 @app.command()
 @reports_errors
 def compare(
-    batch: BatchArg,
+    batches: Annotated[list[Path], typer.Argument(
+        help="Batch JSON files, or folders of them (each folder's *.json).", metavar="BATCH...",
+        show_default=False)],
     seed: SeedOpt = 0,
     budget: BudgetOpt = 30.0,
     out: Annotated[Path | None, typer.Option(
-        metavar="PLAN.json", help="Write the best plan found to this JSON file.")] = None,
+        metavar="PLAN.json", help="Write the best plan found to this JSON file (one batch "
+        "only).")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print a JSON list.")] = False,
+    workers: WorkersOpt = None,
+    cluster: ClusterOpt = None,
 ) -> None:
-    """Run greedy, ga and (on small batches) exact with one budget each; one row per method."""
+    """Run greedy, ga and (on small batches) exact with one budget each; one row per method
+    (and batch, when given several: each method on each batch is a task of its own)."""
+    from assignplan.dask_executor import check_options, open_executor
     from assignplan.files import all_or_nothing, check_output_file
 
     check_output_file(out, "--out")
-    _, inst = _read_instance(batch, Steps(False))
-    from assignplan.compare import best_result, compare_methods, compare_records
+    check_options(workers, cluster)
+    files = batch_files(batches)
+    if out is not None and len(files) > 1:
+        raise InputError(f"--out: writes one plan; give one batch, not {len(files)}")
+    instances = [_read_instance(path, Steps(False))[1] for path in files]
+    from assignplan.compare import best_result, compare_batches, compare_records
     from assignplan.report.exports import write_json
     from assignplan.report.tables import compare_notes, compare_table, make_console
     from assignplan.solve import METHODS
 
-    rows = compare_methods(inst, tuple(METHODS), seed=seed, budget=budget)
-    records = compare_records(inst, rows)
+    with open_executor(workers, cluster) as executor:
+        rows = compare_batches(instances, tuple(METHODS), seed=seed, budget=budget,
+                               executor=executor)
+    records = []
+    for path, inst, batch_rows in zip(files, instances, rows, strict=True):
+        named = compare_records(inst, batch_rows)
+        records += named if len(files) == 1 else [{"batch": str(path), **r} for r in named]
     with all_or_nothing():
-        best = best_result(inst, rows)
+        best = best_result(instances[0], rows[0]) if len(files) == 1 else None
         if out is not None and best is not None:
             from assignplan.plan import to_plan_doc
 
-            write_json(out, to_plan_doc(inst, best).model_dump(mode="json"))
+            write_json(out, to_plan_doc(instances[0], best).model_dump(mode="json"))
     if as_json:
         typer.echo(json.dumps(records, indent=2))
     else:

@@ -60,6 +60,22 @@ class DaskExecutor:
 
     def __init__(self, client):
         self.client = client
+        self._held: tuple[Callable, Any] | None = None  # the last function sent, its future
+
+    def _hold(self, fn: Callable) -> Any:
+        """The future of `fn` on the cluster: sent once and reused while the same function
+        comes back (the ga's islands run one per epoch), the one before released."""
+        if self._held is not None and self._held[0] is fn:
+            return self._held[1]
+        if self._held is not None:
+            self.client.cancel([self._held[1]])
+        with warnings.catch_warnings():
+            # a large batch makes the function's pickled form large; sent once, that is fine
+            warnings.filterwarnings("ignore", message=".*large graph.*")
+            held = self.client.submit(_hold, fn, key=f"assignplan-{type(fn).__name__.lower()}"
+                                      f"-{uuid.uuid4().hex[:12]}", pure=False)
+        self._held = (fn, held)
+        return held
 
     @property
     def workers(self) -> int:
@@ -68,14 +84,9 @@ class DaskExecutor:
     def run(self, fn: Callable[[Any], Any], items: Sequence[Any]) -> Iterator[tuple[int, Any]]:
         from distributed import as_completed
 
-        run_id = uuid.uuid4().hex[:12]
-        name = type(fn).__name__.lower()
-        with warnings.catch_warnings():
-            # a large batch makes the function's pickled form large; sent once, that is fine
-            warnings.filterwarnings("ignore", message=".*large graph.*")
-            held = self.client.submit(_hold, fn, key=f"assignplan-{name}-{run_id}", pure=False)
-        futures = [self.client.submit(_apply, held, item, key=f"assignplan-{name}-{run_id}-{k}",
-                                      pure=False) for k, item in enumerate(items)]
+        held = self._hold(fn)
+        futures = [self.client.submit(_apply, held, item, key=f"{held.key}-{uuid.uuid4().hex[:8]}"
+                                      f"-{k}", pure=False) for k, item in enumerate(items)]
         index = {f.key: k for k, f in enumerate(futures)}
         try:
             for future in as_completed(futures):
@@ -84,7 +95,7 @@ class DaskExecutor:
                     raise _failure(k, items, future.exception())
                 yield k, future.result()
         finally:
-            self.client.cancel([*futures, held])
+            self.client.cancel(futures)
 
 
 def _failure(k: int, items: Sequence[Any], err: BaseException) -> AssignplanError:

@@ -14,6 +14,7 @@ from pathlib import Path
 import dask
 import numpy as np
 import pytest
+from rich.console import Console
 from typer.testing import CliRunner
 
 from assignplan.cli import app
@@ -25,6 +26,7 @@ from assignplan.instance import build_instance
 from assignplan.methods.ga import ga_settings
 from assignplan.plan import to_plan_doc
 from assignplan.reading import load_plan
+from assignplan.report.tables import compare_table
 from assignplan.risk.models import parse_model
 from assignplan.risk.replay import ReplayJob, Tally, chunks, replay, replay_plan
 from assignplan.risk.sampling import bind
@@ -186,3 +188,40 @@ def test_wrong_executor_options_are_one_line_exit_2(plan_file, args, fragment):
     result = runner.invoke(app, ["risk", str(SMALL), str(plan_file), *args])
     assert result.exit_code == 2 and fragment in result.stderr
     assert len(result.stderr.splitlines()) == 1
+
+
+def test_compare_plans_several_batches_as_tasks_in_one_table(executor, small, tmp_path):
+    inst, greedy = small
+    folder = tmp_path / "more"
+    folder.mkdir()
+    (folder / "copy.json").write_text(SMALL.read_text(encoding="utf-8"), encoding="utf-8")
+    address = executor.client.scheduler.address
+    args = ["compare", str(SMALL), str(folder), "--budget", "1"]
+    result = runner.invoke(app, [*args, "--json", "--cluster", address])
+    assert result.exit_code == 0, result.output
+    records = json.loads(result.stdout)
+    assert [(r["batch"], r["method"]) for r in records] == [
+        (str(path), method) for path in (SMALL, folder / "copy.json")
+        for method in ("ga", "greedy", "exact")]
+    assert {r["makespan_h"] for r in records if r["method"] == "greedy"} == {
+        greedy.makespan / 60}
+    console = Console(record=True, width=200)
+    console.print(compare_table(records))
+    lines = console.export_text().splitlines()
+    header = next(line for line in lines if "┃" in line)
+    rows = [line for line in lines if "│" in line]
+    assert header.split("┃")[1].strip() == "batch" and len(rows) == 6
+    assert sum("copy.json" in row for row in rows) == 3
+
+
+@pytest.mark.parametrize(("extra", "fragment"), [
+    (["--out", "best.json"], "--out: writes one plan; give one batch, not 2"),
+    ([], "a folder without batch files (*.json)"),
+])
+def test_compare_refuses_an_empty_folder_and_one_plan_of_several(tmp_path, extra, fragment):
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    second = [str(SMALL)] if extra else [str(empty)]
+    result = runner.invoke(app, ["compare", str(SMALL), *second, *extra])
+    assert result.exit_code == 2 and result.stderr.splitlines() == [
+        fragment if extra else f"{empty}: {fragment}"]
