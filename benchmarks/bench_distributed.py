@@ -128,10 +128,35 @@ def distributed_run(samples: int, workers: int) -> dict:
         peaks = ex.client.run(_worker_peak)
     firsts = [min(runs)[1] for runs in by_pid.values()]  # each worker's first task
     later = [d for runs in by_pid.values() for _, d in sorted(runs)[1:]]
+    # perf_counter is the machine's monotonic clock on Linux: comparable across processes
+    waits = [min(runs)[0] - t1 for runs in by_pid.values()]
+    busiest = max(sum(d for _, d in runs) for runs in by_pid.values())
     return {"start": started, "wall": wall, "task_seconds": per_task, "merging": merging,
+            "busiest": busiest,
             "first_task": firsts, "later_task_median": statistics.median(later) if later
-            else float("nan"), "worker_peak_mib": sorted(peaks.values()),
+            else float("nan"), "first_wait": waits, "worker_peak_mib": sorted(peaks.values()),
             "digest": digest(totals), "tasks": len(per_task), "workers": len(by_pid)}
+
+
+def first_task_probe(repeats: int = 3) -> tuple[float, float, int]:
+    """(median first task, median later task), seconds in the task, on fresh one-worker
+    clusters replaying the bundled small batch's greedy plan in chunks of 250 samples: the
+    fixed cost a fresh worker pays once (kernels from numba's cache, first calls)."""
+    from assignplan.expand import load_batch
+    from assignplan.instance import build_instance
+
+    inst = build_instance(load_batch(ROOT / "examples" / "small.json"))
+    assign, start = greedy_assign(inst)
+    result = make_result(inst, "greedy", assign, start, 0)
+    plan, sampler = replay_plan(inst, result), bind(parse_model(MODEL), inst)
+    job = Timed(ReplayJob(inst, plan, sampler, POLICIES, 0, 1_000))
+    firsts, laters = [], []
+    for _ in range(repeats):
+        with open_executor(workers=1) as ex:
+            runs = sorted((a, b - a) for _, (_, _, a, b) in ex.run(job, chunks(1_000)))
+        firsts.append(runs[0][1])
+        laters.append(statistics.median(d for _, d in runs[1:]))
+    return statistics.median(firsts), statistics.median(laters), inst.n_jobs
 
 
 def scaling(t_serial: float, t_chunk: float, overhead: float, tasks: int, n: int) -> tuple:
@@ -153,8 +178,11 @@ def risk_part(args) -> str:
     t_chunk_here = statistics.median(here["chunk_seconds"])
     t_task = statistics.median(there["task_seconds"])
     tasks = there["tasks"]
-    overhead = max(0.0, (there["wall"] * args.workers - sum(there["task_seconds"])) / tasks)
+    idle = max(0.0, (there["wall"] * args.workers - sum(there["task_seconds"])) / tasks)
+    # what the busiest worker's share of the wall time was not spent computing, per task of it
+    overhead = max(0.0, there["wall"] - there["busiest"]) / (tasks / args.workers)
     first_extra = statistics.median(there["first_task"]) - there["later_task_median"]
+    probe_first, probe_later, probe_jobs = first_task_probe()
     serial = there["merging"]
     lines = [
         RISK, "",
@@ -174,9 +202,17 @@ def risk_part(args) -> str:
         f"| cluster start (not in the wall time) | – | {there['start']:.1f} s |",
         f"| median time of a chunk (250 samples) | {t_chunk_here:.2f} s (2 threads) | "
         f"{t_task:.2f} s (1 thread, in the task) |",
-        f"| overhead per task (workers x wall - task time, per task) | – | {overhead:.2f} s |",
-        f"| first task on a fresh worker, beyond a later one (imports, cached kernels "
-        f"loaded, the function received) | – | {first_extra:.2f} s |",
+        f"| idle per task ((workers x wall - task times) / tasks: start, tail and waits "
+        f"included) | – | {idle:.2f} s |",
+        f"| overhead per task (the wall time the busiest worker spent not in a task, per "
+        f"task it ran) | – | {overhead:.2f} s |",
+        f"| first task on a fresh worker: from submission to its start (function received, "
+        f"modules imported) | – | {statistics.median(there['first_wait']):.2f} s |",
+        f"| first task on a fresh worker: its run beyond a later task's (kernels loaded "
+        f"from the cache, first calls) | – | {first_extra:.2f} s |",
+        f"| the same on the bundled {probe_jobs}-job example, fresh 1-worker clusters "
+        "(median of 3): "
+        f"first task, later task | – | {probe_first:.2f} s, {probe_later:.3f} s |",
         f"| merges on the client (serial) | in the wall time | {serial:.1f} s |",
         f"| peak memory | {here['peak_mib']:,.0f} MiB ({here['before_mib']:,.0f} MiB before "
         f"the replays) | {', '.join(f'{m:,.0f}' for m in there['worker_peak_mib'])} MiB "
@@ -184,9 +220,12 @@ def risk_part(args) -> str:
         f"| figures (fingerprint of every accumulator) | {here['digest']} | "
         f"{there['digest']} ({'identical' if here['digest'] == there['digest'] else 'DIFFER'})"
         " |", "",
-        "No worker compiled a kernel: the first task's extra time is the imports and numba's "
-        "on-disk cache (`assignplan/cache.py`) read once per worker process; every later "
-        "task of that process reuses the loaded kernels.", "",
+        "No worker compiles a kernel (checked with NUMBA_DEBUG_CACHE=1: nothing saved, "
+        "everything loaded): the first task's extra time is numba's on-disk cache "
+        "(`assignplan/cache.py`) read once per worker process, and first calls; every later "
+        "task of that process reuses the loaded kernels. On the large batch the first "
+        "tasks also ran while the other worker and the client competed for the 2 cores.",
+        "",
         "### Scaling estimate (a model, not a measurement)", "",
         f"From the figures above: serial part S = the client's merges ({serial:.1f} s), "
         f"one chunk c = {t_task:.2f} s on one thread, overhead o = {overhead:.2f} s per "
