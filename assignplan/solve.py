@@ -28,6 +28,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from assignplan.bounds import LowerBound, lower_bound
 from assignplan.documents import HistoryRow
 from assignplan.errors import InputError
+from assignplan.executor import Executor
 from assignplan.instance import Instance
 from assignplan.methods.ga.settings import GASettings
 from assignplan.plan import PlanResult
@@ -67,7 +68,7 @@ class Method:
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
             progress: Progress | None, bound: LowerBound, priority: Priority,
-            hint: Hint | None = None) -> PlanResult:
+            hint: Hint | None = None, executor: Executor | None = None) -> PlanResult:
     from assignplan.methods.greedy import solve_greedy
 
     return solve_greedy(inst, lower_bound=bound.value, priority=priority)
@@ -75,9 +76,25 @@ def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
         progress: Progress | None, bound: LowerBound, priority: Priority,
-        robust: Robust | None = None, hint: Hint | None = None) -> PlanResult:
+        robust: Robust | None = None, hint: Hint | None = None,
+        executor: Executor | None = None) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
+    if settings.islands.count > 1:
+        if robust is not None:
+            raise InputError("--islands: not with --robust (the island run plans for the"
+                             " objective itself)")
+        if priority.name != "makespan":
+            raise InputError("--islands: only with --priority makespan (the islands compare"
+                             " plans makespan first)")
+        if hint is not None:
+            raise InputError("--islands: not when replanning (the islands do not start from"
+                             " the old plan)")
+        from assignplan.methods.ga.islands import solve_islands
+
+        return solve_islands(inst, settings=settings, lower_bound=bound.value, seed=seed,
+                             budget=budget, executor=executor, on_generation=progress,
+                             term_bounds=(bound.tardiness, bound.completion))
     if robust is None:
         return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed,
                         budget=budget, on_generation=progress,
@@ -96,7 +113,7 @@ def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
            progress: Progress | None, bound: LowerBound, priority: Priority,
-           hint: Hint | None = None) -> PlanResult:
+           hint: Hint | None = None, executor: Executor | None = None) -> PlanResult:
     from assignplan.methods.exact import solve_exact
     from assignplan.methods.greedy import solve_greedy
 
@@ -134,7 +151,8 @@ def method_named(name: str) -> Method:
 def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
           settings: BaseModel | None = None, progress: Progress | None = None,
           bound: LowerBound | None = None, robust: Robust | None = None,
-          priority: Priority = DEFAULT, hint: Hint | None = None) -> PlanResult:
+          priority: Priority = DEFAULT, hint: Hint | None = None,
+          executor: Executor | None = None) -> PlanResult:
     """Plan `inst` with `method` within `budget` seconds from this call.
 
     `settings`: the method's settings object (default: its defaults); another type is an
@@ -146,6 +164,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     term of the objective comes first; default the makespan). `hint`: a feasible plan to
     start from (a replan's old plan kept as far as it can be): the ga seeds with it, exact
     takes it as its CP-SAT hint instead of greedy's plan, greedy has no use for it.
+    `executor`: where the ga's islands run (`settings.islands.count` > 1; default in this
+    process); the other methods run here.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
@@ -161,7 +181,7 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
         extra["hint"] = hint
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
                         settings=settings, progress=progress, bound=bound, priority=priority,
-                        **extra)
+                        executor=executor, **extra)
     proven = max(bound.value, result.solver_bound or 0)
     return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
                    tardiness_bound=bound.tardiness, completion_bound=bound.completion,

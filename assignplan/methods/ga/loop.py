@@ -308,7 +308,7 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     comp = settings.completion
     early_end = t0 + (1.0 - comp.completion_share) * budget
     seed_end = t0 + comp.completion_seed_time * budget
-    history = _Phases(on_generation)
+    history = Phases(on_generation)
     island = _makespan_phases(
         inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound, t0=t0,
         end=early_end, seed_end=seed_end,
@@ -317,7 +317,7 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
         hint=hint)
     if comp.completion_share > 0:
         final = math.ceil(comp.completion_share * settings.stopping.generations)
-        island = _completion_phase(inst, settings.replace(stopping={"generations": final}),
+        island = completion_phase(inst, settings.replace(stopping={"generations": final}),
                                    island, rng=rng, evaluate=evaluate,
                                    lower_bound=lower_bound, end=t0 + budget,
                                    seed_end=time.perf_counter() + comp.completion_seed_time
@@ -339,7 +339,7 @@ def for_priority(settings: GASettings, priority: Priority) -> GASettings:
     return settings.replace(improvement={"justify": False})
 
 
-class _Phases:
+class Phases:
     """The history of a run made of phases: each phase's rows continue the last one's
     generation and evaluation counts; a later phase's generation 0 (its seeds, the end of the
     phase before plus fresh ones) is not a generation of the run and is left out."""
@@ -370,7 +370,7 @@ class _Phases:
 
 def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Generator,
                      evaluate: Evaluate, lower_bound: int, t0: float, end: float,
-                     seed_end: float, patience: float | None, history: _Phases,
+                     seed_end: float, patience: float | None, history: Phases,
                      bound_stops: bool = True, priority: Priority = DEFAULT,
                      term_bounds: tuple[float, float] | None = None,
                      hint: tuple[np.ndarray, np.ndarray] | None = None) -> Island:
@@ -404,9 +404,9 @@ def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Gen
                       bound_stops=bound_stops, priority=priority, term_bounds=term_bounds)
 
 
-def _completion_phase(inst: Instance, settings: GASettings, island: Island, *,
+def completion_phase(inst: Instance, settings: GASettings, island: Island, *,
                       rng: np.random.Generator, evaluate: Evaluate, lower_bound: int,
-                      end: float, seed_end: float, history: _Phases,
+                      end: float, seed_end: float, history: Phases,
                       term_bounds: tuple[float, float] | None,
                       priority: Priority = DEFAULT) -> Island:
     """Phase 3 of `solve_ga`: seeded with the best of `island`, the greedy plan, the best
