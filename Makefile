@@ -1,4 +1,5 @@
-# Everything runs from .venv, created here on first use; nothing needs installing by hand.
+# Everything runs from .venv, created here on first use; nothing needs installing by hand
+# (the optional Dask extra too: its tests start real local clusters).
 PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
@@ -9,7 +10,7 @@ STAMP := $(VENV)/.installed
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
-	$(BIN)/pip install --quiet -e '.[test]'
+	$(BIN)/pip install --quiet -e '.[test,distributed]'
 	touch $(STAMP)
 
 demo: $(STAMP)

@@ -129,7 +129,7 @@ ModelOpt = Annotated[str | None, typer.Option(
 
 
 def method_settings(method: str, generations: int | None, ga_file: Path | None,
-                    force: bool):
+                    force: bool, islands: int | None = None):
     """The settings object of `method` from its options; an option of another method is an
     error naming it, never silently ignored."""
     from assignplan.solve import ExactSettings, method_named
@@ -137,7 +137,8 @@ def method_settings(method: str, generations: int | None, ga_file: Path | None,
     method_named(method)  # an unknown method is reported first
     misplaced = [flag for flag, given, owner in (
         ("--generations", generations is not None, "ga"), ("--ga-settings", ga_file is not None,
-                                                            "ga"), ("--force", force, "exact"))
+                                                            "ga"), ("--force", force, "exact"),
+        ("--islands", islands is not None, "ga"))
         if given and owner != method]
     if misplaced:
         raise InputError([f"{flag}: only the {'exact' if flag == '--force' else 'ga'} method "
@@ -151,6 +152,8 @@ def method_settings(method: str, generations: int | None, ga_file: Path | None,
     settings = read_settings(ga_file) if ga_file is not None else GASettings()
     if generations is not None:
         settings = settings.replace(stopping={"generations": generations})
+    if islands is not None:
+        settings = settings.replace(islands={"count": islands})
     return settings
 
 
@@ -187,6 +190,25 @@ class Steps:
                                 best=f"{row.best_makespan_h:.2f} h", gap=f"{gap:.2f} %")
 
             yield tick
+
+
+PriorityOpt = Annotated[str, typer.Option(
+    "--priority", metavar="ORDER",
+    help="What to minimise first: makespan (then weighted tardiness, then weighted "
+         "completion), due (weighted tardiness first, then makespan, then weighted "
+         "completion) or weighted (the --weights sum of the three, in hours).")]
+WeightsOpt = Annotated[str | None, typer.Option(
+    "--weights", metavar="A,B,C",
+    help="--priority weighted: weight per hour of makespan, of weighted tardiness and of "
+         "weighted completion, e.g. 1,10,0.01.")]
+WorkersOpt = Annotated[int | None, typer.Option(
+    "--workers", metavar="N", help="Run the independent pieces (sample chunks, methods, ga "
+    "islands) on a local Dask cluster of N worker processes, started for this command and "
+    "closed afterwards (optional extra: pip install 'assignplan[distributed]').")]
+ClusterOpt = Annotated[str | None, typer.Option(
+    "--cluster", metavar="ADDRESS", help="Run the independent pieces on the workers of a "
+    "running Dask scheduler (e.g. tcp://10.1.2.3:8786, one started inside an allocation); "
+    "this command starts no batch jobs.")]
 
 
 BatchArg = Annotated[Path, typer.Argument(help="Batch JSON: window, nodes and jobs.",
@@ -241,9 +263,21 @@ def solve(
     down: DownOpt = None,
     add: AddOpt = None,
     changes: ChangesOpt = None,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
+    islands: Annotated[int | None, typer.Option(
+        "--islands", metavar="K", min=1, max=1024, help="ga: evolve K populations side by "
+        "side, the best plans migrating between them every islands.epoch generations (see "
+        "docs/methods.md); with --workers or --cluster each island runs on a worker.")] = None,
+    workers: WorkersOpt = None,
+    cluster: ClusterOpt = None,
 ) -> None:
     """Plan a batch: node and start time per job, makespan, utilisation, gap to the bound."""
+    from assignplan.dask_executor import check_options, open_executor
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
+    from assignplan.priority import parse_priority
+
+    chosen = parse_priority(priority, weights)
 
     to_stdout = out is not None and str(out) == "-"
     if to_stdout and as_json:
@@ -252,9 +286,18 @@ def solve(
     check_output_dir(csv, "--csv")
     check_output_file(report, "--report")
     check_output_dir(png, "--png")
-    settings = method_settings(method, generations, ga_settings, force)
+    settings = method_settings(method, generations, ga_settings, force, islands)
     runtime = runtime_options(method, risk=risk, robust=robust, samples=samples, model=model)
     inventory = what_if(without, down, add, changes)
+    if islands is not None and islands > 1 and robust is not None:
+        raise InputError("--islands: not with --robust (an island run plans for the objective"
+                         " itself)")
+    if (workers is not None or cluster is not None) and not risk and (
+            settings is None or getattr(settings, "islands", None) is None
+            or settings.islands.count == 1):
+        raise InputError(f"{'--workers' if workers is not None else '--cluster'}: only "
+                         "--islands (above 1) and --risk run pieces on workers")
+    check_options(workers, cluster)
     steps = Steps(not quiet and not as_json and not to_stdout)
     expanded, inst = _read_instance(batch, steps, inventory)
     objective = None
@@ -273,11 +316,14 @@ def solve(
         bound = lower_bound(inst, deadline=deadline)
     stepper = steps.generations(settings.most_generations, bound.value / 60) \
         if method == "ga" else _method_step(steps, method)
-    with stepper as tick:
-        result = run(inst, method, seed=seed, budget=max(0.0, deadline - time.perf_counter()),
-                     settings=settings, progress=tick, bound=bound, robust=objective)
-    replays = _assess(inst, result, runtime, samples=None, seed=seed, steps=steps) \
-        if risk else None
+    with open_executor(workers, cluster) as executor:
+        with stepper as tick:
+            result = run(inst, method, seed=seed,
+                         budget=max(0.0, deadline - time.perf_counter()), settings=settings,
+                         progress=tick, bound=bound, robust=objective, priority=chosen,
+                         executor=executor)
+        replays = _assess(inst, result, runtime, samples=None, seed=seed, steps=steps,
+                          executor=executor) if risk else None
     with all_or_nothing():
         wrote = _write_outputs(expanded, inst, result, out=None if to_stdout else out,
                                csv=csv, report=report, png=png, risk=replays)
@@ -310,16 +356,24 @@ def runtime_options(method: str, *, risk: bool, robust: float | None, samples: i
     return parse_model(model or DEFAULT_MODEL)
 
 
-def _assess(inst, result, runtime, *, samples: int | None, seed: int, steps: Steps):
-    """The plan's replays under `samples` (default 1,000) futures of the runtime model."""
+def _assess(inst, result, runtime, *, samples: int | None, seed: int, steps: Steps,
+            executor=None):
+    """The plan's replays under `samples` (default 1,000) futures of the runtime model (on
+    `executor`'s workers when given; the figures are the same)."""
     from assignplan.risk.figures import assess
     from assignplan.risk.replay import DEFAULT_SAMPLES
     from assignplan.risk.sampling import bind
 
     n = DEFAULT_SAMPLES if samples is None else samples
     sampler = bind(runtime, inst)
-    with steps.step(f"replaying {n:,} sampled futures"):
-        return assess(inst, result, sampler, samples=n, seed=seed)
+    text = f"replaying {n:,} sampled futures"
+    with steps.step(text) as status:
+        def done(k: int) -> None:
+            if status is not None:
+                status.update(f"{text}: {k:,} done")
+
+        return assess(inst, result, sampler, samples=n, seed=seed, executor=executor,
+                      on_chunk=done)
 
 
 @contextmanager
@@ -407,45 +461,86 @@ def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: b
         print_risk(console, inst, risk)
 
 
+def batch_files(paths: list[Path]) -> list[Path]:
+    """The batch files named: a folder stands for its *.json files (sorted); a folder without
+    any, or a path that is neither, is an InputError."""
+    files, problems = [], []
+    for path in paths:
+        if path.is_dir():
+            found = sorted(path.glob("*.json"))
+            if not found:
+                problems.append(f"{path}: a folder without batch files (*.json)")
+            files += found
+        else:
+            files.append(path)
+    if problems:
+        raise InputError(problems)
+    return files
+
+
 @app.command()
 @reports_errors
 def compare(
-    batch: BatchArg,
+    batches: Annotated[list[Path], typer.Argument(
+        help="Batch JSON files, or folders of them (each folder's *.json).", metavar="BATCH...",
+        show_default=False)],
     seed: SeedOpt = 0,
     budget: BudgetOpt = 30.0,
     out: Annotated[Path | None, typer.Option(
-        metavar="PLAN.json", help="Write the best plan found to this JSON file.")] = None,
+        metavar="PLAN.json", help="Write the best plan found to this JSON file (one batch "
+        "only).")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print a JSON list.")] = False,
     without: WithoutOpt = None,
     down: DownOpt = None,
     add: AddOpt = None,
     changes: ChangesOpt = None,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
+    workers: WorkersOpt = None,
+    cluster: ClusterOpt = None,
 ) -> None:
-    """Run greedy, ga and (on small batches) exact with one budget each; one row per method."""
+    """Run greedy, ga and (on small batches) exact with one budget each; one row per method
+    (and batch, when given several: each method on each batch is a task of its own)."""
+    from assignplan.dask_executor import check_options, open_executor
     from assignplan.files import all_or_nothing, check_output_file
+    from assignplan.priority import parse_priority
 
+    chosen = parse_priority(priority, weights)
     check_output_file(out, "--out")
-    expanded, inst = _read_instance(batch, Steps(False), what_if(without, down, add, changes))
-    print_changes(expanded)
-    from assignplan.compare import best_result, compare_methods, compare_records
+    check_options(workers, cluster)
+    files = batch_files(batches)
+    if out is not None and len(files) > 1:
+        raise InputError(f"--out: writes one plan; give one batch, not {len(files)}")
+    inventory = what_if(without, down, add, changes)
+    read = [_read_instance(path, Steps(False), inventory) for path in files]
+    for expanded, _ in read[:1]:  # the same changes to every batch: said once
+        print_changes(expanded)
+    instances = [inst for _, inst in read]
+    from assignplan.compare import best_result, compare_batches, compare_records
     from assignplan.report.exports import write_json
     from assignplan.report.tables import compare_notes, compare_table, make_console
     from assignplan.solve import METHODS
 
-    rows = compare_methods(inst, tuple(METHODS), seed=seed, budget=budget)
-    records = compare_records(inst, rows)
+    with open_executor(workers, cluster) as executor:
+        rows = compare_batches(instances, tuple(METHODS), seed=seed, budget=budget,
+                               executor=executor, priority=chosen)
+    records = []
+    for path, inst, batch_rows in zip(files, instances, rows, strict=True):
+        named = compare_records(inst, batch_rows)
+        records += named if len(files) == 1 else [{"batch": str(path), **r} for r in named]
     with all_or_nothing():
-        best = best_result(inst, rows)
+        best = best_result(instances[0], rows[0], chosen) if len(files) == 1 else None
         if out is not None and best is not None:
             from assignplan.plan import to_plan_doc
 
-            write_json(out, to_plan_doc(inst, best).model_dump(mode="json"))
+            write_json(out, to_plan_doc(instances[0], best).model_dump(mode="json"))
     if as_json:
         typer.echo(json.dumps(records, indent=2))
     else:
         make_console().print(compare_table(records))
         for line in compare_notes(records):
             typer.echo(line)
+        typer.echo(f"each method minimised {chosen.describe()}")
     if any(rec["status"] == "failed" for rec in records):
         raise typer.Exit(1)
 
@@ -532,9 +627,12 @@ def risk(
     down: DownOpt = None,
     add: AddOpt = None,
     changes: ChangesOpt = None,
+    workers: WorkersOpt = None,
+    cluster: ClusterOpt = None,
 ) -> None:
     """Replay a plan under sampled run times: makespan quantiles, the chance to finish inside
     the window, the jobs likeliest to be late, the nodes that end last."""
+    from assignplan.dask_executor import check_options, open_executor
     from assignplan.files import all_or_nothing, check_output_dir, check_output_file
     from assignplan.risk.models import parse_model
     from assignplan.risk.replay import check_samples
@@ -542,13 +640,16 @@ def risk(
     check_output_dir(csv, "--csv")
     check_output_file(report, "--report")
     check_samples(samples)
+    check_options(workers, cluster)
     runtime = parse_model(model or DEFAULT_MODEL)
     inventory = what_if(without, down, add, changes)
     steps = Steps(not quiet and not as_json)
     expanded, inst = _read_instance(batch, steps, inventory)
     print_changes(expanded)
     doc, result = _read_plan(plan, inst)
-    replays = _assess(inst, result, runtime, samples=samples, seed=seed, steps=steps)
+    with open_executor(workers, cluster) as executor:
+        replays = _assess(inst, result, runtime, samples=samples, seed=seed, steps=steps,
+                          executor=executor)
     with all_or_nothing():
         wrote = _write_risk_csv(csv, inst, replays) if csv is not None else []
         wrote += _write_report(expanded, doc, inst, result, report, None, replays)
@@ -612,15 +713,65 @@ def check(
             return {"at_h": None if minute is None else hours_of(minute),
                     "at": None if minute is None else iso(expanded.window_start, minute)}
 
-        typer.echo(json.dumps({"ok": not violations, "violations": [
+        typer.echo(json.dumps({"ok": not violations, "made_for": _made_for(doc), "violations": [
             {"kind": v.kind, "job": v.job, "node": v.node, **when(v.minute),
              "message": v.message} for v in violations]}, indent=2))
     else:
         for v in violations:
             typer.echo(v.message)
         typer.echo(summary_line(violations, doc, expanded))
+        if (made_for := _made_for(doc)) is not None:
+            typer.echo(f"the plan was made to minimise {made_for}")
     if violations:
         raise typer.Exit(1)
+
+
+def _made_for(doc) -> str | None:
+    """What the plan document says its method minimised first (None: it does not say)."""
+    from assignplan.priority import Priority
+
+    if doc.priority is None:
+        return None
+    return Priority(doc.priority.name, doc.priority.weights).describe()
+
+
+@app.command()
+@reports_errors
+def export(
+    batch: BatchArg,
+    plan: Annotated[Path, typer.Argument(help="Plan JSON (from solve --out).", show_default=False)],
+    template: Annotated[Path, typer.Option(
+        "--template", metavar="FILE", help="Text template with {job}, {node}, {start} ... "
+        "fields (see README); with an '@@ name' section, one file per job.")],
+    out: Annotated[Path, typer.Option(
+        "--out", metavar="DIR|FILE", help="The folder for one file per job, or the one file.")],
+) -> None:
+    """Write the plan through your own text template: a file per job (scripts) or one file
+    with a block per job (a manifest), in planned start order."""
+    from assignplan.check import check_plan
+    from assignplan.export import read_template, write_export
+    from assignplan.files import all_or_nothing, check_output_dir, check_output_file
+    from assignplan.units import counted
+
+    chosen = read_template(template)
+    if chosen.per_job:
+        check_output_dir(out, "--out")
+    elif out.is_dir():
+        raise InputError(f"--out {out}: is a folder; {template} writes one file (it has no "
+                         "'@@ name' section)")
+    else:
+        check_output_file(out, "--out")
+    expanded, inst = _read_instance(batch, Steps(False))
+    doc, result = _read_plan(plan, inst)
+    violations = check_plan(expanded, doc)
+    with all_or_nothing():
+        wrote = write_export(chosen, inst, result, out)
+    for line in wrote:
+        typer.echo(line, err=True)
+    if violations:
+        typer.echo(f"{plan}: warning: the plan fails the check "
+                   f"({counted(len(violations), 'violation')}); `assignplan check` lists them",
+                   err=True)
 
 
 @app.command()

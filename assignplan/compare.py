@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
 from assignplan.errors import AssignplanError
+from assignplan.executor import Executor, InProcess
 from assignplan.instance import NO_DUE, Instance
 from assignplan.metrics import summary
 from assignplan.plan import PlanResult, gap_pct, objective
+from assignplan.priority import DEFAULT, Priority
 
 
 @dataclass(frozen=True)
@@ -23,33 +26,84 @@ class CompareRow:
 
 
 def compare_methods(inst: Instance, methods: tuple[str, ...], *, seed: int,
-                    budget: float) -> list[CompareRow]:
-    """Run each method with the same budget and the one lower bound (computed once); exact
-    is skipped above its size guard, with the reason in `note`."""
-    from assignplan.bounds import lower_bound
-    from assignplan.solve import EXACT_MAX_JOBS, exact_too_big, solve
+                    budget: float, priority: Priority = DEFAULT) -> list[CompareRow]:
+    """Run each method with the same budget, the one lower bound (computed once) and the
+    one `priority`; exact is skipped above its size guard, with the reason in `note`."""
+    return compare_batches((inst,), methods, seed=seed, budget=budget, priority=priority)[0]
 
-    bound = lower_bound(inst)
-    rows = []
-    for method in methods:
-        if method == "exact" and inst.n_jobs > EXACT_MAX_JOBS:
-            rows.append(CompareRow(method, "skipped", None,
-                                   exact_too_big(inst.n_jobs).removeprefix("exact: ")))
-            continue
+
+@dataclass(frozen=True, eq=False)
+class BoundOf:
+    """The lower bound of batch k (a task: plain data, sent to a worker once per run)."""
+
+    instances: tuple[Instance, ...]
+
+    def __call__(self, k: int):
+        from assignplan.bounds import lower_bound
+
+        return lower_bound(self.instances[k])
+
+
+@dataclass(frozen=True)
+class MethodTask:
+    batch: int
+    method: str
+
+    def __str__(self) -> str:
+        return f"batch {self.batch + 1}, {self.method}"
+
+
+@dataclass(frozen=True, eq=False)
+class RunMethod:
+    """One method on one batch with its bound (a task, as `BoundOf`)."""
+
+    instances: tuple[Instance, ...]
+    bounds: tuple
+    seed: int
+    budget: float
+    priority: Priority = DEFAULT
+
+    def __call__(self, task: MethodTask) -> CompareRow:
+        from assignplan.solve import EXACT_MAX_JOBS, exact_too_big, solve
+
+        inst = self.instances[task.batch]
+        if task.method == "exact" and inst.n_jobs > EXACT_MAX_JOBS:
+            return CompareRow(task.method, "skipped", None,
+                              exact_too_big(inst.n_jobs).removeprefix("exact: "))
         try:
-            result = solve(inst, method, seed=seed, budget=budget, bound=bound)
+            result = solve(inst, task.method, seed=self.seed, budget=self.budget,
+                           bound=self.bounds[task.batch], priority=self.priority)
         except AssignplanError as err:
-            rows.append(CompareRow(method, "failed", None, "; ".join(err.problems)))
-            continue
-        rows.append(CompareRow(method, result.status, result))
-    return rows
+            return CompareRow(task.method, "failed", None, "; ".join(err.problems))
+        return CompareRow(task.method, result.status, result)
 
 
-def best_result(inst: Instance, rows: list[CompareRow]) -> PlanResult | None:
-    """The lexicographically best plan of a comparison (makespan, weighted tardiness,
-    weighted completion); ties go to the method listed first."""
+def compare_batches(instances: Sequence[Instance], methods: tuple[str, ...], *, seed: int,
+                    budget: float, executor: Executor | None = None,
+                    priority: Priority = DEFAULT) -> list[list[CompareRow]]:
+    """`compare_methods` on every batch, each bound and then each (batch, method) pair one
+    task on `executor` (default: one after the other here), every method with `budget`
+    seconds and `priority`; the rows of each batch in the order of `methods`."""
+    executor = executor or InProcess()
+    instances = tuple(instances)
+    bounds: list = [None] * len(instances)
+    for k, bound in executor.run(BoundOf(instances), range(len(instances))):
+        bounds[k] = bound
+    tasks = [MethodTask(b, m) for b in range(len(instances)) for m in methods]
+    rows: list[list[CompareRow | None]] = [[None] * len(methods) for _ in instances]
+    for k, row in executor.run(RunMethod(instances, tuple(bounds), seed, budget,
+                                              priority), tasks):
+        rows[tasks[k].batch][methods.index(tasks[k].method)] = row
+    return [[row for row in batch if row is not None] for batch in rows]
+
+
+def best_result(inst: Instance, rows: list[CompareRow],
+                priority: Priority = DEFAULT) -> PlanResult | None:
+    """The best plan of a comparison as `priority` reads the objective (by default
+    lexicographic: makespan, weighted tardiness, weighted completion); ties go to the method
+    listed first."""
     found = [r.result for r in rows if r.result is not None]
-    return min(found, key=lambda r: objective(inst, r.end), default=None)
+    return min(found, key=lambda r: priority.key(objective(inst, r.end)), default=None)
 
 
 def compare_records(inst: Instance, rows: list[CompareRow]) -> list[dict]:

@@ -9,7 +9,7 @@ calendar times (the same name without `_h`); the models only check each field on
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from pydantic import (
     BaseModel,
@@ -17,6 +17,7 @@ from pydantic import (
     ConfigDict,
     Field,
     WithJsonSchema,
+    model_validator,
 )
 from pydantic_core import PydanticCustomError
 
@@ -234,6 +235,28 @@ class Objective(BaseModel):
         title="Weighted completion (h)", description="Sum of weight x end time.")
 
 
+class PlanPriority(BaseModel):
+    """Which term of the objective the plan was made to minimise first."""
+
+    model_config = _PLAN
+    name: Literal["makespan", "due", "weighted"] = Field(
+        title="Priority", description="makespan: makespan, then weighted tardiness, then "
+        "weighted completion; due: weighted tardiness, then makespan, then weighted "
+        "completion; weighted: the weighted sum of the three terms in hours.")
+    weights: tuple[float, float, float] | None = Field(
+        default=None, title="Weights (per hour)",
+        description="weighted only: the weight per hour of makespan, of weighted tardiness "
+                    "and of weighted completion.")
+
+    @model_validator(mode="after")
+    def _weights_with_weighted(self) -> PlanPriority:
+        if (self.name == "weighted") != (self.weights is not None):
+            raise ValueError("weights are given with the weighted priority, and only with it")
+        if self.weights is not None and (min(self.weights) < 0 or not any(self.weights)):
+            raise ValueError("weights must be >= 0 and not all 0")
+        return self
+
+
 class ObjectiveGaps(BaseModel):
     """Each term's gap to its lower bound, in percent; a zero tardiness bound has no relative
     gap (null when the plan is late at all: read the excess, in weighted hours)."""
@@ -310,6 +333,9 @@ class PlanDoc(BaseModel):
                                   description="Makespan above the lower bound, per cent.")
     objective: Objective | None = Field(default=None, title="Objective",
                                         description="The objective's three terms.")
+    priority: PlanPriority | None = Field(
+        default=None, title="Priority", description="How the method compared plans; absent "
+        "in a hand-written plan.")
     objective_bounds: Objective | None = Field(
         default=None, title="Objective bounds",
         description="A lower bound on each term of the objective (hours).")

@@ -144,6 +144,8 @@ def summary(inst: Instance, result: PlanResult) -> dict:
     return {
         "method": result.method,
         "status": result.status,
+        "priority": None if result.priority is None else result.priority.name,
+        "minimised": None if result.priority is None else result.priority.describe(),
         "jobs": inst.n_jobs,
         "nodes": inst.n_nodes,
         "makespan_h": mk / 60,

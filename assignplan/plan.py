@@ -12,9 +12,11 @@ from assignplan.documents import (
     Objective,
     ObjectiveGaps,
     PlanDoc,
+    PlanPriority,
     Turnaround,
 )
 from assignplan.instance import NO_DUE, Instance
+from assignplan.priority import DEFAULT, Priority
 from assignplan.reading import plan_hours
 from assignplan.units import calendar, counted, hours_of, offset_text
 
@@ -91,7 +93,8 @@ class PlanResult:
     so a reader can see which argument sets the bound. ``tardiness_bound`` and
     ``completion_bound``: lower bounds on the weighted tardiness and the weighted completion
     time in weighted minutes (`bounds.completion`; None when not computed), the latter with
-    its ``completion_parts``.
+    its ``completion_parts``. ``priority``: how the method compared plans
+    (`assignplan.priority`; None for a plan read from a document that does not say).
     """
 
     method: str
@@ -108,6 +111,7 @@ class PlanResult:
     tardiness_bound: float | None = None
     completion_bound: float | None = None
     completion_parts: dict[str, float] = field(default_factory=dict)
+    priority: Priority | None = DEFAULT
 
     @property
     def makespan(self) -> int:
@@ -155,6 +159,8 @@ def to_plan_doc(inst: Instance, result: PlanResult) -> PlanDoc:
             makespan_h=hours_of(mk), weighted_tardiness_h=hours_of(tard),
             weighted_completion_h=hours_of(compl),
         ),
+        priority=None if result.priority is None else PlanPriority(
+            name=result.priority.name, weights=result.priority.weights),
         objective_bounds=bounds,
         gaps_pct=gaps,
         turnaround=Turnaround(**turnaround(inst, result.start, result.end),
@@ -237,7 +243,10 @@ def result_from_doc(inst: Instance, doc: PlanDoc) -> PlanResult:
     else:
         lower = round(doc.lower_bound_h * 60)
         parts = {k: round(v * 60) for k, v in doc.lower_bound_parts_h.items()}
+    priority = None if doc.priority is None else Priority(doc.priority.name,
+                                                          doc.priority.weights)
     return PlanResult(doc.method or "hand-written", assign, start, end, lower,
                       status=doc.status, seed=doc.seed, seconds=doc.seconds,
                       history=list(doc.history), bound_parts=parts,
-                      tardiness_bound=tardiness_bound, completion_bound=completion_bound)
+                      tardiness_bound=tardiness_bound, completion_bound=completion_bound,
+                      priority=priority)

@@ -10,7 +10,9 @@ the lower bounds) and returns the one result type; this module owns what they sh
   the method proved itself (exact's);
 - the time budget: it counts from the call, so the bound's time comes off the method's share;
 - the exact method's size guard;
-- the robust objective (`risk.robust`), which only the ga reads.
+- the robust objective (`risk.robust`), which only the ga reads;
+- the priority (`assignplan.priority`: which term of the objective comes first), which every
+  method reads and the result records.
 """
 
 from __future__ import annotations
@@ -26,9 +28,11 @@ from pydantic import BaseModel, ConfigDict, Field
 from assignplan.bounds import LowerBound, lower_bound
 from assignplan.documents import HistoryRow
 from assignplan.errors import InputError
+from assignplan.executor import Executor
 from assignplan.instance import Instance
 from assignplan.methods.ga.settings import GASettings
 from assignplan.plan import PlanResult
+from assignplan.priority import DEFAULT, Priority
 
 if TYPE_CHECKING:
     from assignplan.risk.robust import Robust
@@ -63,35 +67,53 @@ class Method:
 
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
-            progress: Progress | None, bound: LowerBound, hint: Hint | None = None
-            ) -> PlanResult:
+            progress: Progress | None, bound: LowerBound, priority: Priority,
+            hint: Hint | None = None, executor: Executor | None = None) -> PlanResult:
     from assignplan.methods.greedy import solve_greedy
 
-    return solve_greedy(inst, lower_bound=bound.value)
+    return solve_greedy(inst, lower_bound=bound.value, priority=priority)
 
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
-        progress: Progress | None, bound: LowerBound,
-        robust: Robust | None = None, hint: Hint | None = None) -> PlanResult:
+        progress: Progress | None, bound: LowerBound, priority: Priority,
+        robust: Robust | None = None, hint: Hint | None = None,
+        executor: Executor | None = None) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
+    if settings.islands.count > 1:
+        if robust is not None:
+            raise InputError("--islands: not with --robust (the island run plans for the"
+                             " objective itself)")
+        if priority.name != "makespan":
+            raise InputError("--islands: only with --priority makespan (the islands compare"
+                             " plans makespan first)")
+        if hint is not None:
+            raise InputError("--islands: not when replanning (the islands do not start from"
+                             " the old plan)")
+        from assignplan.methods.ga.islands import solve_islands
+
+        return solve_islands(inst, settings=settings, lower_bound=bound.value, seed=seed,
+                             budget=budget, executor=executor, on_generation=progress,
+                             term_bounds=(bound.tardiness, bound.completion))
     if robust is None:
         return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed,
                         budget=budget, on_generation=progress,
-                        term_bounds=(bound.tardiness, bound.completion), hint=hint)
+                        term_bounds=(bound.tardiness, bound.completion), priority=priority,
+                        hint=hint)
+    from assignplan.methods.ga.loop import for_priority
     from assignplan.risk.robust import robust_evaluate
 
     # the robust score's completion column is not the objective's, so no completion phase
-    settings = settings.replace(completion={"completion_share": 0.0})
+    settings = for_priority(settings.replace(completion={"completion_share": 0.0}), priority)
     return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed, budget=budget,
-                    on_generation=progress, bound_stops=False,
+                    on_generation=progress, bound_stops=False, priority=priority,
                     evaluate=robust_evaluate(inst, robust,
                                              justify=settings.improvement.justify))
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
-           progress: Progress | None, bound: LowerBound, hint: Hint | None = None
-           ) -> PlanResult:
+           progress: Progress | None, bound: LowerBound, priority: Priority,
+           hint: Hint | None = None, executor: Executor | None = None) -> PlanResult:
     from assignplan.methods.exact import solve_exact
     from assignplan.methods.greedy import solve_greedy
 
@@ -99,10 +121,10 @@ def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
         raise InputError(exact_too_big(inst.n_jobs) + "; use --method ga, or --force to try"
                          " anyway")
     if hint is None:
-        greedy = solve_greedy(inst, lower_bound=bound.value)
+        greedy = solve_greedy(inst, lower_bound=bound.value, priority=priority)
         hint = (greedy.assign, greedy.start)
     return solve_exact(inst, lower_bound=bound.value, budget=budget, hint=hint, seed=seed,
-                       workers=settings.workers)
+                       workers=settings.workers, priority=priority)
 
 
 METHODS: dict[str, Method] = {m.name: m for m in (
@@ -129,7 +151,8 @@ def method_named(name: str) -> Method:
 def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
           settings: BaseModel | None = None, progress: Progress | None = None,
           bound: LowerBound | None = None, robust: Robust | None = None,
-          hint: Hint | None = None) -> PlanResult:
+          priority: Priority = DEFAULT, hint: Hint | None = None,
+          executor: Executor | None = None) -> PlanResult:
     """Plan `inst` with `method` within `budget` seconds from this call.
 
     `settings`: the method's settings object (default: its defaults); another type is an
@@ -137,9 +160,12 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     is not charged here). `robust`: plan for a quantile of the makespan under sampled run
     times (`risk.robust`; the ga only, another method is an error). The result carries the
     lower bound of each term of the objective, the parts of the makespan's and the
-    completion time's, and the method's own seconds. `hint`: a feasible plan to start from
-    (a replan's old plan kept as far as it can be): the ga seeds with it, exact takes it as
-    its CP-SAT hint instead of greedy's plan, greedy has no use for it.
+    completion time's, the method's own seconds and the `priority` it planned for (which
+    term of the objective comes first; default the makespan). `hint`: a feasible plan to
+    start from (a replan's old plan kept as far as it can be): the ga seeds with it, exact
+    takes it as its CP-SAT hint instead of greedy's plan, greedy has no use for it.
+    `executor`: where the ga's islands run (`settings.islands.count` > 1; default in this
+    process); the other methods run here.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
@@ -154,12 +180,13 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     if hint is not None:
         extra["hint"] = hint
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
-                        settings=settings, progress=progress, bound=bound, **extra)
+                        settings=settings, progress=progress, bound=bound, priority=priority,
+                        executor=executor, **extra)
     proven = max(bound.value, result.solver_bound or 0)
     return replace(result, lower_bound=proven, bound_parts=dict(bound.parts),
                    tardiness_bound=bound.tardiness, completion_bound=bound.completion,
                    completion_parts=dict(bound.completion_parts),
-                   seconds=time.perf_counter() - started)
+                   seconds=time.perf_counter() - started, priority=priority)
 
 
 def _settings_for(method: Method, settings: BaseModel | None) -> BaseModel | None:

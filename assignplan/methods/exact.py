@@ -1,4 +1,5 @@
-"""Exact method: a CP-SAT model of the batch, lexicographic makespan then weighted tardiness."""
+"""Exact method: a CP-SAT model of the batch, its objectives staged in the priority's order
+(by default makespan, then weighted tardiness, then weighted completion)."""
 
 from __future__ import annotations
 
@@ -13,14 +14,15 @@ from assignplan.errors import SolveError
 from assignplan.instance import NO_DUE, Instance
 from assignplan.methods.cpsat import NodeSlots, add_job, add_node_capacity
 from assignplan.plan import PlanResult, make_result, objective
+from assignplan.priority import DEFAULT, MAKESPAN, TARDINESS, Priority
 from assignplan.schedule import schedule_result
 
 # CP-SAT objectives are integers: float job weights are scaled by this and rounded, so weights
 # are honoured to 1/1000 (the plan's reported objective is recomputed from the float weights).
 WEIGHT_SCALE = 1000
 
-# Share of the time limit stage 1 (makespan, the primary objective) may use; what it leaves
-# goes to stage 2, and to the stage-3 tie-break only when stages 1 and 2 proved optimal.
+# Share of the time limit stage 1 (the primary objective) may use; what it leaves goes to the
+# next stages, and to the stage-3 tie-break only when the stages before it proved optimal.
 STAGE1_SHARE = 0.7
 STAGE2_SHARE_BEFORE_TIEBREAK = 2 / 3
 # The stage-3 tie-break (weighted completion) is capped: its bound is weak, so proving it can
@@ -186,16 +188,20 @@ def solve_exact(
     hint: tuple[np.ndarray, np.ndarray] | None = None,
     workers: int = 0,
     seed: int = 0,
+    priority: Priority = DEFAULT,
 ) -> PlanResult:
-    """Plan `inst` with CP-SAT, lexicographically.
+    """Plan `inst` with CP-SAT, lexicographically, in the order of `priority` (`_stages`).
 
-    Stage 1 minimises C_max; stage 2 minimises T_w = sum_j w_j max(0, e_j - due_j) with
-    C_max fixed (== if stage 1 was proven, else <= the best found); when both stages proved
-    optimal, a stage 3 (at most TIEBREAK_SHARE of the limit) minimises C_w = sum_j w_j e_j with
-    T_w fixed, which also starts jobs as early as the first two objectives allow.
-    Status is "optimal" when C_max and T_w are both proven optimal, else "feasible" (no plan at
-    all raises SolveError). The result's lower bound is
-    max(lower_bound, ceil(stage-1 best_objective_bound)); `solver_bound` is the latter.
+    By default stage 1 minimises C_max; stage 2 minimises T_w = sum_j w_j max(0, e_j - due_j)
+    with C_max fixed (== if stage 1 was proven, else <= the best found); when both stages
+    proved optimal, a stage 3 (at most TIEBREAK_SHARE of the limit) minimises
+    C_w = sum_j w_j e_j with T_w fixed, which also starts jobs as early as the first two
+    objectives allow. With the weighted tardiness first, stages 1 and 2 swap; with a weighted
+    sum, stage 1 minimises it and the terms follow as tie-breaks in the default order.
+    Status is "optimal" when every stage before the last tie-break is proven optimal, else
+    "feasible" (no plan at all raises SolveError). With the makespan first, the result's lower
+    bound is max(lower_bound, ceil(stage-1 best_objective_bound)) and `solver_bound` is the
+    latter; otherwise stage 1 bounds another term and `solver_bound` is None.
     """
     t0 = time.perf_counter()
     mdl = _build_model(inst, hint)
@@ -203,17 +209,20 @@ def solve_exact(
     # soon as it meets the bound instead of proving it again.
     mdl.model.add(mdl.makespan >= int(lower_bound))
 
-    mdl.model.minimize(mdl.makespan)
+    stages = _stages(mdl, inst, priority)
+    mdl.model.minimize(stages[0])
     solver, status = _run(mdl, STAGE1_SHARE * budget, workers, seed)
     if status == cp_model.INFEASIBLE:
         raise SolveError("exact: internal error, the model is infeasible despite a safe horizon")
-    fallback = _hint_result(inst, hint, lower_bound, seed)
-    solver_bound = math.ceil(solver.best_objective_bound - 1e-6)
+    fallback = _hint_result(inst, hint, lower_bound, seed, priority)
+    solver_bound = (math.ceil(solver.best_objective_bound - 1e-6)
+                    if stages[0] is mdl.makespan else None)
+    proven_bound = max(int(lower_bound), solver_bound or 0)
     if status not in _FOUND and fallback is not None:
         # CP-SAT may not complete even a good hint in a short limit; the hint's plan stands,
         # with what the search proved of the makespan (valid whether or not it found a plan)
         return replace(fallback, seconds=time.perf_counter() - t0, solver_bound=solver_bound,
-                       lower_bound=max(int(lower_bound), solver_bound))
+                       lower_bound=proven_bound)
     if status not in _FOUND:
         raise SolveError(
             f"exact: no plan found within {budget:g} s (status {solver.status_name(status)});"
@@ -222,39 +231,63 @@ def solve_exact(
     proven = status == cp_model.OPTIMAL
     plan = _read_plan(mdl, solver)
 
-    done = mdl.makespan
-    if mdl.tardiness is not None:
+    done = stages[0]
+    for objective_k in stages[1:-1]:
         left = budget - (time.perf_counter() - t0)
         share = STAGE2_SHARE_BEFORE_TIEBREAK if proven else 1.0
-        solver2, status = _next_stage(mdl, solver, done, proven, mdl.tardiness, share * left,
+        solver2, status = _next_stage(mdl, solver, done, proven, objective_k, share * left,
                                       workers, seed)
         proven = proven and status == cp_model.OPTIMAL
-        if status in _FOUND:
-            solver, done, plan = solver2, mdl.tardiness, _read_plan(mdl, solver2)
+        if status not in _FOUND:
+            break
+        solver, done, plan = solver2, objective_k, _read_plan(mdl, solver2)
     if proven:
         left = min(budget - (time.perf_counter() - t0), TIEBREAK_SHARE * budget)
-        solver3, status = _next_stage(mdl, solver, done, True, mdl.completion, left,
+        solver3, status = _next_stage(mdl, solver, done, True, stages[-1], left,
                                       workers, seed)
         if status in _FOUND:
             plan = _read_plan(mdl, solver3)
 
     assign, start, end = plan
     result = make_result(
-        inst, "exact", assign, start, max(int(lower_bound), solver_bound),
+        inst, "exact", assign, start, proven_bound,
         status="optimal" if proven else "feasible", seed=seed,
-        seconds=time.perf_counter() - t0, solver_bound=solver_bound,
+        seconds=time.perf_counter() - t0, solver_bound=solver_bound, priority=priority,
     )
     if not np.array_equal(result.end, end):
         raise SolveError("exact: internal error, solver end times disagree with the durations")
-    if fallback is not None and (objective(inst, fallback.end)[:2]
-                                 < objective(inst, result.end)[:2]):
+    if fallback is not None and (priority.key(objective(inst, fallback.end))[:2]
+                                 < priority.key(objective(inst, result.end))[:2]):
         return replace(fallback, lower_bound=result.lower_bound, seconds=result.seconds,
                        solver_bound=solver_bound)
     return result
 
 
+# Weights per hour of a weighted sum are honoured to 1/WEIGHTED_SCALE in the CP-SAT objective.
+WEIGHTED_SCALE = 1000
+
+
+def _stages(mdl: _Model, inst: Instance, priority: Priority) -> list:
+    """The stage objectives in `priority`'s order, the weighted completion last (the capped
+    tie-break); the weighted tardiness left out when no job can be late.
+
+    A weighted sum a C_max + b T_w + c C_w (hours) is one integer objective in scaled
+    minutes: round(a K) W C_max + round(b K) T'_w + round(c K) C'_w, K = WEIGHTED_SCALE,
+    W = WEIGHT_SCALE (T'_w and C'_w already carry W); the terms follow it as tie-breaks.
+    """
+    terms = {MAKESPAN: mdl.makespan, TARDINESS: mdl.tardiness}
+    stages = [terms[k] for k in priority.order[:2] if terms[k] is not None]
+    if priority.weights is not None:
+        a, b, c = (round(w * WEIGHTED_SCALE) for w in priority.weights)
+        weighted = a * WEIGHT_SCALE * mdl.makespan + c * mdl.completion
+        if mdl.tardiness is not None:
+            weighted += b * mdl.tardiness
+        stages.insert(0, weighted)
+    return stages + [mdl.completion]
+
+
 def _hint_result(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None, lower_bound: int,
-                 seed: int) -> PlanResult | None:
+                 seed: int, priority: Priority = DEFAULT) -> PlanResult | None:
     """The hint's assignment decoded by the schedule builder (a feasible plan by construction),
     or None when there is no usable hint. Exact falls back to it when the solver returns
     nothing, or something worse, within its limit: never worse than the plan it was given."""
@@ -262,6 +295,6 @@ def _hint_result(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None, low
         return None
     try:
         return schedule_result(inst, hint[0], "exact", int(lower_bound), status="feasible",
-                               seed=seed)
+                               seed=seed, priority=priority)
     except ValueError:  # a job on a node that cannot hold it: not a plan, only a hint
         return None

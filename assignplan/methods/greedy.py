@@ -20,8 +20,15 @@ import numpy as np
 from assignplan import kernels
 from assignplan.errors import SolveError
 from assignplan.instance import Eligibility, Instance, priority_order
-from assignplan.methods.orders import LONG_SHARE, completion_order, critical_jobs, smith_keys
+from assignplan.methods.orders import (
+    LONG_SHARE,
+    completion_order,
+    critical_jobs,
+    due_order,
+    smith_keys,
+)
 from assignplan.plan import PlanResult, make_result, objective
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule, check_order
 
 
@@ -101,15 +108,17 @@ def forwards(inst: Instance, back: Instance, horizon: int, assign: np.ndarray,
     return assign, build_schedule(inst, assign, by_start)
 
 
-def candidate_plans(inst: Instance, makespan_bound: int) -> dict[str, tuple[np.ndarray,
-                                                                          np.ndarray]]:
+def candidate_plans(inst: Instance, makespan_bound: int, priority: Priority = DEFAULT
+                    ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Greedy's plans by name, each (assign, start):
 
     - "longest": `inst.order`, longest chain first (Graham's LPT within `follows`);
     - "completion": the jobs that can set the makespan (`orders.critical_jobs` with
       LONG_SHARE) longest first, every other job by Smith's rule on duration / weight;
     - "smith": the same with only the jobs on a chain reaching the bound counted critical;
-    - "backward": `backward_assign` from the end of the longest-first plan.
+    - "backward": `backward_assign` from the end of the longest-first plan;
+    - "due" (unless the makespan comes first in `priority`): earliest due date first within
+      `follows` (`orders.due_order`), each job to the node where it ends earliest.
 
     Two at a time on two threads (`greedy_assign_pair`): longest with completion, then smith
     with backward, which needs the longest plan's end.
@@ -125,6 +134,8 @@ def candidate_plans(inst: Instance, makespan_bound: int) -> dict[str, tuple[np.n
         (inst, completion_order(inst, critical_jobs(inst, makespan_bound, None), keys)),
         (back, back.order))
     plans["backward"] = forwards(inst, back, longest_end, *mirror_plan)
+    if priority.name != "makespan":
+        plans["due"] = greedy_assign(inst, due_order(inst))
     return plans
 
 
@@ -180,21 +191,24 @@ def reversed_topological(inst: Instance, order: np.ndarray) -> np.ndarray:
     return completion_order(reverse, np.zeros(inst.n_jobs, dtype=bool), pos.astype(float))
 
 
-def best_plan(inst: Instance, plans: dict[str, tuple[np.ndarray, np.ndarray]]) -> str:
-    """The name of the lexicographically best plan (makespan, weighted tardiness, weighted
-    completion); ties to the first listed."""
-    return min(plans, key=lambda name: objective(inst, inst.end_times(*plans[name])))
+def best_plan(inst: Instance, plans: dict[str, tuple[np.ndarray, np.ndarray]],
+              priority: Priority = DEFAULT) -> str:
+    """The name of the best plan as `priority` reads the objective (by default
+    lexicographic: makespan, weighted tardiness, weighted completion); ties to the first
+    listed."""
+    return min(plans, key=lambda name: priority.key(objective(inst,
+                                                              inst.end_times(*plans[name]))))
 
 
-def solve_greedy(inst: Instance, *, lower_bound: int,
-                 seconds_start: float | None = None) -> PlanResult:
-    """The greedy plan as a PlanResult (method "greedy", status "feasible"): the
-    lexicographically best of `candidate_plans`, so never worse than any of them.
+def solve_greedy(inst: Instance, *, lower_bound: int, seconds_start: float | None = None,
+                 priority: Priority = DEFAULT) -> PlanResult:
+    """The greedy plan as a PlanResult (method "greedy", status "feasible"): the best of
+    `candidate_plans` as `priority` reads the objective, so never worse than any of them.
 
     `seconds_start`: a `time.perf_counter()` reading to count seconds from (default: now).
     """
     t0 = time.perf_counter() if seconds_start is None else seconds_start
-    plans = candidate_plans(inst, lower_bound)
-    assign, start = plans[best_plan(inst, plans)]
+    plans = candidate_plans(inst, lower_bound, priority)
+    assign, start = plans[best_plan(inst, plans, priority)]
     return make_result(inst, "greedy", assign, start, lower_bound, status="feasible",
                        seconds=time.perf_counter() - t0)

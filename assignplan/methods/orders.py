@@ -75,3 +75,39 @@ def completion_order(inst: Instance, critical: np.ndarray, keys: np.ndarray) -> 
                 heapq.heappush(heap, (0 if critical[k] else 1,
                                       rank[k] if critical[k] else keys[k], k))
     return np.asarray(order, dtype=np.int64)
+
+
+def effective_due(inst: Instance) -> np.ndarray:
+    """int64[J]: each job's due time tightened by the jobs that follow it,
+    d'_j = min(d_j, min_{k follows j} d'_k - p_k) (p_k the fastest eligible duration), so a
+    job without a due time of its own inherits the latest end that lets its successors meet
+    theirs; computed successors first. NO_DUE stays far beyond any plan."""
+    p = inst.min_duration().astype(np.int64)
+    due = inst.due.astype(np.int64).copy()
+    for j in inst.order[::-1].tolist():
+        succ = inst.successors(j)
+        if len(succ):
+            due[j] = min(due[j], int((due[succ] - p[succ]).min()))
+    return due
+
+
+def due_order(inst: Instance) -> np.ndarray:
+    """int64[J]: earliest due date first within `follows`: a topological order that takes,
+    among the jobs whose predecessors are all placed, the one of earliest `effective_due`,
+    ties in `inst.order` (longest chain first), so jobs without a due time come last, longest
+    first."""
+    rank = np.empty(inst.n_jobs, dtype=np.int64)
+    rank[inst.order] = np.arange(inst.n_jobs)
+    due = effective_due(inst)
+    waiting = np.diff(inst.pred_ptr).copy()
+    heap = [(int(due[j]), int(rank[j]), j) for j in np.flatnonzero(waiting == 0).tolist()]
+    heapq.heapify(heap)
+    order = []
+    while heap:
+        _, _, j = heapq.heappop(heap)
+        order.append(j)
+        for k in inst.successors(j).tolist():
+            waiting[k] -= 1
+            if waiting[k] == 0:
+                heapq.heappush(heap, (int(due[k]), int(rank[k]), k))
+    return np.asarray(order, dtype=np.int64)

@@ -118,7 +118,8 @@ def summary_cards(inst: Instance, s: dict) -> str:
               f" {s['bounded_slowdown_threshold_min']} min count as"
               f" {s['bounded_slowdown_threshold_min']} min)"),
         _card("method", escape(f"{s['method']}"),
-              f"{escape(s['status'])}, solved in {s['seconds']:.2f} s{seed}"),
+              f"{escape(s['status'])}, solved in {s['seconds']:.2f} s{seed}"
+              + (f"; minimising {escape(s['minimised'])}" if s.get("minimised") else "")),
     ]
     return '<div class="cards">' + "".join(cards) + "</div>"
 

@@ -24,13 +24,17 @@ def summary_table(s: dict) -> Table:
     window_h = s["window_h"]
     fits = "inside" if s["makespan_h"] <= window_h else "PAST"
     rows = [
-        ("method", f"{s['method']} ({s['status']})"),
+        ("method", f"{s['method']} ({s['status']})"
+                   + (f", minimising {s['minimised']}" if s.get("minimised") else "")),
         ("jobs / nodes", f"{counted(s['jobs'], 'job')} on {counted(s['nodes'], 'node')}"),
         ("makespan", f"{number(s['makespan_h'], 2)} h, ends {s['makespan_at']} "
                      f"({fits} the {window_h:g} h window)"),
         ("lower bound", f"{number(s['lower_bound_h'], 2)} h (gap {number(s['gap_pct'], 2)} %)"
                         + (f", set by {why}" if (why := bound_source_text(
-                            s.get('lower_bound_set_by'))) else "")),
+                            s.get('lower_bound_set_by'))) else "")
+                        + ("" if s.get("weighted_tardiness_bound_h") is None else
+                           f"; weighted tardiness bound "
+                           f"{number(s['weighted_tardiness_bound_h'], 2)} h")),
         ("utilisation over makespan",
          f"cores {number(s['core_utilisation_pct'], 1, ' %')}, memory "
          f"{number(s['memory_utilisation_pct'], 1, ' %')}, "
@@ -125,11 +129,13 @@ def compare_table(records: list[dict]) -> Table:
     the gaps of weighted tardiness and weighted completion to their bounds, mean wait, cost.
     (The gap to a proven optimum is the gap to the best then; `compare --json` has both.)"""
     t = Table(title="Methods compared", title_justify="left")
-    for col in ("method", "makespan h", "gap bound", "gap best", "cores", "late",
-                "tard. gap", "compl. gap", "wait h", "s", "status"):
-        t.add_column(col, justify="left" if col in ("method", "status") else "right")
+    batches = any("batch" in r for r in records)  # several batches: a column naming each
+    for col in ("batch", "method", "makespan h", "gap bound", "gap best", "cores", "late",
+                "tard. gap", "compl. gap", "wait h", "s", "status")[0 if batches else 1:]:
+        t.add_column(col, justify="left" if col in ("batch", "method", "status") else "right")
     for r in records:
-        t.add_row(r["method"], number(r["makespan_h"], 2), number(r["gap_pct"], 2, " %"),
+        t.add_row(*([r["batch"]] if batches else []),
+                  r["method"], number(r["makespan_h"], 2), number(r["gap_pct"], 2, " %"),
                   number(r["gap_best_pct"], 2, " %"),
                   number(r["core_utilisation_pct"], 1, " %"),
                   "–" if r["late_jobs"] is None else str(r["late_jobs"]),
@@ -148,10 +154,15 @@ def _tardiness_gap_cell(r: dict) -> str:
 def compare_notes(records: list[dict]) -> list[str]:
     """Lines under the comparison table: each skipped or failed method's reason, and where
     the bound came from when exact proved more than the bound `solve` reports alone."""
-    lines = [f"{r['method']}: {r['status']}: {r['note']}" for r in records if r["note"]]
-    if records and records[0]["lower_bound_h"] > records[0]["provable_bound_h"]:
-        lines.append(
-            f"gap to bound: against {records[0]['lower_bound_h']:,.2f} h, which the exact "
-            f"solver proved; solve alone reports its gap against the lower bound of "
-            f"{records[0]['provable_bound_h']:,.2f} h, so its figures are higher here")
+    lines = [f"{r['batch'] + ': ' if 'batch' in r else ''}{r['method']}: {r['status']}: "
+             f"{r['note']}" for r in records if r["note"]]
+    firsts = [r for k, r in enumerate(records)
+              if k == 0 or r.get("batch") != records[k - 1].get("batch")]
+    for first in firsts:
+        if first["lower_bound_h"] > first["provable_bound_h"]:
+            lines.append(
+                f"{first['batch'] + ': ' if 'batch' in first else ''}gap to bound: against "
+                f"{first['lower_bound_h']:,.2f} h, which the exact solver proved; solve alone "
+                f"reports its gap against the lower bound of {first['provable_bound_h']:,.2f}"
+                " h, so its figures are higher here")
     return lines

@@ -110,6 +110,9 @@ class Chunk:
     lo: int
     hi: int
 
+    def __str__(self) -> str:
+        return f"samples {self.lo}-{self.hi - 1}"
+
 
 def chunks(samples: int, size: int = CHUNK_SAMPLES) -> list[Chunk]:
     return [Chunk(lo, min(samples, lo + size)) for lo in range(0, samples, size)]

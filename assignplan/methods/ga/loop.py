@@ -33,6 +33,7 @@ from assignplan.methods.ga.selection import lex_less, lex_rank
 from assignplan.methods.ga.settings import GASettings, sized
 from assignplan.methods.ga.variation import vary
 from assignplan.plan import PlanResult
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import evaluate_population, schedule_result
 
 OnGeneration = Callable[[HistoryRow], None]
@@ -58,7 +59,7 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
                extra: tuple[np.ndarray, np.ndarray] | None = None,
                final: bool = False, patience: float | None = None,
                term_bounds: tuple[float, float] | None = None,
-               bound_stops: bool = True) -> Island:
+               bound_stops: bool = True, priority: Priority = DEFAULT) -> Island:
     """One ga run: seed, then per generation select, vary, repair, evaluate, improve,
     survive, record; until the generations, the stagnation limit, the deadline (a
     `time.perf_counter()` reading) or, with `bound_stops`, the lower bound (with no tardiness
@@ -78,20 +79,26 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
     `patience`: seconds without a better (makespan, tardiness) after which the run stops;
     `term_bounds` (final phase): (weighted tardiness, weighted completion) bounds whose meeting
     stops it.
+
+    `priority`: the order the objective's fixed score columns are read in (selection keys,
+    survival, the best member, the bound stop, which needs the first term at its bound:
+    `_Stopping.done`); the default reads makespan, tardiness, completion.
     """
     index = EligibleIndex.of(inst)
     if final:
         settings = settings.replace(improvement={"tiebreak": "none"})
     scorer, pop = _seed(inst, settings, index, evaluate, migrants, migrant_keys, initial,
-                        extra, rng=rng)
+                        extra, rng=rng, priority=priority)
     ctx = Context(inst, index, scorer, lower_bound, settings.improvement.justify,
                   settings.population.survival)
     steps = improvers(settings, ctx, final=final)
     survive = survival.SCHEMES[settings.population.survival]
     stop = _Stopping(settings, None if final or not bound_stops else lower_bound, deadline,
                      pop, columns=3 if final else None, patience=patience,
-                     targets=term_bounds if final else None)
-    history = _History(on_generation)
+                     targets=term_bounds if final else None, priority=priority,
+                     term_bounds=term_bounds if bound_stops else None,
+                     final_bound=lower_bound if final and bound_stops else None)
+    history = _History(on_generation, priority)
     history.add(0, scorer.evaluations, pop)
     for generation in range(1, settings.stopping.generations + 1):
         if stop.done():
@@ -107,7 +114,7 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
         scorer.keep_only(pop, pool.take(np.flatnonzero(pool.born)))
         stop.update(pop)
         history.add(generation, scorer.evaluations, pop)
-    rank = np.argsort(lex_rank(pop.score[:, :3]), kind="stable")
+    rank = np.argsort(lex_rank(priority.read(pop.score)), kind="stable")
     return Island(pop.assign[rank], pop.score[rank],
                   scorer.orders(None if pop.keys is None else pop.keys[rank]), history.rows)
 
@@ -115,12 +122,13 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
 def _seed(inst: Instance, settings: GASettings, index: EligibleIndex, evaluate: Evaluate,
           migrants: np.ndarray | None, migrant_keys: np.ndarray | None,
           initial: tuple[np.ndarray, np.ndarray] | None,
-          extra: tuple[np.ndarray, np.ndarray] | None, *,
-          rng: np.random.Generator) -> tuple[Scorer, Population]:
+          extra: tuple[np.ndarray, np.ndarray] | None, *, rng: np.random.Generator,
+          priority: Priority = DEFAULT) -> tuple[Scorer, Population]:
     """The scorer (with the fixed decoding order of the best greedy seed, or of the first
     member of `initial`) and the scored initial population, migrants included."""
     if initial is None:
-        assign, keys, best = initial_population(inst, settings, index, rng=rng)
+        assign, keys, best = initial_population(inst, settings, index, rng=rng,
+                                                priority=priority)
     else:
         (assign, keys), best = initial, 0
     order = orders_from_keys(inst, keys[[best]])[0]  # keys 1 give exactly inst.order
@@ -133,7 +141,7 @@ def _seed(inst: Instance, settings: GASettings, index: EligibleIndex, evaluate: 
         assign, keys = np.concatenate([assign, extra[0]]), np.concatenate([keys, extra[1]])
     evolve = settings.variation.evolve_order
     scorer = Scorer(inst, evaluate, Genomes(inst.n_jobs, evolve), order,
-                    selection_key(settings.improvement.tiebreak, inst))
+                    selection_key(settings.improvement.tiebreak, inst, priority))
     return scorer, scorer.population(assign, keys if evolve else None, born=False)
 
 
@@ -141,21 +149,22 @@ class _Stopping:
     """Stagnation (generations without progress on the key's leading columns), the deadline
     (also when a generation of the usual length would not end before it: on 1,200 jobs one
     takes seconds, and a phase overrunning its share starves the next one), `patience`
-    seconds without a better (makespan, tardiness) (the makespan phase, when a final phase
-    follows), and a makespan at the bound with no tardiness left (the weighted completion time
-    is the final phase's to improve: it stops instead when tardiness and completion meet
-    `targets`, their bounds)."""
+    seconds without a better head of the objective (makespan and tardiness in the priority's
+    order; the makespan phase, when a final phase follows), and the bounds (`done`)."""
 
     def __init__(self, settings: GASettings, lower_bound: int | None, deadline: float,
                  pop: Population, columns: int | None = None, patience: float | None = None,
-                 targets: tuple[float, float] | None = None):
+                 targets: tuple[float, float] | None = None, priority: Priority = DEFAULT,
+                 term_bounds: tuple[float, float] | None = None,
+                 final_bound: int | None = None):
         self.limit, self.lower_bound, self.deadline = (settings.stopping.stagnation,
                                                        lower_bound, deadline)
-        self.patience, self.targets = patience, targets
-        self.columns = columns or progress_columns(settings.improvement.tiebreak)
+        self.patience, self.targets, self.priority = patience, targets, priority
+        self.term_bounds, self.final_bound = term_bounds, final_bound
+        self.columns = columns or progress_columns(settings.improvement.tiebreak, priority)
         self.since_better = 0
         self.best_key = pop.key[int(np.argmin(lex_rank(pop.key)))]
-        self.best_score = pop.score[int(np.argmin(lex_rank(pop.score[:, :3])))]
+        self.best_score = pop.score[int(np.argmin(lex_rank(priority.read(pop.score))))]
         self.last = self.gained = time.perf_counter()
         self.lengths: list[float] = []
 
@@ -170,34 +179,64 @@ class _Stopping:
         best = int(np.argmin(lex_rank(pop.key)))
         better = lex_less(pop.key[best, : self.columns], self.best_key[: self.columns])[0]
         self.since_better = 0 if better else self.since_better + 1
-        if lex_less(pop.score[best, :2], self.best_score[:2])[0]:
+        head = self.priority.read(np.stack([pop.score[best], self.best_score]))[:, :2]
+        if lex_less(head[0], head[1])[0]:
             self.gained = now
         self.best_key, self.best_score = pop.key[best], pop.score[best]
 
     def done(self) -> bool:
-        at_bound = (self.lower_bound is not None and self.best_score[MAKESPAN] <= self.lower_bound
-                    and self.best_score[TARDINESS] == 0)
-        if self.targets is not None:  # float bounds, a hair below their value: meet within
-            tard, compl = self.targets  # a millionth
-            at_bound = (self.best_score[TARDINESS] <= tard * (1 + 1e-6) + 1e-6
-                        and self.best_score[COMPLETION] <= compl * (1 + 1e-6) + 1e-6)
         usual = float(np.median(self.lengths)) if self.lengths else 0.0
         now = time.perf_counter()
         waited = self.patience is not None and now - self.gained >= self.patience
-        return (at_bound or waited or self.since_better >= self.limit
+        return (self.at_bound() or waited or self.since_better >= self.limit
                 or now + usual >= self.deadline)
+
+    def at_bound(self) -> bool:
+        """Whether no plan can be better, as far as the bounds tell.
+
+        Makespan first: a makespan at the bound with no tardiness left (the weighted
+        completion time is the final phase's to improve: it stops instead when tardiness and
+        completion meet `targets`, their bounds). Another priority: only when its first term
+        is at its bound and so are the terms it reads before the weighted completion (in the
+        final phase, or for a weighted sum, that one too)."""
+        if self.priority.name == "makespan":
+            at_bound = (self.lower_bound is not None
+                        and self.best_score[MAKESPAN] <= self.lower_bound
+                        and self.best_score[TARDINESS] == 0)
+            if self.targets is not None:  # float bounds, a hair below their value: meet within
+                tard, compl = self.targets  # a millionth
+                at_bound = (_meets(self.best_score[TARDINESS], tard)
+                            and _meets(self.best_score[COMPLETION], compl))
+            return at_bound
+        makespan = self.final_bound if self.lower_bound is None else self.lower_bound
+        if makespan is None:
+            return False
+        tard, compl = self.term_bounds if self.term_bounds is not None else (0.0, None)
+        at_bound = (self.best_score[MAKESPAN] <= makespan
+                    and _meets(self.best_score[TARDINESS], tard))
+        if self.targets is not None or not self.priority.lexicographic:
+            at_bound = at_bound and compl is not None and _meets(self.best_score[COMPLETION],
+                                                                 compl)
+        return bool(at_bound)
+
+
+def _meets(value: float, bound: float) -> bool:
+    """A value at a float bound, within a millionth (a bound is a hair below its value)."""
+    return value <= bound * (1 + 1e-6) + 1e-6
 
 
 class _History:
-    """A row per generation (best and median makespan, best tardiness), passed on as it comes."""
+    """A row per generation (best and median makespan, best tardiness; the best as `priority`
+    reads the objective), passed on as it comes."""
 
-    def __init__(self, on_generation: OnGeneration | None):
+    def __init__(self, on_generation: OnGeneration | None, priority: Priority = DEFAULT):
         self.rows: list[HistoryRow] = []
         self.on_generation = on_generation
+        self.priority = priority
 
     def add(self, generation: int, evaluations: int, pop: Population) -> None:
         fit = pop.score[:, :3]
-        best = fit[int(np.argmin(lex_rank(fit)))]
+        best = fit[int(np.argmin(lex_rank(self.priority.read(fit))))]
         self.rows.append(HistoryRow(generation=generation, evaluations=evaluations,
                                     best_makespan_h=float(best[0]) / 60,
                                     median_makespan_h=float(np.median(fit[:, 0])) / 60,
@@ -219,6 +258,7 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
              budget: float, on_generation: OnGeneration | None = None,
              evaluate: Evaluate | None = None, bound_stops: bool = True,
              term_bounds: tuple[float, float] | None = None,
+             priority: Priority = DEFAULT,
              hint: tuple[np.ndarray, np.ndarray] | None = None) -> PlanResult:
     """The ga plan as a PlanResult (method "ga", status "feasible", seed and history kept).
 
@@ -254,34 +294,52 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
        after `completion.completion_stagnation` generations without a better completion
        time, or once the weighted tardiness and completion meet `term_bounds` (weighted
        minutes).
+
+    `priority` (`assignplan.priority`): the order every phase reads the fixed score columns in
+    (with the weighted tardiness first, phase 2 is the phase of the tardiness and then the
+    makespan, and its greedy seed the best of greedy's plans under that order, its
+    earliest-due-date plan among them); never worse than greedy under the same priority
+    (`for_priority`).
     """
     t0 = time.perf_counter()
     rng = np.random.default_rng(seed)
-    settings = sized(settings, inst.n_jobs)
+    settings = for_priority(sized(settings, inst.n_jobs), priority)
     evaluate = evaluate or default_evaluate(inst, settings)
     comp = settings.completion
     early_end = t0 + (1.0 - comp.completion_share) * budget
     seed_end = t0 + comp.completion_seed_time * budget
-    history = _Phases(on_generation)
+    history = Phases(on_generation)
     island = _makespan_phases(
         inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound, t0=t0,
         end=early_end, seed_end=seed_end,
         patience=comp.patience * budget if comp.completion_share > 0 else None,
-        history=history, bound_stops=bound_stops, hint=hint)
+        history=history, bound_stops=bound_stops, priority=priority, term_bounds=term_bounds,
+        hint=hint)
     if comp.completion_share > 0:
         final = math.ceil(comp.completion_share * settings.stopping.generations)
-        island = _completion_phase(inst, settings.replace(stopping={"generations": final}),
+        island = completion_phase(inst, settings.replace(stopping={"generations": final}),
                                    island, rng=rng, evaluate=evaluate,
                                    lower_bound=lower_bound, end=t0 + budget,
                                    seed_end=time.perf_counter() + comp.completion_seed_time
-                                   * budget, history=history, term_bounds=term_bounds)
+                                   * budget, history=history, term_bounds=term_bounds,
+                                   priority=priority)
     order = island.orders if island.orders.ndim == 1 else island.orders[0]
     return schedule_result(inst, island.assign[0], "ga", lower_bound, order,
                            justify=settings.improvement.justify, status="feasible", seed=seed,
                            seconds=time.perf_counter() - t0, history=history.rows)
 
 
-class _Phases:
+def for_priority(settings: GASettings, priority: Priority) -> GASettings:
+    """The settings a run under `priority` uses: forward-backward justification
+    (`improvement.justify`) keeps the schedule that is best with the makespan first
+    (`kernels._justify`), which can be a later one for the due times, so another priority
+    decodes without it (a seed then decodes to its plan or one starting no job later)."""
+    if priority.name == "makespan":
+        return settings
+    return settings.replace(improvement={"justify": False})
+
+
+class Phases:
     """The history of a run made of phases: each phase's rows continue the last one's
     generation and evaluation counts; a later phase's generation 0 (its seeds, the end of the
     phase before plus fresh ones) is not a generation of the run and is left out."""
@@ -312,8 +370,9 @@ class _Phases:
 
 def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Generator,
                      evaluate: Evaluate, lower_bound: int, t0: float, end: float,
-                     seed_end: float, patience: float | None, history: _Phases,
-                     bound_stops: bool = True,
+                     seed_end: float, patience: float | None, history: Phases,
+                     bound_stops: bool = True, priority: Priority = DEFAULT,
+                     term_bounds: tuple[float, float] | None = None,
                      hint: tuple[np.ndarray, np.ndarray] | None = None) -> Island:
     """Phases 1 and 2 of `solve_ga` (within `end`, a `time.perf_counter()` reading; phase 2
     also stops after `patience` seconds without a better makespan or tardiness)."""
@@ -326,14 +385,15 @@ def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Gen
         island = run_island(dataclasses.replace(inst, elig=reserved), first, rng=rng,
                             evaluate=evaluate, lower_bound=lower_bound,
                             deadline=t0 + share * (end - t0), on_generation=history.add,
-                            bound_stops=bound_stops)
+                            bound_stops=bound_stops, priority=priority,
+                            term_bounds=term_bounds)
         n = max(1, settings.population.mu // 2)
         migrants = island.assign[:n]
         if settings.variation.evolve_order:
             migrant_keys = np.stack([keys_for_order(inst, o) for o in island.orders[:n]])
         settings = settings.replace(stopping={"generations": max(
             settings.stopping.generations - history.generation, 0)})
-    extra = completion_seeds(inst, lower_bound, 0, deadline=seed_end)
+    extra = completion_seeds(inst, lower_bound, 0, deadline=seed_end, priority=priority)
     if hint is not None:
         extra = (np.concatenate([extra[0], hint[0][None, :]]),
                  np.concatenate([extra[1], plan_keys(inst, hint[1])[None, :]]))
@@ -341,20 +401,21 @@ def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Gen
     return run_island(inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound,
                       deadline=end, on_generation=history.add, migrants=migrants,
                       migrant_keys=migrant_keys, extra=extra, patience=patience,
-                      bound_stops=bound_stops)
+                      bound_stops=bound_stops, priority=priority, term_bounds=term_bounds)
 
 
-def _completion_phase(inst: Instance, settings: GASettings, island: Island, *,
+def completion_phase(inst: Instance, settings: GASettings, island: Island, *,
                       rng: np.random.Generator, evaluate: Evaluate, lower_bound: int,
-                      end: float, seed_end: float, history: _Phases,
-                      term_bounds: tuple[float, float] | None) -> Island:
+                      end: float, seed_end: float, history: Phases,
+                      term_bounds: tuple[float, float] | None,
+                      priority: Priority = DEFAULT) -> Island:
     """Phase 3 of `solve_ga`: seeded with the best of `island`, the greedy plan, the best
     completion orders read back from its makespan (`seeding.completion_seeds`), at most half
     of the other places, and the rest of `island`."""
     mu = settings.population.mu
     horizon = int(island.score[0, MAKESPAN])
     seeds, seed_keys = completion_seeds(inst, lower_bound, settings.completion.completion_seeds,
-                                        horizon=horizon, deadline=seed_end)
+                                        horizon=horizon, deadline=seed_end, priority=priority)
     n_var = min(len(seeds) - 1, max(0, mu - 2) // 2 if len(island.assign) > 1 else mu)
     n_own = max(1, mu - 1 - n_var)
     orders = island.orders if island.orders.ndim == 2 else np.broadcast_to(
@@ -367,4 +428,4 @@ def _completion_phase(inst: Instance, settings: GASettings, island: Island, *,
     return run_island(inst, settings.replace(stopping={
         "stagnation": settings.completion.completion_stagnation}), rng=rng, evaluate=evaluate,
         lower_bound=lower_bound, deadline=end, on_generation=history.add,
-        initial=(assign, keys), final=True, term_bounds=term_bounds)
+        initial=(assign, keys), final=True, term_bounds=term_bounds, priority=priority)

@@ -17,6 +17,7 @@ import numpy as np
 from assignplan.instance import Instance
 from assignplan.methods.ga.encoding import node_load
 from assignplan.methods.ga.order_keys import orders_from_keys
+from assignplan.priority import DEFAULT, Priority
 
 # Columns of a score row: the objective first, then the plateau measures.
 MAKESPAN, TARDINESS, COMPLETION, SPREAD, TAIL = range(5)
@@ -28,9 +29,10 @@ Evaluate = Callable[[np.ndarray, np.ndarray], np.ndarray]
 Key = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
 
-def selection_key(tiebreak: str, inst: Instance) -> Key:
+def selection_key(tiebreak: str, inst: Instance, priority: Priority = DEFAULT) -> Key:
     """The lexicographic key tournaments, survival and the improvers compare plans by.
 
+    With the makespan first (the default `priority`):
     - "tail": (makespan, tardiness, T, B, completion), T the area of the jobs ending at the
       makespan, B the sum of squared node finishes: on packing-like batches a tighter first
       layer shows in T before anywhere else (the work Falkenauer's fill-based fitness pushes
@@ -43,7 +45,14 @@ def selection_key(tiebreak: str, inst: Instance) -> Key:
     and moving one job off one of them changes nothing visible; a lower B means the latest
     nodes end earlier, a step towards the next makespan drop. The reported objective stays
     (makespan, tardiness, completion).
+
+    Another `priority` reads the same score columns in its own order (`Priority.read`), the
+    plateau measures still just before the weighted completion: "due" with "tail" is
+    (tardiness, makespan, T, B, completion); "weighted" is (sum, makespan, tardiness, T, B,
+    completion).
     """
+    if priority.name != "makespan":
+        return _read_key(tiebreak, inst, priority)
     if tiebreak == "tail":
         return lambda assign, s: s[:, [MAKESPAN, TARDINESS, TAIL, SPREAD, COMPLETION]]
     if tiebreak == "spread":
@@ -57,11 +66,30 @@ def selection_key(tiebreak: str, inst: Instance) -> Key:
     return lambda assign, s: s[:, [MAKESPAN, TARDINESS, COMPLETION]]
 
 
-def progress_columns(tiebreak: str) -> int:
+def _read_key(tiebreak: str, inst: Instance, priority: Priority) -> Key:
+    """`selection_key` for a priority other than the makespan first."""
+    def key(assign: np.ndarray, s: np.ndarray) -> np.ndarray:
+        read = priority.read(s[:, [MAKESPAN, TARDINESS, COMPLETION]])
+        if tiebreak == "tail":
+            plateau = s[:, [TAIL, SPREAD]]
+        elif tiebreak == "spread":
+            plateau = s[:, [SPREAD]]
+        elif tiebreak == "balance":
+            load = node_load(inst, assign)
+            plateau = ((load**2).sum(axis=1) / np.maximum(load.sum(axis=1), 1.0))[:, None]
+        else:
+            return read
+        return np.column_stack([read[:, :-1], plateau, read[:, -1:]])
+    return key
+
+
+def progress_columns(tiebreak: str, priority: Priority = DEFAULT) -> int:
     """Leading key columns whose improvement counts as progress against stagnation: the
-    makespan and tardiness, and with "tail" the tail area too (a packing getting tighter is
-    progress; the weighted completion keeps improving by crumbs long after the plan has
-    stopped getting better)."""
+    makespan and tardiness (in the priority's order; the weighted sum alone for "weighted"),
+    and with "tail" the tail area too (a packing getting tighter is progress; the weighted
+    completion keeps improving by crumbs long after the plan has stopped getting better)."""
+    if not priority.lexicographic:
+        return 1
     return 3 if tiebreak == "tail" else 2
 
 

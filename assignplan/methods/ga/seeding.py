@@ -18,6 +18,7 @@ from assignplan.methods.greedy import (
     greedy_assign,
 )
 from assignplan.plan import objective
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import check_order
 
 ALPHAS = (0.5, 1.0, 0.0)  # scarcity exponents of the greedy variants (0.5 helps most often)
@@ -51,7 +52,8 @@ def greedy_variant_orders(inst: Instance, n: int, noise: float, *,
 
 
 def initial_population(inst: Instance, settings: GASettings, index: EligibleIndex, *,
-                       rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, int]:
+                       rng: np.random.Generator, priority: Priority = DEFAULT
+                       ) -> tuple[np.ndarray, np.ndarray, int]:
     """(int64[mu, J] population, float64[mu, J] order keys, index of the best seed).
 
     Members: the greedy plan of inst.order (keys 1), greedy plans of the orders of
@@ -61,7 +63,8 @@ def initial_population(inst: Instance, settings: GASettings, index: EligibleInde
     evolve) is the best seed's; random members get its keys. The builder replays a greedy
     plan exactly under its own order, so with evolved orders every seed decodes to its greedy
     plan, and with one fixed order the run starts from the best greedy plan: either way the
-    run never ends worse than greedy.
+    run never ends worse than greedy. The best seed is the best as `priority` reads the
+    objective.
     """
     mu, seeding = settings.population.mu, settings.seeding
     keys = [np.ones(inst.n_jobs)]
@@ -77,7 +80,7 @@ def initial_population(inst: Instance, settings: GASettings, index: EligibleInde
         keys += keys[:n_balanced]
     scores = np.array([objective(inst, inst.end_times(assign, start))
                        for assign, start in plans], dtype=np.float64)
-    best = int(np.argmin(lex_rank(scores)))
+    best = int(np.argmin(lex_rank(priority.read(scores))))
     seeds = np.stack([assign for assign, _ in plans])
     rest = random_population(inst, mu - len(seeds), index, rng=rng)
     all_keys = np.stack(keys + [keys[best]] * len(rest))
@@ -93,22 +96,24 @@ def plan_keys(inst: Instance, start: np.ndarray) -> np.ndarray:
 
 
 def completion_seeds(inst: Instance, makespan_bound: int, n: int, *,
-                     horizon: int | None = None, deadline: float | None = None
-                     ) -> tuple[np.ndarray, np.ndarray]:
+                     horizon: int | None = None, deadline: float | None = None,
+                     priority: Priority = DEFAULT) -> tuple[np.ndarray, np.ndarray]:
     """(int64[k, J] plans, float64[k, J] their order keys), best first: the greedy method's
     plan (`greedy.candidate_plans`, best of them), then the n lexicographically best distinct
     plans of `greedy.completion_variants` read backwards from `horizon` (default: the greedy
     plans' best makespan) that differ from it. The greedy plan always comes first, so a phase
-    seeded with these ends no worse than greedy in the objective's own order."""
-    plans = candidate_plans(inst, makespan_bound)
-    first = plans[best_plan(inst, plans)]
+    seeded with these ends no worse than greedy in the objective's own order. Plans are
+    ranked as `priority` reads the objective, and greedy's plans are those it makes for it."""
+    plans = candidate_plans(inst, makespan_bound, priority)
+    first = plans[best_plan(inst, plans, priority)]
     if horizon is None:
         horizon = min(int(inst.end_times(*p).max()) for p in plans.values())
     pool = [first] + list(plans.values())
     if n > 0:
         pool += completion_variants(inst, horizon, deadline=deadline)
     scores = np.array([objective(inst, inst.end_times(*p)) for p in pool])
-    rank = [0] + [k for k in np.argsort(lex_rank(scores), kind="stable").tolist() if k]
+    rank = [0] + [k for k in np.argsort(lex_rank(priority.read(scores)), kind="stable").tolist()
+                  if k]
     chosen, seen = [], set()
     for k in rank:
         code = pool[k][0].tobytes() + pool[k][1].tobytes()

@@ -1,4 +1,4 @@
-"""The genetic algorithm's settings: five validated, frozen groups, readable from a file.
+"""The genetic algorithm's settings: seven validated, frozen groups, readable from a file.
 
 A user changes `stopping.generations` now and then (the CLI's `--generations`); the rest is
 tuning, read from a settings file (`--ga-settings FILE`, TOML or JSON) with the same groups:
@@ -202,8 +202,26 @@ class StoppingSettings(BaseModel):
                             description="Stop after this many generations without a better best.")
 
 
+class IslandSettings(BaseModel):
+    """Several populations side by side (an island model), each epoch one task per island
+    (`islands.solve_islands`); one island is the ordinary run."""
+
+    model_config = _FROZEN
+    count: int = Field(
+        default=1, ge=1, le=1_024,
+        description="Populations evolved side by side, seeded from SeedSequence(seed).spawn("
+                    "count); `--islands` sets it. 1: one population, the ordinary run.")
+    epoch: int = Field(
+        default=20, ge=1, le=1_000_000,
+        description="Generations each island runs as one task before the best plans migrate.")
+    migrants: int = Field(
+        default=2, ge=0, le=10_000,
+        description="Best plans each island sends to the next one along the ring after each "
+                    "epoch; they replace its worst members.")
+
+
 class GASettings(BaseModel):
-    """Every setting of the genetic algorithm, in six groups."""
+    """Every setting of the genetic algorithm, in seven groups."""
 
     model_config = _FROZEN
     population: PopulationSettings = PopulationSettings()
@@ -212,6 +230,7 @@ class GASettings(BaseModel):
     seeding: SeedingSettings = SeedingSettings()
     completion: CompletionSettings = CompletionSettings()
     stopping: StoppingSettings = StoppingSettings()
+    islands: IslandSettings = IslandSettings()
 
     @property
     def most_generations(self) -> int:
@@ -294,7 +313,8 @@ def _plain(error: dict) -> str:
 _GROUP_OF = {name: group for group, model in (  # every field name is unique across groups
     ("population", PopulationSettings), ("variation", VariationSettings),
     ("improvement", ImprovementSettings), ("seeding", SeedingSettings),
-    ("completion", CompletionSettings), ("stopping", StoppingSettings))
+    ("completion", CompletionSettings), ("stopping", StoppingSettings),
+    ("islands", IslandSettings))
     for name in model.model_fields}
 
 
