@@ -33,12 +33,13 @@ browser:
 test: $(STAMP) browser
 	$(BIN)/python -m pytest -q -n 2 --dist loadfile
 
-# Benchmarks report measured figures into benchmarks/RESULTS.md (about 15 minutes in all).
+# Benchmarks report measured figures into benchmarks/RESULTS.md (about 20 minutes in all).
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_builder.py --repeats 7 --pop 64 --seed 0
 	$(BIN)/python benchmarks/bench_real_weeks.py --weeks 2,13,20,34,45 --ga-seconds 20
 	$(BIN)/python benchmarks/bench_reference.py
 	$(BIN)/python benchmarks/bench_ga.py --seed 0
+	$(BIN)/python benchmarks/bench_replan.py --seeds 1,2,3 --old-seconds 30 --seconds 25
 
 schema: $(STAMP)
 	$(BIN)/assignplan schema --out schemas/

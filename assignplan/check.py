@@ -6,6 +6,11 @@ memory units, `can_hold`, a plan's times in hours). A job is taken to run from i
 for its model duration ``ceil(hours * 60 / speed)`` minutes, whatever end the plan states (a
 stated end is optional; a wrong one is a "duration" violation); intervals are half-open
 ``[start, end)``. Messages show calendar times from the window start (``Tue 08 Dec 13:00``).
+
+A replanned plan is checked with its pins (`state.Pins`): a pinned job must sit exactly where
+it ran or runs, on the interval the state gives it (not its model duration; what happened
+before `now` is not judged again), a running one holds its node's capacity, and nothing else
+starts before `now`.
 """
 
 from __future__ import annotations
@@ -19,6 +24,7 @@ import numpy as np
 from assignplan.documents import Assignment, PlanDoc
 from assignplan.expand import ExpandedBatch, Job, Node, can_hold
 from assignplan.reading import plan_hours
+from assignplan.state import Pin, Pins
 from assignplan.units import (
     MINUTE_TOLERANCE,
     ceil_minutes,
@@ -32,7 +38,7 @@ from assignplan.units import (
 KINDS = (
     "missing_job", "duplicate_job", "unknown_job", "unknown_node", "cannot_hold", "capacity",
     "dependency", "maintenance", "before_ready", "duration", "negative_start", "off_minute",
-    "makespan",
+    "makespan", "pinned", "before_now",
 )
 RESOURCE_NAMES = ("cores", "memory", "GPUs")
 # Minutes: an offset this close to a whole minute is that minute. It covers float noise of
@@ -68,6 +74,7 @@ class _Row:
     end: int  # start + model duration (not the stated end)
     fits: bool  # `can_hold`: resources and tags
     alone_fits: bool  # resources alone; a job too big by itself is not also a capacity stretch
+    pin: Pin | None = None  # where the state fixes it (replans only)
 
 
 @dataclass(frozen=True)
@@ -85,19 +92,24 @@ def _amount(resource: int, value: int) -> str:
     return f"{value} {RESOURCE_NAMES[resource]}"
 
 
-def check_plan(batch: ExpandedBatch, plan: PlanDoc) -> list[Violation]:
+def check_plan(batch: ExpandedBatch, plan: PlanDoc, pins: Pins | None = None
+               ) -> list[Violation]:
     """Every violation of `plan` against `batch`, in a stable order (rows, follows, capacity).
 
+    `pins`: the state of a replanned week (pinned jobs, `now`), None for a plan from scratch.
     Raises InputError when the plan cannot be read against the batch: a row without a start,
     or a start (or end) given both as hours and as a calendar time that disagree.
     """
     out: list[Violation] = []
-    rows = _read_rows(batch, plan, out)
+    rows = _read_rows(batch, plan, out, pins)
     for row, stated in rows:
-        out.extend(_row_violations(batch, row, stated))
+        out.extend(_pin_violations(batch, row, stated, pins) if row.pin is not None
+                   else _row_violations(batch, row, stated, pins))
     placed = {row.job.name: row for row, _ in rows}
     out.extend(_dependency_violations(batch, placed))
-    out.extend(_capacity_violations(batch, [r for r in placed.values() if r.alone_fits]))
+    # a done job ended by now, and nothing else starts before now: it can overlap nothing
+    out.extend(_capacity_violations(batch, [r for r in placed.values() if r.alone_fits
+                                            and (r.pin is None or r.pin.running)]))
     if placed and plan.makespan_h is not None:
         last = max(row.end for row in placed.values())
         if plan.makespan_h * 60 < last - _TOL:
@@ -108,9 +120,10 @@ def check_plan(batch: ExpandedBatch, plan: PlanDoc) -> list[Violation]:
     return out
 
 
-def _read_rows(batch: ExpandedBatch, plan: PlanDoc,
-               out: list[Violation]) -> list[tuple[_Row, _Stated]]:
-    """Resolve names; report unknown, duplicate and missing jobs and unknown nodes."""
+def _read_rows(batch: ExpandedBatch, plan: PlanDoc, out: list[Violation],
+               pins: Pins | None = None) -> list[tuple[_Row, _Stated]]:
+    """Resolve names; report unknown, duplicate and missing jobs and unknown nodes. A pinned
+    job's end is its pin's, not its start plus its model duration."""
     jobs = {j.name: j for j in batch.jobs}
     nodes = {n.name: n for n in batch.nodes}
     times = plan_hours(plan, batch.window_start)
@@ -133,10 +146,12 @@ def _read_rows(batch: ExpandedBatch, plan: PlanDoc,
                                  " which is not a node of the batch", job=a.job, node=a.node))
             continue
         start = int(round(start_h * 60))
-        end = start + duration_minutes(job.hours, node.speed)
+        pin = None if pins is None else pins.jobs.get(job.name)
+        end = start + duration_minutes(job.hours, node.speed) if pin is None \
+            else start + pin.end - pin.start
         alone = (job.cores <= node.cores and job.memory_mib <= node.memory_mib
                  and job.gpus <= node.gpus)
-        rows.append((_Row(job, node, start, end, can_hold(node, job), alone),
+        rows.append((_Row(job, node, start, end, can_hold(node, job), alone, pin),
                      _Stated(a, start_h, end_h)))
     for job in batch.jobs:
         if job.name not in first_row:
@@ -164,8 +179,27 @@ def _stated_text(batch: ExpandedBatch, minutes: float, hours_field: float | None
     return calendar_field.isoformat()
 
 
-def _row_violations(batch: ExpandedBatch, row: _Row, stated: _Stated) -> list[Violation]:
-    """The checks that concern one job on its node alone."""
+def _pin_violations(batch: ExpandedBatch, row: _Row, stated: _Stated, pins: Pins
+                    ) -> list[Violation]:
+    """A pinned job: on its pin's node, from its pin's start, stated end (if any) its pin's."""
+    pin, origin = row.pin, batch.window_start
+    stated_end = None if stated.end_h is None else stated.end_h * 60
+    if row.node.name == pin.node and abs(stated.start_h * 60 - pin.start) <= _TOL \
+            and (stated_end is None or abs(stated_end - pin.end) <= _TOL):
+        return []
+    what = "done" if not pin.running else "running"
+    return [Violation(
+        "pinned", f"job {row.job.name} is {what} on {pin.node} from {clock(origin, pin.start)}"
+        f" until {clock(origin, pin.end)}, but the plan has it on {row.node.name} from"
+        f" {_stated_text(batch, stated.start_h * 60, stated.row.start_h, stated.row.start)}"
+        + ("" if stated_end is None or abs(stated_end - pin.end) <= _TOL else
+           f" until {_stated_text(batch, stated_end, stated.row.end_h, stated.row.end)}"),
+        job=row.job.name, node=row.node.name, minute=row.start)]
+
+
+def _row_violations(batch: ExpandedBatch, row: _Row, stated: _Stated,
+                    pins: Pins | None = None) -> list[Violation]:
+    """The checks that concern one job on its node alone (and `now`, in a replan)."""
     job, node, s, e = row.job.name, row.node.name, row.start, row.end
     origin, a = batch.window_start, stated.row
     out = []
@@ -191,6 +225,9 @@ def _row_violations(batch: ExpandedBatch, row: _Row, stated: _Stated) -> list[Vi
     if s < ready and start_min >= -_TOL:  # a negative start is reported as such alone
         add("before_ready", f"job {job} starts at {clock(origin, s)} before its ready time"
             f" {clock(origin, ready)}")
+    if pins is not None and s < pins.now and start_min >= -_TOL:
+        add("before_now", f"job {job} starts at {clock(origin, s)}, before now"
+            f" ({clock(origin, pins.now)}), and is neither done nor running")
     for m_start_h, m_end_h in row.node.maintenance:
         # Whole-minute runs meet [a, b) exactly when they meet [floor a, ceil b).
         m_start, m_end = floor_minutes(m_start_h * 60), ceil_minutes(m_end_h * 60)
@@ -205,7 +242,7 @@ def _dependency_violations(batch: ExpandedBatch, placed: dict[str, _Row]) -> lis
     out = []
     for job in batch.jobs:
         row = placed.get(job.name)
-        if row is None:
+        if row is None or row.pin is not None:  # a pinned job has started: what was, was
             continue
         for name in job.follows:
             pred = placed.get(name)

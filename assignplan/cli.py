@@ -72,14 +72,44 @@ def reports_errors(command):
     return wrapper
 
 
-def load_batch_and_warn(path: Path):
-    """Load a batch; its warnings (doubtful but valid input) go to stderr, one line each."""
+def load_batch_and_warn(path: Path, changes=()):
+    """Load a batch with the what-if `changes` applied; its warnings (doubtful but valid
+    input) go to stderr, one line each."""
     from assignplan.expand import load_batch
 
-    expanded = load_batch(path)
+    expanded = load_batch(path, changes)
     for line in expanded.warnings:
         typer.echo(f"{path}: warning: {line}", err=True)
     return expanded
+
+
+WithoutOpt = Annotated[list[str] | None, typer.Option(
+    "--without", metavar="NAME", help="What-if: plan without this node or node group (glob "
+    "patterns such as 'gpu-*'); repeatable.")]
+DownOpt = Annotated[list[str] | None, typer.Option(
+    "--down", metavar="NAME@FROM..TO", help="What-if: a node or group down from FROM to TO "
+    "(hours from the window start or calendar times; no TO: until further notice); "
+    "repeatable.")]
+AddOpt = Annotated[list[str] | None, typer.Option(
+    "--add", metavar="GROUP=COUNT", help="What-if: COUNT more members of a node group; "
+    "repeatable.")]
+ChangesOpt = Annotated[Path | None, typer.Option(
+    "--changes", metavar="FILE", help="What-if: the same changes from a JSON overlay file "
+    "(schemas/changes.schema.json).")]
+
+
+def what_if(without: list[str] | None, down: list[str] | None, add: list[str] | None,
+            changes: Path | None):
+    """The inventory changes of the what-if options (checked before any work)."""
+    from assignplan.whatif import parse_changes
+
+    return parse_changes(without or (), down or (), add or (), changes)
+
+
+def print_changes(expanded) -> None:
+    """What the what-if options changed, on stderr (the summary carries it too)."""
+    for line in expanded.changes:
+        typer.echo(f"what-if: {line}", err=True)
 
 
 GenerationsOpt = Annotated[int | None, typer.Option(
@@ -218,6 +248,10 @@ def solve(
         "--samples", metavar="K", help="--robust: sampled futures each candidate plan is "
         "scored on (default 32).")] = None,
     model: ModelOpt = None,
+    without: WithoutOpt = None,
+    down: DownOpt = None,
+    add: AddOpt = None,
+    changes: ChangesOpt = None,
     priority: PriorityOpt = "makespan",
     weights: WeightsOpt = None,
 ) -> None:
@@ -236,8 +270,9 @@ def solve(
     check_output_dir(png, "--png")
     settings = method_settings(method, generations, ga_settings, force)
     runtime = runtime_options(method, risk=risk, robust=robust, samples=samples, model=model)
+    inventory = what_if(without, down, add, changes)
     steps = Steps(not quiet and not as_json and not to_stdout)
-    expanded, inst = _read_instance(batch, steps)
+    expanded, inst = _read_instance(batch, steps, inventory)
     objective = None
     if robust is not None:
         from assignplan.risk.robust import DEFAULT_ROBUST_SAMPLES, Robust
@@ -264,7 +299,7 @@ def solve(
         wrote = _write_outputs(expanded, inst, result, out=None if to_stdout else out,
                                csv=csv, report=report, png=png, risk=replays)
     _print_outputs(inst, result, wrote, as_json=as_json, show_all=show_all,
-                   plan_to_stdout=to_stdout, risk=replays)
+                   plan_to_stdout=to_stdout, risk=replays, changes=expanded.changes)
 
 
 def runtime_options(method: str, *, risk: bool, robust: float | None, samples: int | None,
@@ -310,13 +345,13 @@ def _method_step(steps: Steps, method: str):
         yield None
 
 
-def _read_instance(batch: Path, steps: Steps):
-    """(expanded batch, instance): the batch file read, checked and turned into arrays (one
-    spinner while it lasts)."""
+def _read_instance(batch: Path, steps: Steps, changes=()):
+    """(expanded batch, instance): the batch file read with the what-if `changes`, checked
+    and turned into arrays (one spinner while it lasts)."""
     from assignplan.instance import build_instance
 
     with steps.step(f"reading {batch}"):
-        expanded = load_batch_and_warn(batch)
+        expanded = load_batch_and_warn(batch, changes)
         return expanded, build_instance(expanded)
 
 
@@ -352,9 +387,10 @@ def _write_risk_csv(folder: Path, inst, risk) -> list[str]:
 
 
 def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: bool,
-                   plan_to_stdout: bool, risk=None) -> None:
+                   plan_to_stdout: bool, risk=None, changes=(), extra=None) -> None:
     """The terminal's share: what was written (stderr), then the plan, the JSON summary or
-    the tables (stdout), and the plan's runtime risk when it was replayed."""
+    the tables (stdout), and the plan's runtime risk when it was replayed. `changes`: the
+    what-if lines; `extra`: more summary entries (a replan's), shown after the tables."""
     from assignplan import metrics
     from assignplan.plan import to_plan_doc
     from assignplan.report import tables
@@ -367,6 +403,9 @@ def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: b
         return
     summary = metrics.summary(inst, result)
     summary["wall_seconds"] = round(time.perf_counter() - _STARTED[0], 3)
+    if changes:
+        summary["inventory_changes"] = list(changes)
+    summary.update(extra or {})
     if as_json:
         if risk is not None:
             from assignplan.risk.figures import summary as risk_summary
@@ -377,6 +416,8 @@ def _print_outputs(inst, result, wrote: list[str], *, as_json: bool, show_all: b
     console = tables.make_console()
     tables.print_plan(console, summary, metrics.node_frame(inst, result),
                       metrics.job_frame(inst, result), show_all=show_all)
+    for line in changes:
+        console.print(f"what-if: {line}", highlight=False)
     if risk is not None:
         from assignplan.report.risk import print_risk
 
@@ -392,6 +433,10 @@ def compare(
     out: Annotated[Path | None, typer.Option(
         metavar="PLAN.json", help="Write the best plan found to this JSON file.")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print a JSON list.")] = False,
+    without: WithoutOpt = None,
+    down: DownOpt = None,
+    add: AddOpt = None,
+    changes: ChangesOpt = None,
     priority: PriorityOpt = "makespan",
     weights: WeightsOpt = None,
 ) -> None:
@@ -401,7 +446,8 @@ def compare(
 
     chosen = parse_priority(priority, weights)
     check_output_file(out, "--out")
-    _, inst = _read_instance(batch, Steps(False))
+    expanded, inst = _read_instance(batch, Steps(False), what_if(without, down, add, changes))
+    print_changes(expanded)
     from assignplan.compare import best_result, compare_methods, compare_records
     from assignplan.report.exports import write_json
     from assignplan.report.tables import compare_notes, compare_table, make_console
@@ -504,6 +550,10 @@ def risk(
         metavar="REPORT.html", help="Also write the plan's HTML report with a runtime-risk "
         "section to this file.")] = None,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress display.")] = False,
+    without: WithoutOpt = None,
+    down: DownOpt = None,
+    add: AddOpt = None,
+    changes: ChangesOpt = None,
 ) -> None:
     """Replay a plan under sampled run times: makespan quantiles, the chance to finish inside
     the window, the jobs likeliest to be late, the nodes that end last."""
@@ -515,8 +565,10 @@ def risk(
     check_output_file(report, "--report")
     check_samples(samples)
     runtime = parse_model(model or DEFAULT_MODEL)
+    inventory = what_if(without, down, add, changes)
     steps = Steps(not quiet and not as_json)
-    expanded, inst = _read_instance(batch, steps)
+    expanded, inst = _read_instance(batch, steps, inventory)
+    print_changes(expanded)
     doc, result = _read_plan(plan, inst)
     replays = _assess(inst, result, runtime, samples=samples, seed=seed, steps=steps)
     with all_or_nothing():
@@ -624,12 +676,12 @@ def export(
 @reports_errors
 def schema(
     out: Annotated[Path, typer.Option(
-        metavar="FOLDER", help="Folder for batch.schema.json, plan.schema.json and "
-        "runtime-model.schema.json.")]
+        metavar="FOLDER", help="Folder for batch.schema.json, plan.schema.json, "
+        "runtime-model.schema.json, state.schema.json and changes.schema.json.")]
     = Path("schemas"),
 ) -> None:
-    """Write the JSON Schemas of the batch, plan and runtime-model documents (generated from
-    the models)."""
+    """Write the JSON Schemas of the batch, plan, runtime-model, state and changes documents
+    (generated from the models)."""
     from assignplan.files import (
         all_or_nothing,
         atomic_write_text,
@@ -647,8 +699,10 @@ def schema(
         typer.echo(f"wrote {out / name}")
 
 
+from assignplan.cli_week import register  # noqa: E402  (commands of their own module)
 from assignplan.importers.cli import import_app  # noqa: E402  (sub-app, mounted last)
 
+register(app)
 app.add_typer(import_app, name="import")
 
 

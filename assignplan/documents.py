@@ -138,6 +138,10 @@ class NodeGroup(BaseModel):
     maintenance: list[Maintenance] = Field(
         default_factory=list, title="Maintenance",
         description="Windows during which nothing may run on these nodes.")
+    cost: float | None = Field(default=None, ge=0, le=1e9, title="Cost per node",
+                               description="What one node of this group costs, in any unit "
+                               "you choose; `assignplan size` then minimises the total cost "
+                               "instead of the node count.")
 
 
 class JobGroup(BaseModel):

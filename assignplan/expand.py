@@ -7,7 +7,8 @@ cross-field rule already checked, doubtful values as warnings).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
 from datetime import datetime
 from functools import cached_property
 from pathlib import Path
@@ -24,11 +25,13 @@ from assignplan.units import (
     MAX_RESOURCE_MINUTES,
     ceil_minutes,
     clock,
+    counted,
     duration_minutes,
     floor_minutes,
     memory_mib,
     number,
 )
+from assignplan.whatif import Change, Without, apply_node_changes
 
 
 @dataclass(frozen=True)
@@ -94,7 +97,8 @@ class ExpandedBatch:
     them one by one (the checker). Every time is in hours from the window start, whichever
     form the document used. `warnings`: doubtful but valid input, one line each with its
     JSON path. `members` replaces the jobs built from `specs` (a replayed future's run
-    times, for the checker).
+    times, for the checker). `changes`: the inventory changes applied (`whatif`), one line
+    each for the summary.
     """
 
     window_start: datetime
@@ -103,6 +107,7 @@ class ExpandedBatch:
     specs: tuple[JobSpec, ...]
     warnings: tuple[str, ...] = ()
     members: tuple[Job, ...] | None = None
+    changes: tuple[str, ...] = ()
 
     @cached_property
     def n_jobs(self) -> int:
@@ -128,9 +133,11 @@ def member_names(name: str, count: int) -> list[str]:
     return [f"{name}-{k:0{width}d}" for k in range(1, count + 1)]
 
 
-def load_batch(path: Path | str) -> ExpandedBatch:
-    """Read, validate and expand a batch file (the one entry point for batch input)."""
-    return expand_batch(parse_batch_text(read_text(path), str(path)), source=str(path))
+def load_batch(path: Path | str, changes: Sequence[Change] = ()) -> ExpandedBatch:
+    """Read, validate and expand a batch file (the one entry point for batch input), with
+    the inventory `changes` applied (`whatif`)."""
+    return expand_batch(parse_batch_text(read_text(path), str(path)), source=str(path),
+                        changes=changes)
 
 
 def _input_hours(hours: float | None, when: datetime | None, path: str, start: datetime | None,
@@ -168,20 +175,86 @@ def _input_hours(hours: float | None, when: datetime | None, path: str, start: d
     return None
 
 
-def expand_batch(batch: Batch, source: str = "<batch>") -> ExpandedBatch:
+def expand_batch(batch: Batch, source: str = "<batch>",
+                 changes: Sequence[Change] = ()) -> ExpandedBatch:
     """Expand counts, read every time as hours from the window start and run every cross-field
-    check; all problems are reported together, doubtful values come back as warnings."""
+    check; all problems are reported together, doubtful values come back as warnings.
+
+    The inventory `changes` (`whatif`) are applied here, to the expanded node list before any
+    check that reads it: the one place they happen, whichever command reads the batch.
+    Problems of a change name the change (`--change ...` or its file and path), not `source`.
+    """
     problems: list[str] = []
     warnings: list[str] = []
     nodes = expand_nodes(batch, problems)
+    before = nodes
+    change_problems: list[str] = []
+    notes: list[str] = []
+    if changes:
+        nodes, notes = _apply_changes(batch, nodes, list(changes), change_problems)
     specs = _expand_jobs(batch, problems, warnings)
-    _check_capacity(batch, nodes, specs, problems)
+    blamed = _check_removals(list(changes), before, nodes, specs, change_problems)
+    _check_capacity(batch, nodes, specs, problems, skip=blamed)
     _check_cycles(specs, problems)
     _check_totals(batch, nodes, problems)
-    if problems:
-        raise InputError([f"{source}: {p}" for p in problems])
+    if problems or change_problems:
+        raise InputError([f"{source}: {p}" for p in problems] + change_problems)
     return ExpandedBatch(batch.window.start, batch.window.hours, tuple(nodes), tuple(specs),
-                         tuple(warnings))
+                         tuple(warnings), changes=tuple(notes))
+
+
+def _apply_changes(batch: Batch, nodes: list[Node], changes: list[Change],
+                   problems: list[str]) -> tuple[list[Node], list[str]]:
+    """`whatif.apply_node_changes` with members made like the group's own."""
+    template: dict[int, Node] = {}
+    for n in nodes:
+        template.setdefault(n.doc_index, n)
+
+    def make_node(gi: int, name: str) -> Node:
+        if gi in template:
+            return replace(template[gi], name=name)
+        g = batch.nodes[gi]  # a group whose members all failed to expand: no windows to copy
+        return Node(name, g.name, gi, g.cores, memory_mib(g.memory_gib), g.gpus, g.speed,
+                    frozenset(g.tags), ())
+
+    return apply_node_changes(list(batch.nodes), nodes, changes, batch.window.start, problems,
+                              make_node)
+
+
+def _check_removals(changes: list[Change], before: list[Node], after: list[Node],
+                    specs: list[JobSpec], problems: list[str]) -> set[int]:
+    """Job groups that some node could hold before the changes and none can after: one line
+    each naming the jobs and the removals; returns their document indices."""
+    removals = [c.where for c in changes if isinstance(c, Without)]
+    if not removals or not before or not specs:
+        return set()
+    _, kind_before, ok_before, _ = hosts(before, specs)
+    held_before = ok_before.any(axis=1)[kind_before]
+    if after:
+        _, kind_after, ok_after, _ = hosts(after, specs)
+        held_after = ok_after.any(axis=1)[kind_after]
+    else:
+        held_after = np.zeros(len(specs), dtype=bool)
+    out: set[int] = set()
+    for gi in np.flatnonzero(held_before & ~held_after).tolist():
+        spec = specs[gi]
+        out.add(spec.doc_index)
+        names = spec.names
+        shown = ", ".join(names) if len(names) <= 3 else f"{names[0]} ... {names[-1]}"
+        problems.append(f"{'; '.join(removals)}: no node left can hold"
+                        f" {counted(len(names), 'job')} of jobs[{spec.doc_index}] ({shown}):"
+                        f" each needs {_needs(spec)}, and only nodes taken out have that")
+    return out
+
+
+def _needs(job: Job | JobSpec) -> str:
+    """What a job asks of a node, in words: '16 cores, 128 GiB, 2 GPUs, tags accel'."""
+    out = [counted(job.cores, "core"), f"{job.memory_mib / 1024:g} GiB"]
+    if job.gpus:
+        out.append(counted(job.gpus, "GPU"))
+    if job.needs:
+        out.append("tags " + ", ".join(sorted(job.needs)))
+    return ", ".join(out)
 
 
 def expand_nodes(batch: Any, problems: list[str]) -> list[Node]:
@@ -359,13 +432,16 @@ def hosts(nodes: list[Node] | tuple[Node, ...], specs: list[JobSpec] | tuple[Job
 
 
 def _check_capacity(batch: Batch, nodes: list[Node], specs: list[JobSpec],
-                    problems: list[str]) -> None:
-    """Every job group needs a node type that can hold it (checked per group and type)."""
+                    problems: list[str], skip: set[int] | None = None) -> None:
+    """Every job group needs a node type that can hold it (checked per group and type);
+    groups in `skip` (document indices) are already reported."""
     if not nodes or not specs:
         return
     _, spec_kind, ok, type_node = hosts(nodes, specs)
     for gi in np.flatnonzero(~ok.any(axis=1)[spec_kind]).tolist():
         job = specs[gi]
+        if job.doc_index in (skip or ()):
+            continue
         # The closest node is the one with the fewest things missing, then the smallest relative
         # shortfall: that is the node the admin most likely meant.
         def distance(n: Node, job: JobSpec = job) -> tuple[int, float]:

@@ -180,9 +180,15 @@ def generate(scale: str, seed: int, known_optimum: bool = False) -> dict:
     the job count can fall short of the scale only if a node's rectangle cannot be cut further.
     """
     n_jobs, n_nodes = SCALES[scale]
-    rng = np.random.default_rng(seed)
     if known_optimum:
-        return _known_optimum(n_jobs, n_nodes, rng=rng)
+        return _known_optimum(n_jobs, n_nodes, rng=np.random.default_rng(seed))
+    return generate_sized(n_jobs, n_nodes, seed)
+
+
+def generate_sized(n_jobs: int, n_nodes: int, seed: int) -> dict:
+    """An invented batch of `n_jobs` jobs on `n_nodes` nodes (any size; `generate` names
+    the usual ones), reproducible from `seed`."""
+    rng = np.random.default_rng(seed)
     return {"window": {"start": "2026-12-07T00:00:00", "hours": 168.0},
             "nodes": _nodes(n_nodes, rng=rng), "jobs": _jobs(n_jobs, rng=rng)}
 

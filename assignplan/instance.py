@@ -43,6 +43,10 @@ class Arrays(NamedTuple):
     maint_ptr: np.ndarray
     maint_start: np.ndarray
     maint_end: np.ndarray
+    res_ptr: np.ndarray
+    res_start: np.ndarray
+    res_end: np.ndarray
+    res_demand: np.ndarray
 
 
 @dataclass(frozen=True, eq=False)
@@ -139,6 +143,10 @@ class Instance:
     - ``order``: int64[J] a priority order (largest bottom level first) that respects follows
     - ``limit``: int64[J] hard run-time limit in minutes of wall time, ``ceil(limit_h * 60)``
       (``NO_LIMIT`` if none); read only by runtime-risk replays
+    - ``res_ptr``/``res_start``/``res_end``/``res_demand``: CSR of reservations per node:
+      fixed intervals ``[start, end)`` that take ``res_demand`` int64[K, 3] of the node's
+      capacity (jobs already running when a batch is replanned, see `pinning`); empty for a
+      batch planned from scratch
     """
 
     job_names: tuple[str, ...]
@@ -167,6 +175,10 @@ class Instance:
     maint_end: np.ndarray
     order: np.ndarray
     limit: np.ndarray
+    res_ptr: np.ndarray
+    res_start: np.ndarray
+    res_end: np.ndarray
+    res_demand: np.ndarray
 
     @property
     def arrays(self) -> Arrays:
@@ -176,7 +188,8 @@ class Instance:
         return Arrays(self.capacity, self.demand, self.dur, self.node_speed, e.job_class,
                       e.node_type, e.ok, e.ptr, e.nodes, self.ready, self.due, self.weight,
                       self.pred_ptr, self.pred_idx, self.succ_ptr, self.succ_idx,
-                      self.maint_ptr, self.maint_start, self.maint_end)
+                      self.maint_ptr, self.maint_start, self.maint_end, self.res_ptr,
+                      self.res_start, self.res_end, self.res_demand)
 
     @property
     def n_jobs(self) -> int:
@@ -332,6 +345,10 @@ def build_instance(batch: ExpandedBatch) -> Instance:
         maint_end=maint_end,
         order=priority_order(hours, pred_ptr, pred_idx, succ_ptr, succ_idx),
         limit=per_job(limit, np.int64),
+        res_ptr=np.zeros(len(nodes) + 1, dtype=np.int64),
+        res_start=np.zeros(0, dtype=np.int64),
+        res_end=np.zeros(0, dtype=np.int64),
+        res_demand=np.zeros((0, 3), dtype=np.int64),
     )
 
 

@@ -3,11 +3,13 @@
 Plain arrays in, plain arrays out; `schedule.py` is the Python face. Each node keeps a step
 profile of free capacity: segment k of node i covers ``[seg_t[k], seg_t[k+1])`` (the last one
 runs to infinity) with free ``seg_f[k] = (cores, memory MiB, GPUs)``. Maintenance is a segment
-whose free capacity is ``BLOCKED`` (below any demand, which is >= 0), so it needs no special case.
+whose free capacity is ``BLOCKED`` (below any demand, which is >= 0), so it needs no special case;
+a reservation (a job pinned where it runs) is demand taken off its fixed interval up front.
 Each node owns a contiguous slice ``[seg_lo[i], seg_lo[i] + seg_n[i])`` of one flat pool of
 ``seg_cap[i]`` slots. A placement inserts at most two breakpoints, so a node holding n_i jobs
-and m_i windows never needs more than ``2*m_i + 1 + 2*n_i`` slots; the builder knows n_i from
-the assignment and sizes the pool exactly: O(J + N + maintenance) memory per individual.
+and m_i windows and r_i reservations never needs more than ``2*m_i + 2*r_i + 1 + 2*n_i``
+slots; the builder knows n_i from the assignment and sizes the pool exactly: O(J + N +
+maintenance + reservations) memory per individual.
 Finding a start and placing a job cost O(segments on that node).
 
 Tie rules are part of the contract (the pure-Python twin in tests/twin_builder.py follows
@@ -27,12 +29,16 @@ NEVER = np.int64(-1)  # returned as a start when a job cannot fit the node at al
 
 
 @njit(cache=True)
-def init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end):
-    """Fill node i's slice with its empty profile: full capacity, maintenance blocked.
+def init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end,
+              res_ptr, res_start, res_end, res_demand):
+    """Fill node i's slice with its empty profile: full capacity, maintenance blocked, and
+    each reservation's demand taken off its interval.
 
     Windows are sorted; after widening to whole minutes two of them may touch or overlap,
-    so each is clipped to begin no earlier than the previous one ends. At most 2*m_i + 1
-    segments; the last (free, to infinity) segment is always fully free.
+    so each is clipped to begin no earlier than the previous one ends. Reservations (jobs
+    pinned where they run, see `instance.Instance`) need no order: each is placed like a job,
+    at most two breakpoints. At most 2*m_i + 1 + 2*r_i segments; past every window and
+    reservation the last segment (to infinity) is fully free.
     """
     lo = seg_lo[i]
     seg_t[lo] = 0
@@ -55,7 +61,21 @@ def init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, 
             seg_f[lo + n, r] = capacity[i, r]
         n += 1
         cur = b
+    for w in range(res_ptr[i], res_ptr[i + 1]):
+        a = max(res_start[w], np.int64(0))
+        b = res_end[w]
+        if b <= a:
+            continue
+        k = segment_at(seg_t, lo, n, a)
+        n = place(seg_t, seg_f, lo, n, k, a, b - a, res_demand[w, 0], res_demand[w, 1],
+                  res_demand[w, 2])
     seg_n[i] = n
+
+
+@njit(cache=True, inline="always")
+def node_slots(maint_ptr, res_ptr, i):
+    """Profile slots node i needs before any job: 2 per window and reservation, plus 2."""
+    return 2 * (maint_ptr[i + 1] - maint_ptr[i]) + 2 * (res_ptr[i + 1] - res_ptr[i]) + 2
 
 
 @njit(cache=True)
@@ -177,20 +197,21 @@ def eligible_of(A, j, i):
 
 
 @njit(cache=True)
-def _sgs(A, assign, order, ready, pred_ptr, pred_idx, maint_start, maint_end, start):
+def _sgs(A, assign, order, ready, pred_ptr, pred_idx, maint_start, maint_end, res_start,
+         res_end, start):
     """Serial SGS for one assignment; writes start int64[J], returns False if a job failed.
 
-    A: the instance's arrays (`instance.Arrays`); ready times, predecessors and maintenance
-    are separate arguments because forward-backward improvement runs the same scheme on the
-    time-mirrored batch. A job fails when it is too big for its node or a predecessor comes
-    later in `order`; its start (and every later one) is left at -1.
+    A: the instance's arrays (`instance.Arrays`); ready times, predecessors, maintenance and
+    reservation intervals are separate arguments because forward-backward improvement runs
+    the same scheme on the time-mirrored batch. A job fails when it is too big for its node
+    or a predecessor comes later in `order`; its start (and every later one) is left at -1.
     """
     demand, capacity, maint_ptr = A.demand, A.capacity, A.maint_ptr
     n_jobs = assign.shape[0]
     n_nodes = capacity.shape[0]
     seg_cap = np.empty(n_nodes, np.int64)
     for i in range(n_nodes):
-        seg_cap[i] = 2 * (maint_ptr[i + 1] - maint_ptr[i]) + 2
+        seg_cap[i] = node_slots(maint_ptr, A.res_ptr, i)
     for j in range(n_jobs):
         seg_cap[assign[j]] += 2
     seg_lo = np.empty(n_nodes, np.int64)
@@ -202,7 +223,8 @@ def _sgs(A, assign, order, ready, pred_ptr, pred_idx, maint_start, maint_end, st
     seg_f = np.empty((total, 3), np.int64)
     seg_n = np.empty(n_nodes, np.int64)
     for i in range(n_nodes):
-        init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+        init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end,
+                  A.res_ptr, res_start, res_end, A.res_demand)
     end = np.full(n_jobs, -1, np.int64)
     start[:] = -1
     for q in range(n_jobs):
@@ -300,9 +322,9 @@ def _justify(A, assign, zeros, rounds, start, fit, reading, weights):
     EJOR 56(3), 1992. The assignment stays fixed. A round, with T the current makespan:
 
     - backward: jobs by decreasing end (ties: lower index first) go through the serial SGS on
-      the time-mirrored batch (t' = T - t; maintenance mirrored; successors act as
-      predecessors; ready times 0), i.e. each job is placed as late as possible, ending by T
-      and before its already placed successors start;
+      the time-mirrored batch (t' = T - t; maintenance and reservations mirrored; successors
+      act as predecessors; ready times 0), i.e. each job is placed as late as possible, ending
+      by T and before its already placed successors start;
     - forward: jobs by increasing backward start (ties: lower index) through the ordinary SGS.
 
     Why ready times may be ignored backwards: by induction over the backward order, every job
@@ -326,6 +348,8 @@ def _justify(A, assign, zeros, rounds, start, fit, reading, weights):
         dur[j] = duration_of(A, j, assign[j])
     m_start = np.empty_like(A.maint_start)
     m_end = np.empty_like(A.maint_end)
+    r_start = np.empty_like(A.res_start)
+    r_end = np.empty_like(A.res_end)
     cur = start.copy()
     back = np.empty(n_jobs, np.int64)
     fwd = np.empty(n_jobs, np.int64)
@@ -337,13 +361,17 @@ def _justify(A, assign, zeros, rounds, start, fit, reading, weights):
             key[j] = T - (cur[j] + dur[j])
         order_b = np.argsort(key, kind="mergesort")
         _mirror_windows(T, A.maint_ptr, A.maint_start, A.maint_end, m_start, m_end)
-        if not _sgs(A, assign, order_b, zeros, A.succ_ptr, A.succ_idx, m_start, m_end, back):
+        for w in range(A.res_start.shape[0]):  # [a, b) -> [T - b, T - a), cut at 0
+            r_start[w] = max(T - A.res_end[w], np.int64(0))
+            r_end[w] = max(T - A.res_start[w], r_start[w])
+        if not _sgs(A, assign, order_b, zeros, A.succ_ptr, A.succ_idx, m_start, m_end,
+                    r_start, r_end, back):
             return  # cannot happen for a feasible input (see above): keep it unchanged
         for j in range(n_jobs):
             key[j] = T - back[j] - dur[j]
         order_f = np.argsort(key, kind="mergesort")
         if not _sgs(A, assign, order_f, A.ready, A.pred_ptr, A.pred_idx, A.maint_start,
-                    A.maint_end, fwd):
+                    A.maint_end, A.res_start, A.res_end, fwd):
             return
         _fitness(A, fwd, assign, f)
         if _lex_better(f, fit, reading, weights):
@@ -417,7 +445,7 @@ def _sgs_population(A, assign, order, rounds, reading, weights, start_out, fitne
     for p in prange(n_pop):
         start = np.empty(n_jobs, np.int64)
         ok = _sgs(A, assign[p], order[p * step], A.ready, A.pred_ptr, A.pred_idx,
-                  A.maint_start, A.maint_end, start)
+                  A.maint_start, A.maint_end, A.res_start, A.res_end, start)
         if ok:
             _fitness(A, start, assign[p], fitness_out[p])
             if rounds > 0:
@@ -482,14 +510,15 @@ def greedy_list(A, order, job_class, class_ptr, class_nodes, assign, start):
     seg_lo = np.empty(n_nodes, np.int64)
     used = np.int64(0)
     for i in range(n_nodes):
-        seg_cap[i] = 2 * (maint_ptr[i + 1] - maint_ptr[i]) + 2 + 8
+        seg_cap[i] = node_slots(maint_ptr, A.res_ptr, i) + 8
         seg_lo[i] = used
         used += seg_cap[i]
     seg_t = np.empty(2 * used + 2 * n_jobs, np.int64)
     seg_f = np.empty((seg_t.shape[0], 3), np.int64)
     seg_n = np.empty(n_nodes, np.int64)
     for i in range(n_nodes):
-        init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end)
+        init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end,
+                  A.res_ptr, A.res_start, A.res_end, A.res_demand)
     end = np.full(n_jobs, -1, np.int64)
     assign[:] = -1
     start[:] = -1

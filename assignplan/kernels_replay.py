@@ -35,6 +35,7 @@ from assignplan.kernels import (
     earliest_start,
     grow_slice,
     init_node,
+    node_slots,
     place,
     segment_at,
 )
@@ -121,7 +122,7 @@ def replay_one(A, plan_assign, order, factor, limit, policy, start, end, where):
     n_nodes = capacity.shape[0]
     seg_cap = np.empty(n_nodes, np.int64)
     for i in range(n_nodes):
-        seg_cap[i] = 2 * (maint_ptr[i + 1] - maint_ptr[i]) + 2
+        seg_cap[i] = node_slots(maint_ptr, A.res_ptr, i)
     for j in range(n_jobs):
         seg_cap[plan_assign[j]] += 2
     seg_lo = np.empty(n_nodes, np.int64)
@@ -135,8 +136,13 @@ def replay_one(A, plan_assign, order, factor, limit, policy, start, end, where):
     seg_n = np.empty(n_nodes, np.int64)
     for i in range(n_nodes):
         init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, A.maint_start,
-                  A.maint_end)
+                  A.maint_end, A.res_ptr, A.res_start, A.res_end, A.res_demand)
+    # A reservation counts as the node's first start: jobs come after it (they are ready
+    # from `now`, which is past every reservation's start), and the rule below holds.
     last = np.zeros(n_nodes, np.int64)
+    for i in range(n_nodes):
+        for w in range(A.res_ptr[i], A.res_ptr[i + 1]):
+            last[i] = max(last[i], A.res_start[w])
     # What a dispatch reads of a node before its profile: the segment holding last[i]
     # (placements on i start there or later, so they never shift it), that segment's free
     # room, and when it ends. Past last[i] the free room only grows until maintenance, so a
@@ -147,7 +153,8 @@ def replay_one(A, plan_assign, order, factor, limit, policy, start, end, where):
     bound = np.empty(n_nodes, np.int64)
     if policy == DISPATCH:
         for i in range(n_nodes):
-            _remember(seg_t, seg_f, seg_lo[i], seg_n[i], 0, room, change, i)
+            at_last[i] = segment_at(seg_t, seg_lo[i], seg_n[i], last[i])
+            _remember(seg_t, seg_f, seg_lo[i], seg_n[i], at_last[i], room, change, i)
     end[:] = -1
     for q in range(n_jobs):
         j = order[q]

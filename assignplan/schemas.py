@@ -1,5 +1,5 @@
-"""JSON Schemas of the batch, plan and runtime-model documents, generated from the pydantic
-models."""
+"""JSON Schemas of the batch, plan, runtime-model, state and changes documents, generated
+from the pydantic models."""
 
 from __future__ import annotations
 
@@ -7,6 +7,8 @@ import json
 
 from assignplan.documents import Batch, PlanDoc
 from assignplan.risk.models import ModelDocument
+from assignplan.state import StateDoc
+from assignplan.whatif import ChangesDoc
 
 SCHEMA_ID = "https://assignplan.invalid/schemas/"
 
@@ -17,7 +19,10 @@ def schema_texts() -> dict[str, str]:
     for name, model, title in (("batch.schema.json", Batch, "assignplan batch"),
                                ("plan.schema.json", PlanDoc, "assignplan plan"),
                                ("runtime-model.schema.json", ModelDocument,
-                                "assignplan runtime model")):
+                                "assignplan runtime model"),
+                               ("state.schema.json", StateDoc, "assignplan week state"),
+                               ("changes.schema.json", ChangesDoc,
+                                "assignplan inventory changes")):
         schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
                   "$id": SCHEMA_ID + name, "title": title, **model.model_json_schema()}
         schema["title"] = title

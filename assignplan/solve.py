@@ -22,6 +22,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING
 
+import numpy as np
 from pydantic import BaseModel, ConfigDict, Field
 
 from assignplan.bounds import LowerBound, lower_bound
@@ -38,6 +39,7 @@ if TYPE_CHECKING:
 EXACT_MAX_JOBS = 300  # above this, exact rarely proves anything within a budget of minutes
 
 Progress = Callable[[HistoryRow], None]
+Hint = tuple[np.ndarray, np.ndarray]  # a plan to start from: assign, start int64[J]
 
 
 class ExactSettings(BaseModel):
@@ -64,7 +66,8 @@ class Method:
 
 
 def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
-            progress: Progress | None, bound: LowerBound, priority: Priority) -> PlanResult:
+            progress: Progress | None, bound: LowerBound, priority: Priority,
+            hint: Hint | None = None) -> PlanResult:
     from assignplan.methods.greedy import solve_greedy
 
     return solve_greedy(inst, lower_bound=bound.value, priority=priority)
@@ -72,13 +75,14 @@ def _greedy(inst: Instance, *, seed: int, budget: float, settings: None,
 
 def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
         progress: Progress | None, bound: LowerBound, priority: Priority,
-        robust: Robust | None = None) -> PlanResult:
+        robust: Robust | None = None, hint: Hint | None = None) -> PlanResult:
     from assignplan.methods.ga import solve_ga
 
     if robust is None:
         return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed,
                         budget=budget, on_generation=progress,
-                        term_bounds=(bound.tardiness, bound.completion), priority=priority)
+                        term_bounds=(bound.tardiness, bound.completion), priority=priority,
+                        hint=hint)
     from assignplan.risk.robust import robust_evaluate
 
     # the robust score's completion column is not the objective's, so no completion phase
@@ -91,17 +95,19 @@ def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,
-           progress: Progress | None, bound: LowerBound, priority: Priority) -> PlanResult:
+           progress: Progress | None, bound: LowerBound, priority: Priority,
+           hint: Hint | None = None) -> PlanResult:
     from assignplan.methods.exact import solve_exact
     from assignplan.methods.greedy import solve_greedy
 
     if inst.n_jobs > EXACT_MAX_JOBS and not settings.force:
         raise InputError(exact_too_big(inst.n_jobs) + "; use --method ga, or --force to try"
                          " anyway")
-    greedy = solve_greedy(inst, lower_bound=bound.value, priority=priority)
-    return solve_exact(inst, lower_bound=bound.value, budget=budget,
-                       hint=(greedy.assign, greedy.start), seed=seed, workers=settings.workers,
-                       priority=priority)
+    if hint is None:
+        greedy = solve_greedy(inst, lower_bound=bound.value, priority=priority)
+        hint = (greedy.assign, greedy.start)
+    return solve_exact(inst, lower_bound=bound.value, budget=budget, hint=hint, seed=seed,
+                       workers=settings.workers, priority=priority)
 
 
 METHODS: dict[str, Method] = {m.name: m for m in (
@@ -128,7 +134,7 @@ def method_named(name: str) -> Method:
 def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
           settings: BaseModel | None = None, progress: Progress | None = None,
           bound: LowerBound | None = None, robust: Robust | None = None,
-          priority: Priority = DEFAULT) -> PlanResult:
+          priority: Priority = DEFAULT, hint: Hint | None = None) -> PlanResult:
     """Plan `inst` with `method` within `budget` seconds from this call.
 
     `settings`: the method's settings object (default: its defaults); another type is an
@@ -137,7 +143,9 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
     times (`risk.robust`; the ga only, another method is an error). The result carries the
     lower bound of each term of the objective, the parts of the makespan's and the
     completion time's, the method's own seconds and the `priority` it planned for (which
-    term of the objective comes first; default the makespan).
+    term of the objective comes first; default the makespan). `hint`: a feasible plan to
+    start from (a replan's old plan kept as far as it can be): the ga seeds with it, exact
+    takes it as its CP-SAT hint instead of greedy's plan, greedy has no use for it.
     """
     t0 = time.perf_counter()
     chosen = method_named(method)
@@ -149,6 +157,8 @@ def solve(inst: Instance, method: str = "ga", *, seed: int = 0, budget: float = 
         bound = lower_bound(inst, deadline=t0 + budget)
     started = time.perf_counter()
     extra = {"robust": robust} if robust is not None else {}
+    if hint is not None:
+        extra["hint"] = hint
     result = chosen.run(inst, seed=seed, budget=max(0.0, t0 + budget - started),
                         settings=settings, progress=progress, bound=bound, priority=priority,
                         **extra)

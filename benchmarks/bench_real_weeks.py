@@ -106,7 +106,8 @@ def _empty_profiles(inst: Instance) -> list[tuple[np.ndarray, np.ndarray, int]]:
         seg_t, seg_f = np.empty(size, np.int64), np.empty((size, 3), np.int64)
         seg_lo, seg_n = np.zeros(inst.n_nodes, np.int64), np.zeros(inst.n_nodes, np.int64)
         kernels.init_node(i, seg_t, seg_f, seg_lo, seg_n, inst.capacity, inst.maint_ptr,
-                          inst.maint_start, inst.maint_end)
+                          inst.maint_start, inst.maint_end, inst.res_ptr, inst.res_start,
+                          inst.res_end, inst.res_demand)
         out.append((seg_t, seg_f, int(seg_n[i])))
     return out
 

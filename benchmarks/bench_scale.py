@@ -47,14 +47,12 @@ STAGES = ("read", "bound", "greedy", "check", "generation", "ga")
 
 
 def _batch_file(n_jobs: int, folder: Path) -> Path:
-    from assignplan.generate import _jobs, _nodes, batch_doc
+    from assignplan.generate import generate_sized
 
     path = folder / f"batch-{n_jobs}.json"
     if not path.exists():
-        rng = np.random.default_rng(1)
-        doc = {"window": {"start": "2026-12-07T00:00:00", "hours": 168.0},
-               "nodes": _nodes(n_jobs // 10, rng=rng), "jobs": _jobs(n_jobs, rng=rng)}
-        path.write_text(json.dumps(batch_doc(doc)), encoding="utf-8")
+        path.write_text(json.dumps(generate_sized(n_jobs, n_jobs // 10, seed=1)),
+                        encoding="utf-8")
     return path
 
 

@@ -366,7 +366,8 @@ def test_calendar_start_off_the_minute_is_named_as_written(batch, plan):
 def test_every_kind_has_a_test():
     tested = {"missing_job", "duplicate_job", "unknown_job", "unknown_node", "cannot_hold",
               "capacity", "dependency", "maintenance", "before_ready", "duration",
-              "negative_start", "off_minute", "makespan"}
+              "negative_start", "off_minute", "makespan",
+              "pinned", "before_now"}  # these two: test_replan (a plan checked with its pins)
     assert set(KINDS) == tested
 
 

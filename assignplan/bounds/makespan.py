@@ -55,6 +55,7 @@ PART_NAMES = {  # one line each for tables and reports; the docstring below has 
     "clique": "pairwise-conflicting jobs",
     "configurations": "sets of jobs that fit a node together (LP)",
     "grid": "rounding to the batch's time grid",
+    "pinned": "jobs already running (a replan)",
 }
 
 
@@ -112,17 +113,18 @@ def lower_bound(inst: Instance, *, deadline: float | None = None) -> LowerBound:
 
 
 def time_grid(inst: Instance) -> int:
-    """g = gcd of every eligible duration, ready time and maintenance end (minutes).
+    """g = gcd of every eligible duration, ready time, maintenance and reservation end
+    (minutes).
 
     Some optimal plan has a makespan that is a multiple of g: shift jobs one minute earlier
     while the plan stays feasible (no end grows). When no job can move, each start is 0, a
-    ready time, a maintenance end, or the end of another job (a predecessor, or a job on the
-    same node whose end frees the resource that blocks minute start - 1). By induction over
-    start times every start is then a multiple of g, and so is every end, the makespan
-    included. A lower bound B therefore rounds up to g * ceil(B / g).
+    ready time, a maintenance or reservation end, or the end of another job (a predecessor,
+    or a job on the same node whose end frees the resource that blocks minute start - 1).
+    By induction over start times every start is then a multiple of g, and so is every end,
+    the makespan included. A lower bound B therefore rounds up to g * ceil(B / g).
     """
     offered = inst.class_speeds()[inst.elig.job_class]  # bool[J, S]: speeds a job can run at
-    values = [inst.dur[offered].astype(np.int64), inst.ready, inst.maint_end]
+    values = [inst.dur[offered].astype(np.int64), inst.ready, inst.maint_end, inst.res_end]
     return max(1, int(np.gcd.reduce(np.concatenate(values))))
 
 
@@ -221,16 +223,28 @@ def _max_capacity(inst: Instance) -> np.ndarray:
     return per_class[e.job_class]
 
 
-def _supply(inst: Instance, nodes: np.ndarray, start: int, cap: np.ndarray):
+def _supply(inst: Instance, nodes: np.ndarray, start: int, cap: np.ndarray,
+            reserved: bool = False):
     """(supply, total rate float64[R], last maintenance end or `start`) of `nodes`, where
     supply(t) -> float64[R] is sum_{i in nodes} cap_ir * speed_i * avail_i(t_r) for
-    t int64[R] (one time per resource; a single time broadcasts)."""
+    t int64[R] (one time per resource; a single time broadcasts).
+
+    With `reserved`, each reservation's demand res_r * speed_i is taken off its interval
+    too (capacity pinned jobs hold; they never meet a maintenance window and fit the node
+    together, see `pinning`), so supply counts what is left for the jobs to plan."""
     rate = (cap[nodes] * inst.speed[nodes, None]).astype(np.float64)  # [n, R]
     win_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.maint_ptr))
     keep = np.isin(win_node, nodes) & (inst.maint_end > start)
     w_start = np.maximum(inst.maint_start[keep], start)
     w_end = inst.maint_end[keep]
     w_rate = (cap[win_node[keep]] * inst.speed[win_node[keep], None]).astype(float)
+    if reserved:
+        res_node = np.repeat(np.arange(inst.n_nodes), np.diff(inst.res_ptr))
+        held = np.isin(res_node, nodes) & (inst.res_end > start)
+        w_start = np.r_[w_start, np.maximum(inst.res_start[held], start)]
+        w_end = np.r_[w_end, inst.res_end[held]]
+        w_rate = np.concatenate([w_rate.reshape(-1, cap.shape[1]), (
+            inst.res_demand[held] * inst.speed[res_node[held], None]).astype(float)])
     total_rate = rate.sum(axis=0)
 
     def supply(t: np.ndarray) -> np.ndarray:
@@ -253,9 +267,12 @@ def work_bound(work: np.ndarray, nodes: np.ndarray, start: int, inst: Instance,
     The right side is non-decreasing in T, so the smallest such integer T is found by
     bisection. A resource without work gives 0. `capacity` (int64[N, R], default
     inst.capacity) replaces cap_ir in the supply, for work measured in other units (`dff_work`).
+    In resource units (the default) the reservations' share comes off the supply: the
+    counted jobs share a node only with what is left, cap_ir - res_ir(t).
     """
     supply, total_rate, last = _supply(inst, nodes, start,
-                                       inst.capacity if capacity is None else capacity)
+                                       inst.capacity if capacity is None else capacity,
+                                       reserved=capacity is None)
     need = np.asarray(work, dtype=np.float64) * (1.0 - _REL_SLACK)
     active = need > 0
     safe_rate = np.where(total_rate > 0, total_rate, 1.0)

@@ -17,11 +17,12 @@ from assignplan.instance import Instance
 def node_resources(inst: Instance, i: int, demand: np.ndarray) -> list[int]:
     """Resources that need a cumulative on node i, given its eligible jobs' `demand` int64[k, 3].
 
-    A resource can be skipped when the eligible jobs together never exceed the capacity;
-    cores (every job needs >= 1) are kept whenever the node has maintenance, since the
-    maintenance windows ride in the cumulatives.
+    A resource can be skipped when the eligible jobs and the node's reservations together
+    never exceed the capacity; cores (every job needs >= 1) are kept whenever the node has
+    maintenance, since the maintenance windows ride in the cumulatives.
     """
-    total = demand.sum(axis=0)
+    total = demand.sum(axis=0) + inst.res_demand[inst.res_ptr[i] : inst.res_ptr[i + 1]].sum(
+        axis=0)
     keep = [r for r in range(inst.capacity.shape[1]) if total[r] > inst.capacity[i, r]]
     has_maint = inst.maint_ptr[i + 1] > inst.maint_ptr[i]
     if has_maint and not keep:
@@ -63,13 +64,40 @@ def add_job(m: cp_model.CpModel, inst: Instance, j: int, nodes: np.ndarray, lo: 
     return s, e, presence
 
 
+def add_freed_jobs(m: cp_model.CpModel, inst: Instance, freed: list[int],
+                   nodes: list[np.ndarray], window: list[tuple[int, int]], slots: NodeSlots,
+                   plan: tuple[np.ndarray, np.ndarray, np.ndarray]
+                   ) -> tuple[list, list, list[dict[int, cp_model.IntVar]]]:
+    """The jobs a repacking frees (`add_job` each, on its `nodes` within its `window`),
+    hinted with their place in `plan` (assign, start, end), and the `follows` edges between
+    two of them: (start vars, end vars, per job {node: presence}), in `freed` order."""
+    assign, start, end = plan
+    local = {j: r for r, j in enumerate(freed)}
+    s_var, e_var, x_of = [], [], []
+    for r, j in enumerate(freed):
+        s, e, xs = add_job(m, inst, j, nodes[r], window[r][0], window[r][1], slots)
+        for i, x in xs.items():
+            m.add_hint(x, bool(assign[j] == i))
+        m.add_hint(s, int(start[j]))
+        m.add_hint(e, int(end[j]))
+        s_var.append(s)
+        e_var.append(e)
+        x_of.append(xs)
+    for j in freed:
+        for p in inst.predecessors(j).tolist():
+            if p in local:
+                m.add(e_var[local[p]] <= s_var[local[j]])
+    return s_var, e_var, x_of
+
+
 def add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[int],
                        intervals: list[cp_model.IntervalVar], x: list[cp_model.IntVar],
                        makespan: cp_model.IntVar) -> None:
     """Capacity of node i over its eligible `jobs` (their `intervals` and presences `x`).
 
-    cumulative(intervals + maintenance, demand_jr | capacity_ir, capacity_ir) per binding
-    resource r, and the redundant energy cut sum_j a_jr d_ji x_ji <= capacity_ir * C_max for
+    cumulative(intervals + maintenance + reservations, demand_jr | capacity_ir | reserved_r,
+    capacity_ir) per binding resource r (a reservation: a job pinned where it runs, a fixed
+    interval), and the redundant energy cut sum_j a_jr d_ji x_ji <= capacity_ir * C_max for
     every demanded resource. The cut is implied but gives the LP relaxation the load of each
     node, which the cumulatives over optional intervals do not: on random 80-200-job batches
     it raised the proven bound within 10 s markedly (887 -> 3750 minutes on a 192-job one).
@@ -82,11 +110,16 @@ def add_node_capacity(m: cp_model.CpModel, inst: Instance, i: int, jobs: list[in
         for k, (s, e) in enumerate(zip(inst.maint_start[lo:hi], inst.maint_end[lo:hi],
                                        strict=True))
     ]
+    lo, hi = inst.res_ptr[i], inst.res_ptr[i + 1]
+    held = [(int(max(s, 0)), int(e), k) for k, (s, e) in enumerate(
+        zip(inst.res_start[lo:hi], inst.res_end[lo:hi], strict=True)) if e > max(s, 0)]
+    fixed = [m.new_fixed_size_interval_var(s, e - s, f"held{i}_{k}") for s, e, k in held]
     demand = inst.demand[jobs]
     for r in node_resources(inst, i, demand):
         cap = int(inst.capacity[i, r])
-        m.add_cumulative(intervals + maint, [int(a) for a in demand[:, r]] + [cap] * len(maint),
-                         cap)
+        reserved = [int(inst.res_demand[lo + k, r]) for _, _, k in held]
+        m.add_cumulative(intervals + maint + fixed,
+                         [int(a) for a in demand[:, r]] + [cap] * len(maint) + reserved, cap)
     work = demand * inst.duration_on(np.asarray(jobs, dtype=np.int64), i).astype(np.int64)[:, None]
     for r in np.flatnonzero(work.sum(axis=0) > 0):
         m.add(cp_model.LinearExpr.weighted_sum(x, [int(a) for a in work[:, r]])

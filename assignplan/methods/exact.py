@@ -46,7 +46,8 @@ class _Model:
 
 
 def horizon(inst: Instance) -> int:
-    """A makespan every batch can meet: H = max(max_j r_j, last maintenance end) + sum_j max_i d_ji.
+    """A makespan every batch can meet: H = max(max_j r_j, last maintenance or reservation end)
+    + sum_j max_i d_ji.
 
     Why it is safe: from that minute on no node is ever in maintenance and every job is ready,
     so running the jobs one after another in a `follows` order, each on any eligible node,
@@ -55,7 +56,8 @@ def horizon(inst: Instance) -> int:
     """
     offered = inst.class_speeds()[inst.elig.job_class]
     longest = np.where(offered, inst.dur, 0).max(axis=1).astype(np.int64)
-    free_from = max(int(inst.ready.max(initial=0)), int(inst.maint_end.max(initial=0)))
+    free_from = max(int(inst.ready.max(initial=0)), int(inst.maint_end.max(initial=0)),
+                    int(inst.res_end.max(initial=0)))
     return free_from + int(longest.sum())
 
 
@@ -65,7 +67,8 @@ def _build_model(inst: Instance, hint: tuple[np.ndarray, np.ndarray] | None) -> 
     x_ji in {0,1} for eligible (j, i), sum_i x_ji = 1; an optional interval
     [s_j, s_j + d_ji) present iff x_ji; per node and resource r:
     cumulative(intervals on i, demand_jr, capacity_ir) with each maintenance window as a fixed
-    interval demanding the full capacity (plus an energy cut, see `add_node_capacity`);
+    interval demanding the full capacity and each reservation as one demanding its share
+    (plus an energy cut, see `add_node_capacity`);
     e_j = s_j + sum_i d_ji x_ji; s_j >= ready_j; e_p <= s_j for p in follows(j); C_max >= e_j.
     """
     # data

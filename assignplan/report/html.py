@@ -44,7 +44,7 @@ if TYPE_CHECKING:
 OPEN_TABLE_ROWS = 500  # longer job tables start folded, so the charts stay in reach
 FIRST_VIOLATIONS = 5  # violations quoted in the banner of a plan that fails the check
 
-_CSS = """
+PAGE_CSS = """
 :root{--ink:#222;--muted:#666;--line:#e3e1dc;--paper:#faf9f6}
 *{box-sizing:border-box}
 body{margin:0;background:var(--paper);color:var(--ink);
@@ -225,7 +225,7 @@ def render_html_report(inst: Instance, result: PlanResult, violations: Sequence[
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width,initial-scale=1">',
-        f"<title>{escape(title)}</title><style>{_CSS}{stylesheet()}</style></head><body><main>",
+        f"<title>{escape(title)}</title><style>{PAGE_CSS}{stylesheet()}</style></head><body><main>",
         f"<h1>{escape(title)}</h1>",
         f'<p class="lede">{inst.n_jobs:,} jobs on {inst.n_nodes:,} nodes · window'
         f" {clock(ws, 0)} to {clock(ws, inst.window_minutes)} {ws.year}"

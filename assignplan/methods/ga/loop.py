@@ -28,7 +28,7 @@ from assignplan.methods.ga.population import (
     progress_columns,
     selection_key,
 )
-from assignplan.methods.ga.seeding import completion_seeds, initial_population
+from assignplan.methods.ga.seeding import completion_seeds, initial_population, plan_keys
 from assignplan.methods.ga.selection import lex_less, lex_rank
 from assignplan.methods.ga.settings import GASettings, sized
 from assignplan.methods.ga.variation import vary
@@ -259,7 +259,8 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
              budget: float, on_generation: OnGeneration | None = None,
              evaluate: Evaluate | None = None, bound_stops: bool = True,
              term_bounds: tuple[float, float] | None = None,
-             priority: Priority = DEFAULT) -> PlanResult:
+             priority: Priority = DEFAULT,
+             hint: tuple[np.ndarray, np.ndarray] | None = None) -> PlanResult:
     """The ga plan as a PlanResult (method "ga", status "feasible", seed and history kept).
 
     One generator, `numpy.random.default_rng(seed)`, drives every random choice, so the same
@@ -272,7 +273,9 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     better one, and that phase keeps the best member by the objective itself.
     `bound_stops=False` keeps the run going at the lower bound: for a scorer whose makespan
     column the bound does not bound (the robust one's quantile of replayed makespans can fall
-    below it).
+    below it). `hint`: a plan (assign, start int64[J]) that joins the seeds of the makespan
+    phase (a replan's old plan, its jobs kept where they were), decoded in its own start
+    order; None leaves every seed as it is.
 
     Phases, each continuing the history of the one before:
     1. reserved (optional): when scarce node groups are worth keeping for the jobs that need
@@ -311,7 +314,8 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
         inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound, t0=t0,
         end=early_end, seed_end=seed_end,
         patience=comp.patience * budget if comp.completion_share > 0 else None,
-        history=history, bound_stops=bound_stops, priority=priority, term_bounds=term_bounds)
+        history=history, bound_stops=bound_stops, priority=priority, term_bounds=term_bounds,
+        hint=hint)
     if comp.completion_share > 0:
         final = math.ceil(comp.completion_share * settings.stopping.generations)
         island = _completion_phase(inst, settings.replace(stopping={"generations": final}),
@@ -360,7 +364,8 @@ def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Gen
                      evaluate: Evaluate, lower_bound: int, t0: float, end: float,
                      seed_end: float, patience: float | None, history: _Phases,
                      bound_stops: bool = True, priority: Priority = DEFAULT,
-                     term_bounds: tuple[float, float] | None = None) -> Island:
+                     term_bounds: tuple[float, float] | None = None,
+                     hint: tuple[np.ndarray, np.ndarray] | None = None) -> Island:
     """Phases 1 and 2 of `solve_ga` (within `end`, a `time.perf_counter()` reading; phase 2
     also stops after `patience` seconds without a better makespan or tardiness)."""
     share = settings.seeding.reserve_share
@@ -381,6 +386,9 @@ def _makespan_phases(inst: Instance, settings: GASettings, *, rng: np.random.Gen
         settings = settings.replace(stopping={"generations": max(
             settings.stopping.generations - history.generation, 0)})
     extra = completion_seeds(inst, lower_bound, 0, deadline=seed_end, priority=priority)
+    if hint is not None:
+        extra = (np.concatenate([extra[0], hint[0][None, :]]),
+                 np.concatenate([extra[1], plan_keys(inst, hint[1])[None, :]]))
     history.start()
     return run_island(inst, settings, rng=rng, evaluate=evaluate, lower_bound=lower_bound,
                       deadline=end, on_generation=history.add, migrants=migrants,

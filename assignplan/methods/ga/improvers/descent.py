@@ -29,7 +29,14 @@ import numpy as np
 from numba import njit
 
 from assignplan.instance import Instance
-from assignplan.kernels import duration_of, earliest_start, eligible_of, init_node, place
+from assignplan.kernels import (
+    duration_of,
+    earliest_start,
+    eligible_of,
+    init_node,
+    node_slots,
+    place,
+)
 from assignplan.methods.ga.critical import waiting_head
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
@@ -41,13 +48,13 @@ TOO_LATE = np.int64(1) << 62  # a trial's end when it would delay a job with suc
 
 
 @njit(cache=True)
-def _decode_node(A, i, seq, n, skip, extra, earliest, latest, seg_t, seg_f, seg_lo, seg_n,
+def decode_node(A, i, seq, n, skip, extra, earliest, latest, seg_t, seg_f, seg_lo, seg_n,
                  end):
     """Serial SGS of node i alone: jobs seq[:n] in that order except `skip`, then `extra`
     (each -1 for none). Writes end[j] of each job placed; returns the node's last end, 0 if
     it is empty, TOO_LATE if some job would end after latest[j]."""
     init_node(i, seg_t, seg_f, seg_lo, seg_n, A.capacity, A.maint_ptr, A.maint_start,
-              A.maint_end)
+              A.maint_end, A.res_ptr, A.res_start, A.res_end, A.res_demand)
     last = np.int64(0)
     for q in range(n + 1):
         if q < n:
@@ -79,8 +86,8 @@ def _put(lists, fill, i, j):
 @njit(cache=True)
 def _relocate(lists, fill, assign, crit, j, k, m, dest):
     """j from crit to k, m from k to dest (crit for a swap, a third node for a chain)."""
-    _take_out(lists, fill, crit, j)
-    _take_out(lists, fill, k, m)
+    take_out(lists, fill, crit, j)
+    take_out(lists, fill, k, m)
     _put(lists, fill, k, j)
     _put(lists, fill, dest, m)
     assign[j] = k
@@ -88,7 +95,8 @@ def _relocate(lists, fill, assign, crit, j, k, m, dest):
 
 
 @njit(cache=True)
-def _take_out(lists, fill, i, j):
+def take_out(lists, fill, i, j):
+    """Remove job j from node i's list (rows of `lists`, `fill[i]` long), keeping the order."""
     w = 0
     for q in range(fill[i]):
         if lists[i, q] != j:
@@ -119,10 +127,10 @@ def _descend(A, assign, start, earliest, latest, budget, target):
         _put(lists, fill, i, j)
         end[j] = start[j] + duration_of(A, j, i)
         ends[i] = max(ends[i], end[j])
-    windows = 0
+    fixed = 0  # the most slots a node's maintenance and reservations take
     for i in range(n_nodes):
-        windows = max(windows, maint_ptr[i + 1] - maint_ptr[i])
-    size = 2 * windows + 2 + 2 * width
+        fixed = max(fixed, node_slots(maint_ptr, A.res_ptr, i))
+    size = fixed + 2 * width
     seg_t = np.empty(size, np.int64)
     seg_f = np.empty((size, 3), np.int64)
     seg_lo = np.zeros(n_nodes, np.int64)  # every node decodes into the same scratch slice
@@ -140,7 +148,7 @@ def _descend(A, assign, start, earliest, latest, budget, target):
         third = -1
         for qa in range(fill[crit] - 1, -1, -1):  # the last-starting jobs first
             j = lists[crit, qa]
-            a_end = _decode_node(A, crit, lists[crit], fill[crit], j, -1, earliest, latest, seg_t,
+            a_end = decode_node(A, crit, lists[crit], fill[crit], j, -1, earliest, latest, seg_t,
                                  seg_f, seg_lo, seg_n, trial)
             spent += 1
             if a_end >= ms:
@@ -151,11 +159,11 @@ def _descend(A, assign, start, earliest, latest, budget, target):
                     break
                 if k == crit or not eligible_of(A, j, k) or fill[k] + 1 >= width:
                     continue
-                b_end = _decode_node(A, k, lists[k], fill[k], -1, j, earliest, latest, seg_t,
+                b_end = decode_node(A, k, lists[k], fill[k], -1, j, earliest, latest, seg_t,
                                      seg_f, seg_lo, seg_n, trial)
                 spent += 1
                 if b_end < ms:  # move j to k
-                    _take_out(lists, fill, crit, j)
+                    take_out(lists, fill, crit, j)
                     _put(lists, fill, k, j)
                     assign[j] = k
                     ends[crit] = a_end
@@ -164,13 +172,13 @@ def _descend(A, assign, start, earliest, latest, budget, target):
                     break
                 for qm in range(fill[k]):  # j in place of m on k; m to crit or a third node
                     m = lists[k, qm]
-                    b2 = _decode_node(A, k, lists[k], fill[k], m, j, earliest, latest, seg_t,
+                    b2 = decode_node(A, k, lists[k], fill[k], m, j, earliest, latest, seg_t,
                                       seg_f, seg_lo, seg_n, trial)
                     spent += 1
                     if b2 >= ms:
                         continue
                     if eligible_of(A, m, crit):  # a swap
-                        a2 = _decode_node(A, crit, lists[crit], fill[crit], j, m, earliest, latest,
+                        a2 = decode_node(A, crit, lists[crit], fill[crit], j, m, earliest, latest,
                                           seg_t, seg_f, seg_lo, seg_n, trial)
                         spent += 1
                         if a2 < ms:
@@ -188,7 +196,7 @@ def _descend(A, assign, start, earliest, latest, budget, target):
                                 or fill[third] + 1 >= width:
                             continue
                         tried += 1
-                        c_end = _decode_node(A, third, lists[third], fill[third], -1, m, earliest,
+                        c_end = decode_node(A, third, lists[third], fill[third], -1, m, earliest,
                                              latest, seg_t, seg_f, seg_lo, seg_n, trial)
                         spent += 1
                         if c_end < ms:
@@ -211,7 +219,7 @@ def _descend(A, assign, start, earliest, latest, budget, target):
         for i in (crit, k, third):  # the kept rebuild, written out (trials overwrote `trial`)
             if i < 0:
                 continue
-            _decode_node(A, i, lists[i], fill[i], -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
+            decode_node(A, i, lists[i], fill[i], -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
                          seg_n, end)
             for q in range(fill[i]):
                 jj = lists[i, q]

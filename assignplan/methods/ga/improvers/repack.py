@@ -23,7 +23,7 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from assignplan.instance import Instance
-from assignplan.methods.cpsat import NodeSlots, add_job, add_node_capacity
+from assignplan.methods.cpsat import NodeSlots, add_freed_jobs, add_node_capacity
 from assignplan.methods.ga.critical import critical_node
 from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.methods.ga.repair import resource_work
@@ -167,24 +167,11 @@ def _sub_model(inst: Instance, nodes: np.ndarray, freed: np.ndarray, window: np.
                assign: np.ndarray, start: np.ndarray, end: np.ndarray):
     """(model, start vars, per freed job {node: presence}, objective value of the hint): the
     exact method's constraints over the freed jobs and `nodes` (see `repack_nodes`)."""
-    local = {int(j): r for r, j in enumerate(freed)}
     m = cp_model.CpModel()
-    s_var, e_var, x_of = [], [], []
     slots = NodeSlots(inst.n_nodes)
-    for r, j in enumerate(freed.tolist()):
-        s, e, xs = add_job(m, inst, j, nodes[inst.elig.of(j, nodes)], int(window[r, 0]),
-                           int(window[r, 1]), slots)
-        for i, x in xs.items():
-            m.add_hint(x, bool(assign[j] == i))
-        m.add_hint(s, int(start[j]))
-        m.add_hint(e, int(end[j]))
-        s_var.append(s)
-        e_var.append(e)
-        x_of.append(xs)
-    for j in freed.tolist():
-        for p in inst.predecessors(j).tolist():
-            if p in local:
-                m.add(e_var[local[p]] <= s_var[local[j]])
+    s_var, e_var, x_of = add_freed_jobs(
+        m, inst, freed.tolist(), [nodes[inst.elig.of(j, nodes)] for j in freed.tolist()],
+        [(int(lo), int(hi)) for lo, hi in window], slots, (assign, start, end))
     makespan = int(end.max())
     local_ms = m.new_int_var(0, makespan, "local_makespan")
     for e in e_var:

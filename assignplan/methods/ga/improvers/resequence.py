@@ -22,8 +22,8 @@ import numpy as np
 from numba import njit
 
 from assignplan.instance import NO_DUE, Instance
-from assignplan.kernels import duration_of
-from assignplan.methods.ga.improvers.descent import TOO_LATE, _decode_node
+from assignplan.kernels import duration_of, node_slots
+from assignplan.methods.ga.improvers.descent import TOO_LATE, decode_node, take_out
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.methods.orders import smith_keys
@@ -76,7 +76,7 @@ def _sequence_pass(A, i, seq, n, key, earliest, latest, horizon, budget, spent, 
             if key[seq[src]] >= key[seq[dst]]:
                 continue
             _move(seq, src, dst)
-            last = _decode_node(A, i, seq, n, -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
+            last = decode_node(A, i, seq, n, -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
                                 seg_n, end)
             spent += 1
             if last <= horizon:
@@ -117,13 +117,13 @@ def _transfer_pass(A, seqs, fill, assign, key, earliest, latest, horizon, budget
             buf[pos] = j
             for k in range(pos, nb):
                 buf[k + 1] = seqs[b, k]
-            last_b = _decode_node(A, b, buf, nb + 1, -1, -1, earliest, latest, seg_t, seg_f,
+            last_b = decode_node(A, b, buf, nb + 1, -1, -1, earliest, latest, seg_t, seg_f,
                                   seg_lo, seg_n, end)
             spent += 1
             if last_b > horizon:
                 continue
             tb, cb = _node_cost(A, buf, nb + 1, end)
-            last_a = _decode_node(A, a, seqs[a], fill[a], j, -1, earliest, latest, seg_t, seg_f,
+            last_a = decode_node(A, a, seqs[a], fill[a], j, -1, earliest, latest, seg_t, seg_f,
                                   seg_lo, seg_n, end)
             spent += 1
             if last_a > horizon:
@@ -132,12 +132,7 @@ def _transfer_pass(A, seqs, fill, assign, key, earliest, latest, horizon, budget
             t_new, c_new = ta + tb, ca + cb
             t_old, c_old = cost[a, 0] + cost[b, 0], cost[a, 1] + cost[b, 1]
             if t_new < t_old or (t_new == t_old and c_new < c_old):
-                w = 0
-                for k in range(fill[a]):
-                    if seqs[a, k] != j:
-                        seqs[a, w] = seqs[a, k]
-                        w += 1
-                fill[a] = w
+                take_out(seqs, fill, a, j)
                 for k in range(nb + 1):
                     seqs[b, k] = buf[k]
                 fill[b] = nb + 1
@@ -170,17 +165,17 @@ def _resequence(A, seqs, fill, assign, key, earliest, latest, horizon, budget, j
     of them), assign and start int64[J]: forward moves on every node, then transfers of
     `jobs` between nodes, while either helps. Returns (moves kept, node decodes spent)."""
     n_nodes = seqs.shape[0]
-    windows = 0
+    fixed = 0  # the most slots a node's maintenance and reservations take
     for i in range(n_nodes):
-        windows = max(windows, A.maint_ptr[i + 1] - A.maint_ptr[i])
-    size = 2 * windows + 2 + 2 * seqs.shape[1]
+        fixed = max(fixed, node_slots(A.maint_ptr, A.res_ptr, i))
+    size = fixed + 2 * seqs.shape[1]
     work = (np.empty(size, np.int64), np.empty((size, 3), np.int64),
             np.zeros(n_nodes, np.int64), np.zeros(n_nodes, np.int64),
             np.zeros(start.shape[0], np.int64))
     seg_t, seg_f, seg_lo, seg_n, end = work
     cost = np.zeros((n_nodes, 2))
     for i in range(n_nodes):
-        _decode_node(A, i, seqs[i], fill[i], -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
+        decode_node(A, i, seqs[i], fill[i], -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
                      seg_n, end)
         cost[i, 0], cost[i, 1] = _node_cost(A, seqs[i], fill[i], end)
     moves = 0
@@ -198,7 +193,7 @@ def _resequence(A, seqs, fill, assign, key, earliest, latest, horizon, budget, j
         moves += found
         improved = improved or found > 0
     for i in range(n_nodes):
-        _decode_node(A, i, seqs[i], fill[i], -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
+        decode_node(A, i, seqs[i], fill[i], -1, -1, earliest, latest, seg_t, seg_f, seg_lo,
                      seg_n, end)
         for q in range(fill[i]):
             j = seqs[i, q]

@@ -28,7 +28,7 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from assignplan.instance import NO_DUE, Instance
-from assignplan.methods.cpsat import NodeSlots, add_job
+from assignplan.methods.cpsat import NodeSlots, add_freed_jobs
 from assignplan.methods.exact import WEIGHT_SCALE
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
@@ -71,25 +71,16 @@ def repack_window(inst: Instance, assign: np.ndarray, start: np.ndarray, freed: 
     opens = int(start[freed].min())
     m = cp_model.CpModel()
     slots = NodeSlots(inst.n_nodes)
-    s_var, e_var, x_of, los = [], [], [], []
+    window = []
     for j in freed.tolist():
         preds = [int(p) for p in inst.predecessors(j).tolist() if p not in local]
         succs = [int(q) for q in inst.successors(j).tolist() if q not in local]
-        lo = max([opens, int(inst.ready[j])] + [int(end[p]) for p in preds])
-        hi = min([horizon, makespan] + [int(start[q]) for q in succs])
-        los.append(lo)
-        s, e, xs = add_job(m, inst, j, inst.elig.nodes_of(j), lo, hi, slots)
-        for i, x in xs.items():
-            m.add_hint(x, bool(assign[j] == i))
-        m.add_hint(s, int(start[j]))
-        m.add_hint(e, int(end[j]))
-        s_var.append(s)
-        e_var.append(e)
-        x_of.append(xs)
-    for j in freed.tolist():
-        for p in inst.predecessors(j).tolist():
-            if p in local:
-                m.add(e_var[local[p]] <= s_var[local[j]])
+        window.append((max([opens, int(inst.ready[j])] + [int(end[p]) for p in preds]),
+                       min([horizon, makespan] + [int(start[q]) for q in succs])))
+    los = [lo for lo, _ in window]
+    s_var, e_var, x_of = add_freed_jobs(
+        m, inst, freed.tolist(), [inst.elig.nodes_of(j) for j in freed.tolist()], window,
+        slots, (assign, start, end))
     _add_capacity(m, inst, assign, start, end, freed, slots, (min(los), horizon))
     w = np.maximum(np.rint(inst.weight[freed] * WEIGHT_SCALE).astype(np.int64), 0)
     late, coef = [], []
@@ -139,14 +130,22 @@ def _add_capacity(m: cp_model.CpModel, inst: Instance, assign: np.ndarray, start
         blocked = [m.new_fixed_size_interval_var(int(start[f]), int(end[f] - start[f]),
                                                  f"fix{f}") for f in fixed.tolist()]
         maint = [m.new_fixed_size_interval_var(a, b - a, f"m{i}_{a}") for a, b in windows]
+        # reservations (jobs pinned where they run, a replan) hold their share like a fixed job
+        held = [k for k in range(inst.res_ptr[i], inst.res_ptr[i + 1])
+                if inst.res_start[k] < hi and inst.res_end[k] > lo
+                and inst.res_end[k] > max(inst.res_start[k], 0)]
+        kept = [m.new_fixed_size_interval_var(
+            int(max(inst.res_start[k], 0)), int(inst.res_end[k] - max(inst.res_start[k], 0)),
+            f"r{i}_{k}") for k in held]
         for r in range(inst.capacity.shape[1]):
             asked = inst.demand[jobs, r]
             if not asked.any():
                 continue
             cap = int(inst.capacity[i, r])
-            m.add_cumulative(slots.intervals[i] + blocked + maint,
+            m.add_cumulative(slots.intervals[i] + blocked + maint + kept,
                              [int(a) for a in asked] + [int(inst.demand[f, r]) for f in fixed]
-                             + [cap] * len(maint), cap)
+                             + [cap] * len(maint) + [int(inst.res_demand[k, r]) for k in held],
+                             cap)
 
 
 def window_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
