@@ -18,8 +18,10 @@ from assignplan.cli import (
     ForceOpt,
     GASettingsOpt,
     GenerationsOpt,
+    PriorityOpt,
     SeedOpt,
     Steps,
+    WeightsOpt,
     WithoutOpt,
     _method_step,
     _print_outputs,
@@ -86,12 +88,16 @@ def replan(
     down: DownOpt = None,
     add: AddOpt = None,
     changes: ChangesOpt = None,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """Replan from where the week stands: done and running jobs stay where they are, nothing
     new starts before now, the rest is planned again with as few moves as the objective
     allows."""
     from assignplan.files import all_or_nothing, check_output_file
+    from assignplan.priority import parse_priority
 
+    chosen = parse_priority(priority, weights)
     check_output_file(out, "--out")
     if free and fewer_moves:
         raise InputError("--free and --fewer-moves: choose one (--free has no churn term)")
@@ -109,7 +115,7 @@ def replan(
         typer.echo(f"{batch}: warning: {line}", err=True)
     with _method_step(steps, f"replanning with {method}"):
         done = run(given, method, seed=seed, budget=budget, settings=settings, free=free,
-                   fewer_moves=fewer_moves)
+                   fewer_moves=fewer_moves, priority=chosen)
     from assignplan.check import check_plan
     from assignplan.diff import diff_lines, diff_record, plan_diff
     from assignplan.plan import to_plan_doc

@@ -221,3 +221,26 @@ def test_justification_never_worsens_the_plan_under_its_priority():
             for before, after in zip(plain, improved, strict=True):
                 assert chosen.key(tuple(after)) <= chosen.key(tuple(before)), seed
     assert worse_by_makespan_first > 0
+
+
+@pytest.mark.parametrize("method", ["greedy", "exact"])
+def test_replan_under_due_first_keeps_the_due_time(tmp_path, method):
+    # the old plan was made makespan first (report 2 h late); replanned due first, the churn
+    # tie-break must read the objective due first too, or the old plan (fewer moves, shorter)
+    # would win back
+    path = _trade(tmp_path)
+    old, new = tmp_path / "old.json", tmp_path / "new.json"
+    state = tmp_path / "state.json"
+    state.write_text(json.dumps({"now_h": 0}))
+    runner = CliRunner()
+    res = runner.invoke(app, ["solve", str(path), "--method", method, "--out", str(old),
+                              "--quiet", "--budget", "10"])
+    assert res.exit_code == 0, res.output
+    res = runner.invoke(app, ["replan", str(path), str(old), "--state", str(state), "--method",
+                              method, "--priority", "due", "--out", str(new), "--quiet",
+                              "--budget", "10", "--json"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(new.read_text())
+    assert doc["priority"] == {"name": "due", "weights": None}
+    assert doc["objective"]["weighted_tardiness_h"] == 0.0
+    assert doc["objective"]["makespan_h"] == 14.0
