@@ -255,11 +255,17 @@ def size(
     report: Annotated[Path | None, typer.Option(
         metavar="REPORT.html", help="Also write a page with the chart of makespan against "
         "node count and every probe.")] = None,
+    priority: Annotated[str, typer.Option(
+        "--priority", metavar="ORDER", help="makespan (default), or due / weighted: the "
+        "probes plan for it and a count must also meet every due time.")] = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """How many nodes of each group the batch needs to end by a deadline: counts ruled out
     by the lower bound, counts confirmed by a plan (greedy, then a short ga run)."""
     from assignplan.files import all_or_nothing, check_output_file
+    from assignplan.priority import parse_priority
 
+    chosen = parse_priority(priority, weights)
     check_output_file(report, "--report")
     from assignplan.reading import calendar_hours, parse_batch_text, read_text
     from assignplan.sizing import CONFIRMED, size_batch, size_record
@@ -284,7 +290,7 @@ def size(
             hours = value
     deadline = floor_minutes(hours * 60)  # a plan ends by the deadline: whole minutes
     result = size_batch(doc, deadline, vary=tuple(vary or ()), seed=seed, budget=budget,
-                        probe_seconds=probe)
+                        probe_seconds=probe, priority=chosen)
     record = size_record(result, origin)
     if report is not None:
         from assignplan.report.sizing import write_sizing_report

@@ -244,3 +244,17 @@ def test_replan_under_due_first_keeps_the_due_time(tmp_path, method):
     assert doc["priority"] == {"name": "due", "weights": None}
     assert doc["objective"]["weighted_tardiness_h"] == 0.0
     assert doc["objective"]["makespan_h"] == 14.0
+
+
+def test_size_under_due_first_needs_a_second_scope_node(tmp_path):
+    # within 10 h: makespan first, a and b do it in 8 h (report 2 h late); due first, report
+    # takes a for its first 6 h, so prep and fit need a second node with the scope tag
+    path = _trade(tmp_path)
+    found = {}
+    for chosen in ("makespan", "due"):
+        res = CliRunner().invoke(app, ["size", str(path), "--within", "10", "--priority",
+                                       chosen, "--budget", "20", "--probe", "1", "--json"])
+        assert res.exit_code == 0, res.output
+        found[chosen] = json.loads(res.output)["found"]
+    assert found["makespan"] == {"a": 1, "b": 1}
+    assert found["due"] == {"a": 2, "b": 0}
