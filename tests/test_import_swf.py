@@ -506,7 +506,7 @@ INVENTORY_PROBLEMS = {
                           ' and . _ : + - ("cpu node" has a space)'),
     "unknown field": ('{"nodes": [{"name": "a", "cores": 4, "memory_gib": 8, "ram": 8}]}',
                       "I.json: nodes[0].ram: unknown field; the fields here are name, count,"
-                      " cores, memory_gib, gpus, speed, tags, maintenance"),
+                      " cores, memory_gib, gpus, speed, tags, maintenance, cost"),
     "not whole": ('{"nodes": [{"name": "a", "cores": 4.5, "memory_gib": 8}]}',
                   "I.json: nodes[0].cores: must be a whole number (got 4.5)"),
     "not a list": ('{"nodes": {"name": "a"}}',
