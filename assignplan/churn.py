@@ -36,6 +36,7 @@ from assignplan import kernels
 from assignplan.instance import Instance
 from assignplan.methods.ga.improvers.repack import start_order
 from assignplan.plan import PlanResult, objective
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule, evaluate_population
 
 SHIFT_MINUTES = 60  # a start that moved by more than an hour counts as shifted
@@ -120,25 +121,27 @@ def _lex_le(rows: np.ndarray, ref: tuple) -> np.ndarray:
 
 
 def moved_back(inst: Instance, base: Baseline, assign: np.ndarray, order: np.ndarray,
-               ref: tuple, *, deadline: float) -> np.ndarray:
+               ref: tuple, *, deadline: float, priority: Priority = DEFAULT) -> np.ndarray:
     """The assignment after rounds of moving jobs back to their old nodes, each round no
-    worse than `ref` (makespan, tardiness, completion) decoded in `order` with
-    forward-backward improvement."""
+    worse than `ref` (the objective as `priority` reads it, by default makespan, tardiness,
+    completion) decoded in `order` with forward-backward improvement."""
     for _ in range(MAX_ROUNDS):
         jobs = _eligible_back(inst, base, assign)[:MOVE_TRIALS]
         if not len(jobs) or time.perf_counter() >= deadline:
             break
         trial = np.repeat(assign[None, :], len(jobs), axis=0)
         trial[np.arange(len(jobs)), jobs] = base.old_node[jobs]
-        fit = evaluate_population(inst, trial, order, justify=True)
+        fit = priority.read(evaluate_population(inst, trial, order, justify=True,
+                                                priority=priority))
         ok = np.flatnonzero(_lex_le(fit, ref))
         if not len(ok):
             break
-        ok = ok[np.lexsort((fit[ok, 2], fit[ok, 1], fit[ok, 0]))]
+        ok = ok[np.lexsort(fit[ok].T[::-1])]
         prefix = np.repeat(assign[None, :], len(ok), axis=0)
         for k, row in enumerate(ok):
             prefix[k:, jobs[row]] = base.old_node[jobs[row]]
-        fit = evaluate_population(inst, prefix, order, justify=True)
+        fit = priority.read(evaluate_population(inst, prefix, order, justify=True,
+                                                priority=priority))
         good = np.flatnonzero(_lex_le(fit, ref))
         if not len(good):
             break
@@ -168,32 +171,35 @@ def keep_old(inst: Instance, base: Baseline) -> tuple[np.ndarray, np.ndarray]:
 
 
 def least_churn(inst: Instance, result: PlanResult, base: Baseline, *,
-                deadline: float, terms: int = 3) -> PlanResult:
+                deadline: float, terms: int = 3, priority: Priority = DEFAULT) -> PlanResult:
     """The plan of least churn among `result` (relabelled), its jobs moved back, and the
     old plan kept; only plans no worse than `result` on the first `terms` terms of the
     objective count (see the module docstring; 3: churn after the whole objective, 2: churn
     before the weighted completion time). `result` comes back unchanged when none has less
-    churn."""
-    ref = objective(inst, result.end)[:terms]
+    churn. The terms are read in `priority`'s order; for a weighted sum, churn comes after
+    the sum whatever `terms`."""
+    cut = terms if priority.lexicographic else 1
+    ref = priority.key(objective(inst, result.end))[:cut]
     first = churn_of(base, result.assign, result.start).key
-    best, best_key = result, (ref, first, objective(inst, result.end)[terms:])
+    best, best_key = result, (ref, first, priority.key(objective(inst, result.end))[cut:])
     if first == (0, 0):
         return result
 
     def offer(assign: np.ndarray, start: np.ndarray) -> None:
         nonlocal best, best_key
         end = inst.end_times(assign, start)
-        full = objective(inst, end)
-        key = (full[:terms], churn_of(base, assign, start).key, full[terms:])
+        full = priority.key(objective(inst, end))
+        key = (full[:cut], churn_of(base, assign, start).key, full[cut:])
         if key[0] <= ref and key[1] < first and key < best_key:
             best, best_key = replace(result, assign=assign, start=start, end=end), key
 
     relabelled = relabel(inst, base, result.assign)
     offer(relabelled, result.start)
     order = start_order(result.start, inst.order)
-    back = moved_back(inst, base, relabelled, order, ref, deadline=deadline)
+    back = moved_back(inst, base, relabelled, order, ref, deadline=deadline,
+                      priority=priority)
     if not np.array_equal(back, relabelled):
-        offer(back, build_schedule(inst, back, order, justify=True))
+        offer(back, build_schedule(inst, back, order, justify=True, priority=priority))
     offer(*keep_old(inst, base))
     return best
 

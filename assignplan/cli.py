@@ -719,9 +719,9 @@ def check(
     else:
         for v in violations:
             typer.echo(v.message)
-        typer.echo(summary_line(violations, doc, expanded))
-        if (made_for := _made_for(doc)) is not None:
-            typer.echo(f"the plan was made to minimise {made_for}")
+        made_for = _made_for(doc)
+        typer.echo(summary_line(violations, doc, expanded)
+                   + ("" if made_for is None else f"; the plan was made to minimise {made_for}"))
     if violations:
         raise typer.Exit(1)
 

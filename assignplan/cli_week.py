@@ -18,8 +18,10 @@ from assignplan.cli import (
     ForceOpt,
     GASettingsOpt,
     GenerationsOpt,
+    PriorityOpt,
     SeedOpt,
     Steps,
+    WeightsOpt,
     WithoutOpt,
     _method_step,
     _print_outputs,
@@ -86,12 +88,16 @@ def replan(
     down: DownOpt = None,
     add: AddOpt = None,
     changes: ChangesOpt = None,
+    priority: PriorityOpt = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """Replan from where the week stands: done and running jobs stay where they are, nothing
     new starts before now, the rest is planned again with as few moves as the objective
     allows."""
     from assignplan.files import all_or_nothing, check_output_file
+    from assignplan.priority import parse_priority
 
+    chosen = parse_priority(priority, weights)
     check_output_file(out, "--out")
     if free and fewer_moves:
         raise InputError("--free and --fewer-moves: choose one (--free has no churn term)")
@@ -109,7 +115,7 @@ def replan(
         typer.echo(f"{batch}: warning: {line}", err=True)
     with _method_step(steps, f"replanning with {method}"):
         done = run(given, method, seed=seed, budget=budget, settings=settings, free=free,
-                   fewer_moves=fewer_moves)
+                   fewer_moves=fewer_moves, priority=chosen)
     from assignplan.check import check_plan
     from assignplan.diff import diff_lines, diff_record, plan_diff
     from assignplan.plan import to_plan_doc
@@ -249,11 +255,17 @@ def size(
     report: Annotated[Path | None, typer.Option(
         metavar="REPORT.html", help="Also write a page with the chart of makespan against "
         "node count and every probe.")] = None,
+    priority: Annotated[str, typer.Option(
+        "--priority", metavar="ORDER", help="makespan (default), or due / weighted: the "
+        "probes plan for it and a count must also meet every due time.")] = "makespan",
+    weights: WeightsOpt = None,
 ) -> None:
     """How many nodes of each group the batch needs to end by a deadline: counts ruled out
     by the lower bound, counts confirmed by a plan (greedy, then a short ga run)."""
     from assignplan.files import all_or_nothing, check_output_file
+    from assignplan.priority import parse_priority
 
+    chosen = parse_priority(priority, weights)
     check_output_file(report, "--report")
     from assignplan.reading import calendar_hours, parse_batch_text, read_text
     from assignplan.sizing import CONFIRMED, size_batch, size_record
@@ -278,7 +290,7 @@ def size(
             hours = value
     deadline = floor_minutes(hours * 60)  # a plan ends by the deadline: whole minutes
     result = size_batch(doc, deadline, vary=tuple(vary or ()), seed=seed, budget=budget,
-                        probe_seconds=probe)
+                        probe_seconds=probe, priority=chosen)
     record = size_record(result, origin)
     if report is not None:
         from assignplan.report.sizing import write_sizing_report

@@ -293,9 +293,19 @@ def _mirror_windows(T, maint_ptr, maint_start, maint_end, m_start, m_end):
 
 
 @njit(cache=True)
-def _lex_better(a, b):
-    """a (float64[3]) is lexicographically strictly below b."""
-    for c in range(3):
+def _lex_better(a, b, reading, weights):
+    """a (float64[3]) is strictly better than b as a priority reads them: first by the
+    weighted sums sum_k weights_k x_k when any weight is above 0, then lexicographically in
+    the column order `reading` (int64[3]; 0, 1, 2 with zero weights: makespan first)."""
+    if weights[0] > 0 or weights[1] > 0 or weights[2] > 0:
+        sa = weights[0] * a[0] + weights[1] * a[1] + weights[2] * a[2]
+        sb = weights[0] * b[0] + weights[1] * b[1] + weights[2] * b[2]
+        if sa < sb:
+            return True
+        if sa > sb:
+            return False
+    for k in range(3):
+        c = reading[k]
         if a[c] < b[c]:
             return True
         if a[c] > b[c]:
@@ -304,7 +314,7 @@ def _lex_better(a, b):
 
 
 @njit(cache=True)
-def _justify(A, assign, zeros, rounds, start, fit):
+def _justify(A, assign, zeros, rounds, start, fit, reading, weights):
     """Forward-backward improvement (double justification) of one schedule, in place.
 
     V. Valls, F. Ballestin, S. Quintanilla, "Justification and RCPSP: A technique that pays",
@@ -327,9 +337,10 @@ def _justify(A, assign, zeros, rounds, start, fit):
     forwards gives s''_j <= s'_j, so end'' <= end' <= T: the makespan never increases.
 
     start: int64[J] a feasible schedule, fit: float64[3] its fitness; both replaced by the
-    best (lexicographically) schedule seen. Rounds stop early once the makespan stops
-    falling. Tardiness or completion may get worse in a round (jobs off the critical path move
-    right); keeping the lexicographic best means the result is never worse than the input.
+    best schedule seen as `reading` and `weights` compare them (`_lex_better`; by default
+    lexicographically, makespan first). Rounds stop early once the makespan stops falling.
+    Tardiness or completion may get worse in a round (jobs off the critical path move right);
+    keeping the best means the result is never worse than the input.
     """
     n_jobs = assign.shape[0]
     dur = np.empty(n_jobs, np.int64)
@@ -363,7 +374,7 @@ def _justify(A, assign, zeros, rounds, start, fit):
                     A.maint_end, A.res_start, A.res_end, fwd):
             return
         _fitness(A, fwd, assign, f)
-        if _lex_better(f, fit):
+        if _lex_better(f, fit, reading, weights):
             start[:] = fwd
             fit[:] = f
         if f[0] >= T:
@@ -414,12 +425,13 @@ def _tail_area(A, start, assign):
     return total
 
 
-def _sgs_population(A, assign, order, rounds, start_out, fitness_out):
+def _sgs_population(A, assign, order, rounds, reading, weights, start_out, fitness_out):
     """Build and score P schedules; each individual has its own workspace.
 
     A: the instance's arrays (`instance.Arrays`); assign: int64[P, J] node per job; order:
     int64[P, J] a decoding order per individual, or int64[1, J] one for all; rounds: rounds
-    of forward-backward improvement (`_justify`), 0 = the plain serial SGS; start_out:
+    of forward-backward improvement (`_justify`), 0 = the plain serial SGS; reading, weights:
+    how `_justify` compares schedules (`_lex_better`); start_out:
     int64[P, J] (or [P, 0] to skip writing starts); fitness_out: float64[P, C] with columns
     (makespan, weighted tardiness, weighted completion) in minutes, then with C >= 4 the
     `_node_spread` and with C >= 5 the `_tail_area` of the scored schedule; +inf in every
@@ -437,7 +449,8 @@ def _sgs_population(A, assign, order, rounds, start_out, fitness_out):
         if ok:
             _fitness(A, start, assign[p], fitness_out[p])
             if rounds > 0:
-                _justify(A, assign[p], zeros, rounds, start, fitness_out[p, :3])
+                _justify(A, assign[p], zeros, rounds, start, fitness_out[p, :3], reading,
+                         weights)
             if fitness_out.shape[1] >= 4:
                 fitness_out[p, 3] = _node_spread(A, start, assign[p])
             if fitness_out.shape[1] >= 5:

@@ -59,6 +59,12 @@ class Priority:
         w = np.asarray(self.weights, dtype=np.float64)
         return np.asarray(terms, dtype=np.float64)[:, :3] @ w / 60.0
 
+    def kernel_arrays(self) -> tuple[np.ndarray, np.ndarray]:
+        """(int64[3] column order, float64[3] weights per minute, zeros when lexicographic):
+        the priority as the compiled builder compares schedules (`kernels._lex_better`)."""
+        weights = np.zeros(3) if self.weights is None else np.asarray(self.weights) / 60.0
+        return np.asarray(self.order, dtype=np.int64), weights.astype(np.float64)
+
     def key(self, terms: tuple[float, float, float]) -> tuple[float, ...]:
         """The comparison key of one plan's objective terms (for `min`)."""
         return tuple(self.read(np.asarray([terms[:3]], dtype=np.float64))[0].tolist())

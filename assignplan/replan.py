@@ -28,6 +28,7 @@ from assignplan.expand import ExpandedBatch, can_hold, expand_batch
 from assignplan.instance import NO_DUE, Instance, build_instance
 from assignplan.pinning import free_instance, merge, replan_bound
 from assignplan.plan import PlanResult
+from assignplan.priority import DEFAULT, Priority
 from assignplan.reading import load_plan, parse_batch_text, plan_hours, read_text
 from assignplan.state import (
     JobState,
@@ -190,10 +191,13 @@ class Replanned:
 
 def replan(given: ReplanInput, method: str = "ga", *, seed: int = 0, budget: float = 30.0,
            settings: BaseModel | None = None, free: bool = False,
-           fewer_moves: bool = False, progress=None) -> Replanned:
+           fewer_moves: bool = False, progress=None,
+           priority: Priority = DEFAULT) -> Replanned:
     """Plan the jobs of `given` not yet started (see the module docstring) within `budget`
     seconds; `free`: no churn tie-break (plan them as from scratch); `fewer_moves`: churn
-    ranks before the weighted completion time (after makespan and weighted tardiness)."""
+    ranks before the weighted completion time (after makespan and weighted tardiness);
+    `priority`: how the objective's terms are read, by the method and by the churn
+    tie-break (`assignplan.priority`)."""
     from assignplan.solve import solve
 
     t0 = time.perf_counter()
@@ -216,16 +220,17 @@ def replan(given: ReplanInput, method: str = "ga", *, seed: int = 0, budget: flo
         hint = keep_old(part.inst, base) if churn_counts and changed else None
         result = solve(part.inst, method, seed=seed,
                        budget=max(0.0, share * (deadline - time.perf_counter())),
-                       settings=settings, progress=progress, bound=free_bound, hint=hint)
+                       settings=settings, progress=progress, bound=free_bound, hint=hint,
+                       priority=priority)
         if churn_counts:
             result = least_churn(part.inst, result, base,
                                  deadline=max(deadline, time.perf_counter() + 1.0),
-                                 terms=2 if fewer_moves else 3)
+                                 terms=2 if fewer_moves else 3, priority=priority)
         churn = churn_of(base, result.assign, result.start)
     bound = replan_bound(free_bound, pins)
     whole = merge(inst, part, result, pins, bound)
     whole = replace(whole, **_term_bounds(inst, result, pins),
-                    seconds=time.perf_counter() - t0)
+                    seconds=time.perf_counter() - t0, priority=priority)
     return Replanned(inst, whole, churn, pins, len(part.jobs))
 
 

@@ -12,6 +12,7 @@ import numpy as np
 from assignplan import kernels
 from assignplan.instance import Instance
 from assignplan.plan import PlanResult, make_result
+from assignplan.priority import DEFAULT, Priority
 
 JUSTIFY_ROUNDS = 3  # forward-backward rounds at most; most of the gain comes in the first
 # Below this many job placements (individuals x jobs) a call runs on one thread: waking numba's
@@ -51,7 +52,8 @@ def check_assign(inst: Instance, assign: np.ndarray) -> np.ndarray:
 
 
 def _run(inst: Instance, assign2d: np.ndarray, order: np.ndarray, keep_starts: bool,
-         justify: bool, columns: int = 3) -> tuple[np.ndarray, np.ndarray]:
+         justify: bool, columns: int = 3, priority: Priority = DEFAULT
+         ) -> tuple[np.ndarray, np.ndarray]:
     n_pop = assign2d.shape[0]
     if order.ndim == 2 and order.shape[0] not in (1, n_pop):
         raise ValueError(f"order has {order.shape[0]} rows, the population {n_pop}")
@@ -59,27 +61,30 @@ def _run(inst: Instance, assign2d: np.ndarray, order: np.ndarray, keep_starts: b
     fitness = np.empty((n_pop, columns), dtype=np.float64)
     serial = n_pop * inst.n_jobs < SERIAL_BELOW
     kernel = kernels.sgs_population_serial if serial else kernels.sgs_population
+    reading, weights = priority.kernel_arrays()
     kernel(inst.arrays, assign2d, order.reshape(-1, inst.n_jobs),
-           JUSTIFY_ROUNDS if justify else 0, start, fitness)
+           JUSTIFY_ROUNDS if justify else 0, reading, weights, start, fitness)
     return start, fitness
 
 
 def build_schedule(inst: Instance, assign: np.ndarray, order: np.ndarray | None = None, *,
-                   justify: bool = False) -> np.ndarray:
+                   justify: bool = False, priority: Priority = DEFAULT) -> np.ndarray:
     """Start minute int64[J] of every job for node assignment int64[J] (serial SGS).
 
     Jobs go in `order` (default inst.order); each starts at the earliest minute
     s >= max(ready_j, max end of its predecessors) at which its node has the job's cores,
     memory and GPUs free throughout [s, s + duration) and no maintenance window meets it.
     With `justify`, the schedule then goes through up to JUSTIFY_ROUNDS rounds of
-    forward-backward improvement (`kernels._justify`): makespan never higher, and the
-    lexicographically best schedule seen is returned.
+    forward-backward improvement (`kernels._justify`): makespan never higher, and the best
+    schedule seen as `priority` reads the objective is returned (by default the
+    lexicographically best, makespan first).
     """
     assign = check_assign(inst, assign)
     order = check_order(inst, order)
     if order.ndim != 1:
         raise ValueError("build_schedule takes one order int64[J]")
-    start, _ = _run(inst, assign[None, :], order, keep_starts=True, justify=justify)
+    start, _ = _run(inst, assign[None, :], order, keep_starts=True, justify=justify,
+                    priority=priority)
     return start[0]
 
 
@@ -94,13 +99,15 @@ def population_starts(inst: Instance, assign2d: np.ndarray, order2d: np.ndarray)
 
 def evaluate_population(inst: Instance, assign2d: np.ndarray,
                         order: np.ndarray | None = None, *, justify: bool = False,
-                        spread: bool = False, tail: bool = False) -> np.ndarray:
+                        spread: bool = False, tail: bool = False,
+                        priority: Priority = DEFAULT) -> np.ndarray:
     """Fitness float64[P, 3] of assignments int64[P, J], in minutes (see `plan.objective`).
 
     Columns: makespan max_j C_j, weighted tardiness sum_j w_j max(0, C_j - d_j) (jobs with a
     due time), weighted completion sum_j w_j C_j; lower is better, lexicographically.
     `order`: int64[J] shared, or int64[P, J] one decoding order per individual.
-    `justify`: score the forward-backward improved schedule (see `build_schedule`).
+    `justify`: score the forward-backward improved schedule (see `build_schedule`; the best
+    one as `priority` reads the objective).
     `spread`: add a fourth column, sum_i F_i^2 over the nodes' finish times F_i (minutes^2),
     a tie-break for plans of equal makespan (not part of the objective).
     `tail`: add `spread`'s column and a fifth, the area sum_j p_j * share_j of the jobs
@@ -111,25 +118,29 @@ def evaluate_population(inst: Instance, assign2d: np.ndarray,
     if assign2d.ndim != 2:
         raise ValueError("population must be a 2-D array [pop_size, n_jobs]")
     _, fitness = _run(inst, assign2d, check_order(inst, order), keep_starts=False,
-                      justify=justify, columns=5 if tail else 4 if spread else 3)
+                      justify=justify, columns=5 if tail else 4 if spread else 3,
+                      priority=priority)
     return fitness
 
 
 def build_population(inst: Instance, assign2d: np.ndarray, order: np.ndarray | None = None, *,
-                     justify: bool = False) -> tuple[np.ndarray, np.ndarray]:
+                     justify: bool = False, priority: Priority = DEFAULT
+                     ) -> tuple[np.ndarray, np.ndarray]:
     """Start minutes int64[P, J] of every schedule and its five score columns float64[P, 5]
     (those of `evaluate_population` with `tail`), for scorers that also need the starts."""
     assign2d = check_assign(inst, assign2d)
     if assign2d.ndim != 2:
         raise ValueError("population must be a 2-D array [pop_size, n_jobs]")
     return _run(inst, assign2d, check_order(inst, order), keep_starts=True, justify=justify,
-                columns=5)
+                columns=5, priority=priority)
 
 
 def schedule_result(inst: Instance, assign: np.ndarray, method: str, lower_bound: int,
                     order: np.ndarray | None = None, *, justify: bool = False,
                     **kw) -> PlanResult:
     """The PlanResult of an assignment: its SGS start times (forward-backward improved with
-    `justify`, exactly as `evaluate_population` scored them), end times and the given bound."""
-    start = build_schedule(inst, assign, order, justify=justify)
+    `justify`, exactly as `evaluate_population` scored them under the result's `priority`),
+    end times and the given bound."""
+    start = build_schedule(inst, assign, order, justify=justify,
+                           priority=kw.get("priority") or DEFAULT)
     return make_result(inst, method, assign, start, lower_bound, **kw)

@@ -9,6 +9,11 @@ says one of three things, in this order:
 - "confirmed by a plan": greedy's plan, or else a short ga run's, ends by the deadline;
 - "not ruled out": neither; a longer search might still find a plan, or none exists.
 
+With a priority other than the makespan first (`assignplan.priority`, `size --priority`), the
+probes' plans are made for it and a count is confirmed only when its plan also meets every
+due time; a count at which some job cannot meet its due time even alone on its fastest node
+(`LowerBound.tardiness` above 0) is ruled out by the bound.
+
 `size_batch` varies the named groups one at a time (most costly per node first, else the
 largest first), the others held at the best counts found so far: for group g, the smallest
 count the bound does not rule out (`bound_min`; each count below it is checked and ruled out,
@@ -28,7 +33,8 @@ from dataclasses import dataclass, field
 from assignplan.documents import Batch
 from assignplan.errors import InputError
 from assignplan.expand import expand_batch
-from assignplan.instance import build_instance
+from assignplan.instance import NO_DUE, build_instance
+from assignplan.priority import DEFAULT, Priority
 
 RULED_OUT = "ruled out by the bound"
 NO_NODE = "ruled out: no node can hold some job"
@@ -82,8 +88,9 @@ class SizeResult:
 
 class _Prober:
     def __init__(self, doc: Batch, deadline: int, *, seed: int, probe_seconds: float,
-                 stop_at: float):
-        self.doc, self.deadline = doc, deadline
+                 stop_at: float, priority: Priority = DEFAULT):
+        self.doc, self.deadline, self.priority = doc, deadline, priority
+        self.late_bounds: dict[tuple[int, ...], float] = {}
         self.seed, self.probe_seconds, self.stop_at = seed, probe_seconds, stop_at
         self.cache: dict[tuple[int, ...], Probe] = {}
         self.bounds: dict[tuple[int, ...], int | None] = {}
@@ -105,9 +112,19 @@ class _Prober:
             from assignplan.bounds import lower_bound
 
             inst = self._instance(counts)
-            self.bounds[counts] = None if inst is None else lower_bound(
-                inst, deadline=time.perf_counter() + 10.0).value
+            found = None if inst is None else lower_bound(
+                inst, deadline=time.perf_counter() + 10.0)
+            self.bounds[counts] = None if found is None else found.value
+            self.late_bounds[counts] = 0.0 if found is None else found.tardiness
         return self.bounds[counts]
+
+    def in_time(self, inst, plan) -> bool:
+        """Whether `plan` ends by the deadline (and, unless the makespan comes first,
+        meets every due time)."""
+        if plan.makespan > self.deadline:
+            return False
+        return self.priority.name == "makespan" or not bool(
+            ((inst.due != NO_DUE) & (plan.end > inst.due)).any())
 
     def out_of_time(self) -> bool:
         return time.perf_counter() >= self.stop_at
@@ -122,20 +139,24 @@ class _Prober:
         greedy = ga = None
         if bound is None:
             verdict = NO_NODE
-        elif bound > self.deadline:
+        elif bound > self.deadline or (self.priority.name != "makespan"
+                                       and self.late_bounds[counts] > 0):
             verdict = RULED_OUT
         else:
             inst = self._instance(counts)
-            greedy = solve(inst, "greedy").makespan
-            verdict = CONFIRMED if greedy <= self.deadline else OPEN
+            plan = solve(inst, "greedy", priority=self.priority)
+            greedy = plan.makespan
+            verdict = CONFIRMED if self.in_time(inst, plan) else OPEN
             if verdict == OPEN and not self.out_of_time():
                 seconds = min(self.probe_seconds, max(0.1, self.stop_at - time.perf_counter()))
                 # the deadline as the ga's stopping target (it stops at the bound it is
                 # given), and no completion phase: a probe asks about the makespan alone
                 settings = GASettings().replace(completion={"completion_share": 0.0})
-                ga = solve_ga(inst, settings=settings, lower_bound=self.deadline,
-                              seed=self.seed, budget=seconds).makespan
-                verdict = CONFIRMED if ga <= self.deadline else OPEN
+                plan = solve_ga(inst, settings=settings, lower_bound=self.deadline,
+                                seed=self.seed, budget=seconds, priority=self.priority,
+                                term_bounds=(0.0, 0.0))
+                ga = plan.makespan
+                verdict = CONFIRMED if self.in_time(inst, plan) else OPEN
         out = Probe(counts, bound, greedy, ga, verdict)
         self.cache[counts] = out
         self.order.append(out)
@@ -143,9 +164,11 @@ class _Prober:
 
 
 def size_batch(doc: Batch, deadline: int, *, vary: tuple[str, ...] = (), seed: int = 0,
-               budget: float = 60.0, probe_seconds: float = 3.0) -> SizeResult:
+               budget: float = 60.0, probe_seconds: float = 3.0,
+               priority: Priority = DEFAULT) -> SizeResult:
     """Size the node groups `vary` (all by default) of `doc` for a makespan of at most
-    `deadline` minutes within about `budget` seconds (see the module docstring)."""
+    `deadline` minutes within about `budget` seconds (see the module docstring; with another
+    `priority`, every due time met as well)."""
     names = tuple(g.name for g in doc.nodes)
     unknown = [v for v in vary if v not in names]
     if unknown:
@@ -156,7 +179,7 @@ def size_batch(doc: Batch, deadline: int, *, vary: tuple[str, ...] = (), seed: i
     cost = tuple(float(c or 0.0) for c in costs) if any(c is not None for c in costs) else None
     current = tuple(g.count for g in doc.nodes)
     prober = _Prober(doc, deadline, seed=seed, probe_seconds=probe_seconds,
-                     stop_at=time.perf_counter() + budget)
+                     stop_at=time.perf_counter() + budget, priority=priority)
     out = SizeResult(names, varied, current, None, deadline, cost=cost)
     index = {n: k for k, n in enumerate(names)}
     best = None

@@ -100,15 +100,15 @@ def _ga(inst: Instance, *, seed: int, budget: float, settings: GASettings,
                         budget=budget, on_generation=progress,
                         term_bounds=(bound.tardiness, bound.completion), priority=priority,
                         hint=hint)
-    from assignplan.methods.ga.loop import for_priority
     from assignplan.risk.robust import robust_evaluate
 
     # the robust score's completion column is not the objective's, so no completion phase
-    settings = for_priority(settings.replace(completion={"completion_share": 0.0}), priority)
+    settings = settings.replace(completion={"completion_share": 0.0})
     return solve_ga(inst, settings=settings, lower_bound=bound.value, seed=seed, budget=budget,
                     on_generation=progress, bound_stops=False, priority=priority,
                     evaluate=robust_evaluate(inst, robust,
-                                             justify=settings.improvement.justify))
+                                             justify=settings.improvement.justify,
+                                             priority=priority))
 
 
 def _exact(inst: Instance, *, seed: int, budget: float, settings: ExactSettings,

@@ -84,6 +84,20 @@ def test_every_field_renders_for_every_job_of_the_week(week_plan, tmp_path):
             assert datetime.fromisoformat(due) == origin + timedelta(minutes=int(inst.due[j]))
 
 
+def test_readme_shows_the_manifest_of_the_greedy_due_first_plan(tmp_path):
+    readme = (ROOT / "README.md").read_text(encoding="utf-8").splitlines()
+    first = readme.index("seq,job,group,node,start,end,hours,cores,memory_gib,gpus,after,due")
+    plan, out = tmp_path / "plan.json", tmp_path / "manifest.csv"
+    runner = CliRunner()
+    res = runner.invoke(app, ["solve", str(WEEK), "--method", "greedy", "--priority", "due",
+                              "--out", str(plan), "--quiet"])
+    assert res.exit_code == 0, res.output
+    res = _export(WEEK, plan, "--out", out, "--template",
+                  TEMPLATES / "manifest.csv.template")
+    assert res.exit_code == 0, res.output
+    assert out.read_text().splitlines()[:2] == readme[first:first + 2]
+
+
 def test_manifest_example_first_lines(week_plan, tmp_path):
     out = tmp_path / "manifest.csv"
     res = _export(WEEK, week_plan, "--template", TEMPLATES / "manifest.csv.template",

@@ -24,6 +24,7 @@ from assignplan.errors import InputError
 from assignplan.instance import Instance
 from assignplan.kernels_replay import replay_population
 from assignplan.methods.ga.population import COMPLETION, MAKESPAN, TARDINESS, Evaluate
+from assignplan.priority import DEFAULT, Priority
 from assignplan.risk.replay import nearest_rank
 from assignplan.risk.sampling import Sampler
 from assignplan.schedule import build_population
@@ -59,14 +60,17 @@ def check_robust(quantile: float, samples: int) -> None:
         raise InputError(problems)
 
 
-def robust_evaluate(inst: Instance, robust: Robust, *, justify: bool) -> Evaluate:
-    """The ga scorer of the module docstring; `justify` as the ga's `improvement.justify`."""
+def robust_evaluate(inst: Instance, robust: Robust, *, justify: bool,
+                    priority: Priority = DEFAULT) -> Evaluate:
+    """The ga scorer of the module docstring; `justify` as the ga's `improvement.justify`
+    (keeping the planned schedule that is best under `priority`)."""
     factors = np.ascontiguousarray(robust.sampler.factors(robust.seed, 0, robust.samples,
                                                           purpose="robust"))
     rank = nearest_rank(robust.quantile, robust.samples) - 1
 
     def evaluate(assign2d: np.ndarray, order: np.ndarray) -> np.ndarray:
-        start, score = build_population(inst, assign2d, order, justify=justify)
+        start, score = build_population(inst, assign2d, order, justify=justify,
+                                        priority=priority)
         failed = ~np.isfinite(score[:, MAKESPAN])
         futures = np.empty((len(assign2d), robust.samples, 3), dtype=np.float64)
         replay_population(inst.arrays, np.ascontiguousarray(assign2d, dtype=np.int64), start,

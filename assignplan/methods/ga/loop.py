@@ -90,7 +90,7 @@ def run_island(inst: Instance, settings: GASettings, *, rng: np.random.Generator
     scorer, pop = _seed(inst, settings, index, evaluate, migrants, migrant_keys, initial,
                         extra, rng=rng, priority=priority)
     ctx = Context(inst, index, scorer, lower_bound, settings.improvement.justify,
-                  settings.population.survival)
+                  settings.population.survival, priority)
     steps = improvers(settings, ctx, final=final)
     survive = survival.SCHEMES[settings.population.survival]
     stop = _Stopping(settings, None if final or not bound_stops else lower_bound, deadline,
@@ -245,12 +245,13 @@ class _History:
             self.on_generation(self.rows[-1])
 
 
-def default_evaluate(inst: Instance, settings: GASettings) -> Evaluate:
-    """The compiled builder, scoring the forward-backward improved schedule when
-    `improvement.justify`, with every column of the score layout."""
+def default_evaluate(inst: Instance, settings: GASettings,
+                     priority: Priority = DEFAULT) -> Evaluate:
+    """The compiled builder, scoring the forward-backward improved schedule (the best under
+    `priority`) when `improvement.justify`, with every column of the score layout."""
     def evaluate(assign2d: np.ndarray, order: np.ndarray) -> np.ndarray:
         return evaluate_population(inst, assign2d, order, justify=settings.improvement.justify,
-                                   tail=True)
+                                   tail=True, priority=priority)
     return evaluate
 
 
@@ -298,13 +299,13 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
     `priority` (`assignplan.priority`): the order every phase reads the fixed score columns in
     (with the weighted tardiness first, phase 2 is the phase of the tardiness and then the
     makespan, and its greedy seed the best of greedy's plans under that order, its
-    earliest-due-date plan among them); never worse than greedy under the same priority
-    (`for_priority`).
+    earliest-due-date plan among them); forward-backward justification keeps the schedule
+    best under it too, so the run is never worse than greedy under the same priority.
     """
     t0 = time.perf_counter()
     rng = np.random.default_rng(seed)
-    settings = for_priority(sized(settings, inst.n_jobs), priority)
-    evaluate = evaluate or default_evaluate(inst, settings)
+    settings = sized(settings, inst.n_jobs)
+    evaluate = evaluate or default_evaluate(inst, settings, priority)
     comp = settings.completion
     early_end = t0 + (1.0 - comp.completion_share) * budget
     seed_end = t0 + comp.completion_seed_time * budget
@@ -325,18 +326,9 @@ def solve_ga(inst: Instance, *, settings: GASettings, lower_bound: int, seed: in
                                    priority=priority)
     order = island.orders if island.orders.ndim == 1 else island.orders[0]
     return schedule_result(inst, island.assign[0], "ga", lower_bound, order,
-                           justify=settings.improvement.justify, status="feasible", seed=seed,
+                           justify=settings.improvement.justify, priority=priority,
+                           status="feasible", seed=seed,
                            seconds=time.perf_counter() - t0, history=history.rows)
-
-
-def for_priority(settings: GASettings, priority: Priority) -> GASettings:
-    """The settings a run under `priority` uses: forward-backward justification
-    (`improvement.justify`) keeps the schedule that is best with the makespan first
-    (`kernels._justify`), which can be a later one for the due times, so another priority
-    decodes without it (a seed then decodes to its plan or one starting no job later)."""
-    if priority.name == "makespan":
-        return settings
-    return settings.replace(improvement={"justify": False})
 
 
 class Phases:

@@ -40,6 +40,7 @@ from assignplan.methods.ga.order_keys import orders_from_keys
 from assignplan.methods.ga.population import MAKESPAN, Population, Scorer
 from assignplan.methods.ga.selection import lex_less
 from assignplan.methods.ga.settings import GASettings
+from assignplan.priority import DEFAULT, Priority
 
 
 class Improver(Protocol):
@@ -58,6 +59,7 @@ class Context:
     lower_bound: int
     justify: bool
     scheme: str  # the survival scheme: which member survival will rank first
+    priority: Priority = DEFAULT  # how justification keeps a schedule (`kernels._justify`)
 
     def best(self, pool: Population) -> int:
         return survival.first(pool.key, pool.born, self.scheme)
@@ -88,7 +90,7 @@ class LocalMoves:
         assign, score, spent = improve(
             pool.assign[k], pool.score[k], c.inst, c.index, c.order_of(pool, k),
             c.scorer.evaluate, self.budget, justify=c.justify, key=c.scorer.key_of,
-            target=c.lower_bound)
+            target=c.lower_bound, priority=c.priority)
         c.scorer.evaluations += spent
         return c.replaced(pool, k, assign, None if pool.keys is None else pool.keys[k], score)
 
@@ -102,7 +104,7 @@ class OrderPromotion:
         c, k = self.ctx, self.ctx.best_offspring(pool)
         keys, score, spent = improve_order(
             pool.assign[k], pool.keys[k], pool.score[k], c.inst, c.scorer.evaluate,
-            self.budget, justify=c.justify, key=c.scorer.key_of)
+            self.budget, justify=c.justify, key=c.scorer.key_of, priority=c.priority)
         c.scorer.evaluations += spent
         return c.replaced(pool, k, pool.assign[k], keys, score)
 
@@ -116,7 +118,8 @@ class Descent:
         c, b = self.ctx, self.ctx.best(pool)
         found = descent_step(pool.assign[b], None if pool.keys is None else pool.keys[b],
                              pool.score[b], c.inst, c.order_of(pool, b), c.scorer.build,
-                             c.scorer.key_of, budget=self.budget, justify=c.justify)
+                             c.scorer.key_of, budget=self.budget, justify=c.justify,
+                             priority=c.priority)
         return pool if found is None else c.replaced(pool, b, *found)
 
 
@@ -133,7 +136,7 @@ class Repack:
                             pool.score[b], c.inst, c.order_of(pool, b), c.scorer.build,
                             c.scorer.key_of, nodes=self.nodes, target=c.lower_bound,
                             deterministic_time=self.effort, justify=c.justify, rng=rng,
-                            tried=self.tried)
+                            tried=self.tried, priority=c.priority)
         return pool if found is None else c.replaced(pool, b, *found)
 
 
@@ -167,7 +170,8 @@ class Resequence:
         c, b = self.ctx, self.ctx.best(pool)
         found = resequence_step(pool.assign[b], None if pool.keys is None else pool.keys[b],
                                 pool.score[b], c.inst, c.order_of(pool, b), c.scorer.build,
-                                c.scorer.key_of, budget=self.budget, justify=c.justify)
+                                c.scorer.key_of, budget=self.budget, justify=c.justify,
+                                priority=c.priority)
         return pool if found is None else c.replaced(pool, b, *found)
 
 
@@ -182,7 +186,7 @@ class WindowRepack:
         found = window_step(pool.assign[b], None if pool.keys is None else pool.keys[b],
                             pool.score[b], c.inst, c.order_of(pool, b), c.scorer.build,
                             c.scorer.key_of, size=self.size, deterministic_time=self.effort,
-                            justify=c.justify, rng=rng)
+                            justify=c.justify, rng=rng, priority=c.priority)
         return pool if found is None else c.replaced(pool, b, *found)
 
 

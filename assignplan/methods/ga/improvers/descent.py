@@ -40,6 +40,7 @@ from assignplan.kernels import (
 from assignplan.methods.ga.critical import waiting_head
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule
 
 CHAIN_PARTNERS = 8  # third nodes an ejection chain tries for the job it pushes out
@@ -257,12 +258,12 @@ def descend(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: int
 
 def descent_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
                  inst: Instance, order: np.ndarray, evaluate: Evaluate, key: Key, *,
-                 budget: int, justify: bool
+                 budget: int, justify: bool, priority: Priority = DEFAULT
                  ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
     """The descent on one ga plan (assign, its order keys or None, its scorer row `full`,
     decoded in `order`): the new (assign, keys, scorer row) when it moved something and the
     result is no worse under `key`, else None (the contract of `repack.repack_step`)."""
-    start = build_schedule(inst, assign, order, justify=justify)
+    start = build_schedule(inst, assign, order, justify=justify, priority=priority)
     new_assign, new_start, moves = descend(inst, assign, start, budget)
     if moves == 0:
         return None

@@ -12,6 +12,7 @@ from assignplan.methods.ga.critical import critical_node
 from assignplan.methods.ga.encoding import EligibleIndex, job_share, node_load
 from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.methods.ga.selection import lex_less
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule
 
 TARGETS = 3  # least-loaded destinations tried per job: wider scans rarely pay off per trial
@@ -20,8 +21,8 @@ EXCHANGES = 24  # packing exchanges tried first after each rebuild of the neighb
 
 
 def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
-                order: np.ndarray, justify: bool, target: int | None = None
-                ) -> Iterator[np.ndarray]:
+                order: np.ndarray, justify: bool, target: int | None = None,
+                priority: Priority = DEFAULT) -> Iterator[np.ndarray]:
     """Trial assignments int64[J], most promising first.
 
     c is the critical node (`critical_node`). Each job j on c is scored by the estimated
@@ -32,7 +33,7 @@ def _neighbours(inst: Instance, index: EligibleIndex, assign: np.ndarray,
     With a `target` finish (minutes, e.g. the lower bound), the packing exchanges of
     `_exchanges` come first.
     """
-    start = build_schedule(inst, assign, order, justify=justify)
+    start = build_schedule(inst, assign, order, justify=justify, priority=priority)
     end = inst.end_times(assign, start)
     crit = critical_node(inst, assign, start, end)
     load = node_load(inst, assign[None])[0]
@@ -143,8 +144,8 @@ def _swaps(inst: Instance, assign: np.ndarray, moved: np.ndarray, j: int, k: int
 
 def improve(assign: np.ndarray, fit: np.ndarray, inst: Instance, index: EligibleIndex,
             order: np.ndarray, evaluate: Evaluate, budget: int, *,
-            justify: bool = False, key: Key | None = None, target: int | None = None
-            ) -> tuple[np.ndarray, np.ndarray, int]:
+            justify: bool = False, key: Key | None = None, target: int | None = None,
+            priority: Priority = DEFAULT) -> tuple[np.ndarray, np.ndarray, int]:
     """First-improvement descent from assign: int64[J] with fitness float64[3] (decoded in
     `order`: int64[J]).
 
@@ -154,13 +155,13 @@ def improve(assign: np.ndarray, fit: np.ndarray, inst: Instance, index: Eligible
     at the makespan counts as progress) is taken and the neighbourhood rebuilt
     around it. Stops when `budget` trials are spent or no neighbour improves.
     `justify`: the critical node is read off the forward-backward improved schedule (the one
-    the default scorer grades when `improvement.justify` is on).
+    the default scorer grades when `improvement.justify` is on, under `priority`).
     `target`: a finish no node needs to beat (the lower bound); turns on `_exchanges`.
     Returns new arrays (assign, fitness) and the number of trials scored.
     """
     best, best_fit, spent = assign.copy(), fit.copy(), 0
     best_key = best_fit if key is None else key(best[None], best_fit[None])[0]
-    trials = _neighbours(inst, index, best, order, justify, target)
+    trials = _neighbours(inst, index, best, order, justify, target, priority)
     while spent < budget:
         batch = [t for _, t in zip(range(min(BATCH, budget - spent)), trials, strict=False)]
         if not batch:
@@ -172,7 +173,7 @@ def improve(assign: np.ndarray, fit: np.ndarray, inst: Instance, index: Eligible
         if len(better):
             k = int(better[0])
             best, best_fit, best_key = batch[k], scores[k].copy(), keys[k].copy()
-            trials = _neighbours(inst, index, best, order, justify, target)
+            trials = _neighbours(inst, index, best, order, justify, target, priority)
     return best, best_fit, spent
 
 

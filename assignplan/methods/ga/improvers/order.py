@@ -13,11 +13,12 @@ from assignplan.methods.ga.improvers.moves import BATCH
 from assignplan.methods.ga.order_keys import bottom_levels, orders_from_keys
 from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.methods.ga.selection import lex_less
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule
 
 
 def _order_neighbours(inst: Instance, assign: np.ndarray, keys: np.ndarray, order: np.ndarray,
-                      justify: bool) -> Iterator[np.ndarray]:
+                      justify: bool, priority: Priority = DEFAULT) -> Iterator[np.ndarray]:
     """Trial keys float64[J]: swap the priorities of two jobs on the critical node.
 
     Pseudo-hours q = hours * keys set the decoding order; trading q_a and q_b between jobs a
@@ -25,7 +26,7 @@ def _order_neighbours(inst: Instance, assign: np.ndarray, keys: np.ndarray, orde
     when they do not follow others. Pairs close in the current order come first (adjacent
     ones, then two apart, ...): small changes of the node's packing.
     """
-    start = build_schedule(inst, assign, order, justify=justify)
+    start = build_schedule(inst, assign, order, justify=justify, priority=priority)
     end = inst.end_times(assign, start)
     crit = critical_node(inst, assign, start, end)
     yield from _promotions(inst, assign, start, end, keys)
@@ -77,7 +78,8 @@ def _promotions(inst: Instance, assign: np.ndarray, start: np.ndarray, end: np.n
 
 def improve_order(assign: np.ndarray, keys: np.ndarray, fit: np.ndarray, inst: Instance,
                   evaluate: Evaluate, budget: int, *, justify: bool,
-                  key: Key | None = None) -> tuple[np.ndarray, np.ndarray, int]:
+                  key: Key | None = None, priority: Priority = DEFAULT
+                  ) -> tuple[np.ndarray, np.ndarray, int]:
     """First-improvement descent over the decoding order of the critical node, assignment
     fixed: keys float64[J] (see `order_keys`) with fitness `fit`; neighbours from
     `_order_neighbours`, scored BATCH at a time, accepted when better under `key` (default:
@@ -85,7 +87,7 @@ def improve_order(assign: np.ndarray, keys: np.ndarray, fit: np.ndarray, inst: I
     best_keys, best_fit, spent = keys.copy(), fit.copy(), 0
     best_key = best_fit if key is None else key(assign[None], best_fit[None])[0]
     order = orders_from_keys(inst, best_keys[None])[0]
-    trials = _order_neighbours(inst, assign, best_keys, order, justify)
+    trials = _order_neighbours(inst, assign, best_keys, order, justify, priority)
     while spent < budget:
         batch = [t for _, t in zip(range(min(BATCH, budget - spent)), trials, strict=False)]
         if not batch:
@@ -99,5 +101,5 @@ def improve_order(assign: np.ndarray, keys: np.ndarray, fit: np.ndarray, inst: I
             k = int(better[0])
             best_keys, best_fit, best_key = batch[k], scores[k].copy(), keyed[k].copy()
             order = orders_from_keys(inst, best_keys[None])[0]
-            trials = _order_neighbours(inst, assign, best_keys, order, justify)
+            trials = _order_neighbours(inst, assign, best_keys, order, justify, priority)
     return best_keys, best_fit, spent

@@ -28,6 +28,7 @@ from assignplan.methods.ga.critical import critical_node
 from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.methods.ga.repair import resource_work
 from assignplan.methods.ga.selection import lex_less
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule
 
 _FOUND = (cp_model.OPTIMAL, cp_model.FEASIBLE)
@@ -219,7 +220,8 @@ def keys_for_order(inst: Instance, order: np.ndarray) -> np.ndarray:
 def repack_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
                 inst: Instance, order: np.ndarray, evaluate: Evaluate, key: Key, *, nodes: int,
                 target: int, deterministic_time: float, justify: bool,
-                rng: np.random.Generator, tried: set[bytes] | None = None
+                rng: np.random.Generator, tried: set[bytes] | None = None,
+                priority: Priority = DEFAULT
                 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
     """One repacking of the plan (assign int64[J], its order keys or None, its scorer row
     `full`, decoded in `order` int64[J]): the nodes are one of the nodes ending at the
@@ -230,7 +232,7 @@ def repack_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
     keys decode the plan in start order (`start_order`), so it is never worse than before;
     with one fixed order the rebuilt plan is scored in that order and may not be.
     """
-    start = build_schedule(inst, assign, order, justify=justify)
+    start = build_schedule(inst, assign, order, justify=justify, priority=priority)
     end = inst.end_times(assign, start)
     late = np.unique(assign[end == end.max()])
     cands = np.union1d(late, [critical_node(inst, assign, start, end)])

@@ -27,6 +27,7 @@ from assignplan.methods.ga.improvers.descent import TOO_LATE, decode_node, take_
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
 from assignplan.methods.orders import smith_keys
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule
 
 
@@ -232,11 +233,11 @@ def resequence(inst: Instance, assign: np.ndarray, start: np.ndarray, budget: in
 
 def resequence_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
                     inst: Instance, order: np.ndarray, evaluate: Evaluate, key: Key, *,
-                    budget: int, justify: bool
+                    budget: int, justify: bool, priority: Priority = DEFAULT
                     ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
     """The re-sequencing of one ga plan: the new (assign, keys, scorer row) when it moved
     something and the result is no worse under `key`, else None (as `descent.descent_step`)."""
-    start = build_schedule(inst, assign, order, justify=justify)
+    start = build_schedule(inst, assign, order, justify=justify, priority=priority)
     new_assign, new_start, moves = resequence(inst, assign, start, budget)
     if moves == 0:
         return None

@@ -32,6 +32,7 @@ from assignplan.methods.cpsat import NodeSlots, add_freed_jobs
 from assignplan.methods.exact import WEIGHT_SCALE
 from assignplan.methods.ga.improvers.repack import adopt
 from assignplan.methods.ga.population import Evaluate, Key
+from assignplan.priority import DEFAULT, Priority
 from assignplan.schedule import build_schedule
 
 _FOUND = (cp_model.OPTIMAL, cp_model.FEASIBLE)
@@ -149,12 +150,13 @@ def _add_capacity(m: cp_model.CpModel, inst: Instance, assign: np.ndarray, start
 
 def window_step(assign: np.ndarray, keys: np.ndarray | None, full: np.ndarray,
                 inst: Instance, order: np.ndarray, evaluate: Evaluate, key: Key, *, size: int,
-                deterministic_time: float, justify: bool, rng: np.random.Generator
+                deterministic_time: float, justify: bool, rng: np.random.Generator,
+                priority: Priority = DEFAULT
                 ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
     """One time-window repacking of a ga plan (assign, its order keys or None, its scorer row
     `full`, decoded in `order`): the new (assign, keys, scorer row) when no worse under `key`,
     else None (the contract of `repack.repack_step`)."""
-    start = build_schedule(inst, assign, order, justify=justify)
+    start = build_schedule(inst, assign, order, justify=justify, priority=priority)
     freed = window_jobs(start, inst.end_times(assign, start), size, rng=rng)
     seed = int(rng.integers(2**31 - 1))
     found = repack_window(inst, assign, start, freed, deterministic_time=deterministic_time,
