@@ -8,6 +8,7 @@ import json
 import os
 import signal
 import sys
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -95,6 +96,23 @@ def test_replay_on_two_workers_is_bit_identical_to_in_process(executor, small):
     here = replay(inst, plan, sampler, executor=InProcess(), **args)
     there = replay(inst, plan, sampler, executor=executor, **args)
     _same_tallies(here, there)
+
+
+@dataclass(frozen=True)
+class WhereItRan:
+    """Which worker process ran an item (after a short sleep, so one worker cannot take them
+    all before the other is free)."""
+
+    def __call__(self, item):
+        time.sleep(0.2)
+        return os.getpid()
+
+
+def test_every_worker_gets_items(executor):
+    # The function is one task every item depends on; the scheduler sends a task only to
+    # workers holding its inputs, so without a copy on each worker one worker ran them all.
+    pids = {pid for _, pid in executor.run(WhereItRan(), range(8))}
+    assert len(pids) == 2
 
 
 def test_a_worker_killed_mid_run_loses_nothing(executor, small, tmp_path):
