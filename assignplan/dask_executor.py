@@ -25,6 +25,7 @@ from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from typing import Any
 
+from assignplan import __version__
 from assignplan.errors import AssignplanError, InputError, SolveError
 from assignplan.executor import Executor, InProcess
 
@@ -83,7 +84,7 @@ class DaskExecutor:
         return len(self.client.nthreads())
 
     def run(self, fn: Callable[[Any], Any], items: Sequence[Any]) -> Iterator[tuple[int, Any]]:
-        from distributed import as_completed
+        from distributed import as_completed, wait
 
         held = self._hold(fn)
         # On every worker before the items are submitted: the scheduler sends a task only to
@@ -91,6 +92,15 @@ class DaskExecutor:
         # (measured: 8 chunks on one of 2 workers); copies on all workers also keep the
         # memory manager from dropping them while items still wait for them. A worker that
         # joins later (a restarted one) gets its copy at the next run.
+        wait([held])
+        if held.status != "finished":  # the workers could not even unpack the function
+            err = held.exception()
+            self._held = None
+            said = " ".join(str(err).split())  # one line
+            raise SolveError(f"the Dask cluster could not take the work ({type(err).__name__}:"
+                             f" {said}); its scheduler and workers need assignplan "
+                             f"{__version__} and its dependencies installed; nothing was "
+                             "written")
         self.client.replicate([held])
         futures = [self.client.submit(_apply, held, item, key=f"{held.key}-{uuid.uuid4().hex[:8]}"
                                       f"-{k}", pure=False) for k, item in enumerate(items)]

@@ -18,6 +18,7 @@ import pytest
 from rich.console import Console
 from typer.testing import CliRunner
 
+from assignplan import __version__
 from assignplan.cli import app
 from assignplan.dask_executor import DaskExecutor, open_executor
 from assignplan.errors import SolveError
@@ -113,6 +114,29 @@ def test_every_worker_gets_items(executor):
     # workers holding its inputs, so without a copy on each worker one worker ran them all.
     pids = {pid for _, pid in executor.run(WhereItRan(), range(8))}
     assert len(pids) == 2
+
+
+def _missing_on_the_worker():
+    raise ModuleNotFoundError("No module named 'assignplan_elsewhere'")
+
+
+class ArrivesBroken:
+    """Pickles here; unpickling it (on a worker) fails as on a worker without the package."""
+
+    def __reduce__(self):
+        return (_missing_on_the_worker, ())
+
+    def __call__(self, item):
+        return item
+
+
+def test_a_cluster_that_cannot_unpack_the_work_says_so_in_one_line(executor):
+    with pytest.raises(SolveError) as err:
+        list(executor.run(ArrivesBroken(), range(3)))
+    (line,) = err.value.problems
+    assert "\n" not in line and line.startswith("the Dask cluster could not take the work (")
+    assert line.endswith(f"its scheduler and workers need assignplan {__version__} and its "
+                         "dependencies installed; nothing was written")
 
 
 def test_a_worker_killed_mid_run_loses_nothing(executor, small, tmp_path):
