@@ -247,7 +247,7 @@ def test_compare_plans_several_batches_as_tasks_in_one_table(executor, small, tm
         for method in ("ga", "greedy", "exact")]
     assert {r["makespan_h"] for r in records if r["method"] == "greedy"} == {
         greedy.makespan / 60}
-    console = Console(record=True, width=200)
+    console = Console(record=True, width=1_000)  # no cell wrapped: one line per row
     console.print(compare_table(records))
     lines = console.export_text().splitlines()
     header = next(line for line in lines if "┃" in line)
