@@ -7,8 +7,9 @@ scheduler someone else runs (a site's, started inside a batch allocation with Da
 launchers); neither: `InProcess`.
 
 The function is sent once, as a task of its own that every item's task depends on, rather than
-scattered: the scheduler keeps its pickled form, so when the worker holding it dies it is
-rebuilt elsewhere instead of being lost with that worker. A task whose worker dies is run again
+scattered: the scheduler keeps its pickled form, so when the workers holding it die it is
+rebuilt elsewhere instead of being lost with them; it is copied to every worker before the
+items are submitted, so that every worker gets items. A task whose worker dies is run again
 on another one (the scheduler's own rule, `distributed.scheduler.allowed-failures`, 3 by
 default); a task that keeps losing its workers, or raises, ends the run with an error naming
 the item, before the caller has written anything.
@@ -24,6 +25,7 @@ from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from typing import Any
 
+from assignplan import __version__
 from assignplan.errors import AssignplanError, InputError, SolveError
 from assignplan.executor import Executor, InProcess
 
@@ -82,9 +84,24 @@ class DaskExecutor:
         return len(self.client.nthreads())
 
     def run(self, fn: Callable[[Any], Any], items: Sequence[Any]) -> Iterator[tuple[int, Any]]:
-        from distributed import as_completed
+        from distributed import as_completed, wait
 
         held = self._hold(fn)
+        # On every worker before the items are submitted: the scheduler sends a task only to
+        # workers that hold its inputs, so a function on one worker would get every item
+        # (measured: 8 chunks on one of 2 workers); copies on all workers also keep the
+        # memory manager from dropping them while items still wait for them. A worker that
+        # joins later (a restarted one) gets its copy at the next run.
+        wait([held])
+        if held.status != "finished":  # the workers could not even unpack the function
+            err = held.exception()
+            self._held = None
+            said = " ".join(str(err).split())  # one line
+            raise SolveError(f"the Dask cluster could not take the work ({type(err).__name__}:"
+                             f" {said}); its scheduler and workers need assignplan "
+                             f"{__version__} and its dependencies installed; nothing was "
+                             "written")
+        self.client.replicate([held])
         futures = [self.client.submit(_apply, held, item, key=f"{held.key}-{uuid.uuid4().hex[:8]}"
                                       f"-{k}", pure=False) for k, item in enumerate(items)]
         index = {f.key: k for k, f in enumerate(futures)}

@@ -132,7 +132,7 @@ def distributed_run(samples: int, workers: int) -> dict:
     waits = [min(runs)[0] - t1 for runs in by_pid.values()]
     busiest = max(sum(d for _, d in runs) for runs in by_pid.values())
     return {"start": started, "wall": wall, "task_seconds": per_task, "merging": merging,
-            "busiest": busiest,
+            "busiest": busiest, "per_worker": sorted(len(r) for r in by_pid.values()),
             "first_task": firsts, "later_task_median": statistics.median(later) if later
             else float("nan"), "first_wait": waits, "worker_peak_mib": sorted(peaks.values()),
             "digest": digest(totals), "tasks": len(per_task), "workers": len(by_pid)}
@@ -200,6 +200,7 @@ def risk_part(args) -> str:
         f"| wall time of the sweep | {here['wall']:.1f} s | {there['wall']:.1f} s "
         f"(speed-up {here['wall'] / there['wall']:.2f}) |",
         f"| cluster start (not in the wall time) | – | {there['start']:.1f} s |",
+        f"| chunks per worker | – | {', '.join(map(str, there['per_worker']))} |",
         f"| median time of a chunk (250 samples) | {t_chunk_here:.2f} s (2 threads) | "
         f"{t_task:.2f} s (1 thread, in the task) |",
         f"| idle per task ((workers x wall - task times) / tasks: start, tail and waits "

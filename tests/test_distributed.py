@@ -8,6 +8,7 @@ import json
 import os
 import signal
 import sys
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -17,6 +18,7 @@ import pytest
 from rich.console import Console
 from typer.testing import CliRunner
 
+from assignplan import __version__
 from assignplan.cli import app
 from assignplan.dask_executor import DaskExecutor, open_executor
 from assignplan.errors import SolveError
@@ -95,6 +97,46 @@ def test_replay_on_two_workers_is_bit_identical_to_in_process(executor, small):
     here = replay(inst, plan, sampler, executor=InProcess(), **args)
     there = replay(inst, plan, sampler, executor=executor, **args)
     _same_tallies(here, there)
+
+
+@dataclass(frozen=True)
+class WhereItRan:
+    """Which worker process ran an item (after a short sleep, so one worker cannot take them
+    all before the other is free)."""
+
+    def __call__(self, item):
+        time.sleep(0.2)
+        return os.getpid()
+
+
+def test_every_worker_gets_items(executor):
+    # The function is one task every item depends on; the scheduler sends a task only to
+    # workers holding its inputs, so without a copy on each worker one worker ran them all.
+    pids = {pid for _, pid in executor.run(WhereItRan(), range(8))}
+    assert len(pids) == 2
+
+
+def _missing_on_the_worker():
+    raise ModuleNotFoundError("No module named 'assignplan_elsewhere'")
+
+
+class ArrivesBroken:
+    """Pickles here; unpickling it (on a worker) fails as on a worker without the package."""
+
+    def __reduce__(self):
+        return (_missing_on_the_worker, ())
+
+    def __call__(self, item):
+        return item
+
+
+def test_a_cluster_that_cannot_unpack_the_work_says_so_in_one_line(executor):
+    with pytest.raises(SolveError) as err:
+        list(executor.run(ArrivesBroken(), range(3)))
+    (line,) = err.value.problems
+    assert "\n" not in line and line.startswith("the Dask cluster could not take the work (")
+    assert line.endswith(f"its scheduler and workers need assignplan {__version__} and its "
+                         "dependencies installed; nothing was written")
 
 
 def test_a_worker_killed_mid_run_loses_nothing(executor, small, tmp_path):
@@ -205,7 +247,7 @@ def test_compare_plans_several_batches_as_tasks_in_one_table(executor, small, tm
         for method in ("ga", "greedy", "exact")]
     assert {r["makespan_h"] for r in records if r["method"] == "greedy"} == {
         greedy.makespan / 60}
-    console = Console(record=True, width=400)  # wide enough for the long temporary paths
+    console = Console(record=True, width=1_000)  # no cell wrapped: one line per row
     console.print(compare_table(records))
     lines = console.export_text().splitlines()
     header = next(line for line in lines if "┃" in line)
