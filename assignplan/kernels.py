@@ -107,7 +107,14 @@ def earliest_start(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2):
 def earliest_start_by(seg_t, seg_f, lo, n, t0, dur, d0, d1, d2, latest):
     """`earliest_start`, giving up (NEVER, -1) as soon as the start would pass `latest`: a
     caller that only wants starts up to some minute stops scanning there."""
-    k = segment_at(seg_t, lo, n, t0)
+    return scan_from(seg_t, seg_f, lo, n, segment_at(seg_t, lo, n, t0), t0, dur, d0, d1, d2,
+                     latest)
+
+
+@njit(cache=True)
+def scan_from(seg_t, seg_f, lo, n, k, t0, dur, d0, d1, d2, latest):
+    """The earliest start s >= t0 with room for [s, s + dur), scanning from segment k (the
+    one holding t0): (s, its segment), or (NEVER, -1) once s would pass `latest`."""
     s = t0
     while True:
         if s > latest:

@@ -37,6 +37,7 @@ from assignplan.kernels import (
     init_node,
     node_slots,
     place,
+    scan_from,
     segment_at,
 )
 
@@ -61,24 +62,7 @@ def _fit_from(seg_t, seg_f, lo, n, k, t0, dur, d0, d1, d2, cutoff):
     """`kernels.earliest_start` from segment k (the one holding t0), giving up (NEVER, -1)
     once no start before `cutoff` is left: a dispatch only wants a node that beats the best
     start found so far, and the node's last start tells where to begin (see `replay_one`)."""
-    s = t0
-    while s < cutoff:
-        m = k
-        ok = True
-        while m < n:
-            if m > k and seg_t[lo + m] >= s + dur:
-                break
-            if seg_f[lo + m, 0] < d0 or seg_f[lo + m, 1] < d1 or seg_f[lo + m, 2] < d2:
-                ok = False
-                break
-            m += 1
-        if ok:
-            return s, k
-        if m + 1 >= n:
-            return NEVER, -1
-        k = m + 1
-        s = seg_t[lo + k]
-    return NEVER, -1
+    return scan_from(seg_t, seg_f, lo, n, k, t0, dur, d0, d1, d2, cutoff - 1)
 
 
 @njit(cache=True)
