@@ -32,7 +32,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from ortools.graph.python import linear_sum_assignment
 
-from assignplan import kernels
+from assignplan import kernels_list
 from assignplan.instance import Instance
 from assignplan.methods.ga.improvers.repack import start_order
 from assignplan.plan import PlanResult, objective
@@ -163,7 +163,7 @@ def keep_old(inst: Instance, base: Baseline) -> tuple[np.ndarray, np.ndarray]:
     nodes = np.concatenate([e.nodes, np.arange(inst.n_nodes)]).astype(np.int32)
     assign = np.empty(inst.n_jobs, dtype=np.int64)
     start = np.empty(inst.n_jobs, dtype=np.int64)
-    ok = kernels.greedy_list(inst.arrays, inst.order, job_class.astype(np.int32),
+    ok = kernels_list.greedy_list(inst.arrays, inst.order, job_class.astype(np.int32),
                              ptr.astype(np.int64), nodes, assign, start)
     if not ok:  # cannot happen: every job keeps a node that can hold it
         raise RuntimeError("keep_old: a job lost every node")

@@ -118,6 +118,8 @@ GenerationsOpt = Annotated[int | None, typer.Option(
 GASettingsOpt = Annotated[Path | None, typer.Option(
     "--ga-settings", metavar="FILE", help="ga: tuning settings, a TOML or JSON file "
     "(see docs/methods.md).")]
+ShowAllOpt = Annotated[bool, typer.Option(
+    "--all", help="List every job and node, not the first 30 jobs and 60 nodes.")]
 ForceOpt = Annotated[bool, typer.Option(
     "--force", help="exact: try batches above its size limit (300 jobs).")]
 DEFAULT_MODEL = "lognormal:0.3"
@@ -203,8 +205,9 @@ WeightsOpt = Annotated[str | None, typer.Option(
          "weighted completion, e.g. 1,10,0.01.")]
 WorkersOpt = Annotated[int | None, typer.Option(
     "--workers", metavar="N", help="Run the independent pieces (sample chunks, methods, ga "
-    "islands) on a local Dask cluster of N worker processes, started for this command and "
-    "closed afterwards (optional extra: pip install 'assignplan[distributed]').")]
+    "islands, sizing probes) on a local Dask cluster of N worker processes, started for "
+    "this command and closed afterwards (optional extra: pip install "
+    "'assignplan[distributed]').")]
 ClusterOpt = Annotated[str | None, typer.Option(
     "--cluster", metavar="ADDRESS", help="Run the independent pieces on the workers of a "
     "running Dask scheduler (e.g. tcp://10.1.2.3:8786, one started inside an allocation); "
@@ -239,8 +242,7 @@ def solve(
         metavar="FOLDER", help="Write jobs.csv, nodes.csv and summary.csv into this folder.")
     ] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
-    show_all: Annotated[bool, typer.Option("--all", help="List every job, not the first 30.")]
-    = False,
+    show_all: ShowAllOpt = False,
     report: Annotated[Path | None, typer.Option(
         metavar="REPORT.html", help="Also write the HTML report of the plan to this file.")
     ] = None,
@@ -401,8 +403,9 @@ def _write_outputs(expanded, inst, result, *, out: Path | None, csv: Path | None
     from assignplan.report import exports
 
     wrote = []
+    doc = to_plan_doc(inst, result) if out is not None or report is not None else None
     if out is not None:
-        exports.write_json(out, to_plan_doc(inst, result).model_dump(mode="json"))
+        exports.write_json(out, doc.model_dump(mode="json"))
         wrote.append(f"wrote {out}")
     if csv is not None:
         summary = metrics.summary(inst, result)
@@ -410,8 +413,7 @@ def _write_outputs(expanded, inst, result, *, out: Path | None, csv: Path | None
                                  metrics.job_frame(inst, result))
         wrote.append(f"wrote {csv}/jobs.csv, nodes.csv and summary.csv")
         wrote += _write_risk_csv(csv, inst, risk)
-    return wrote + _write_report(expanded, to_plan_doc(inst, result), inst, result, report,
-                                 png, risk)
+    return wrote + _write_report(expanded, doc, inst, result, report, png, risk)
 
 
 def _write_risk_csv(folder: Path, inst, risk) -> list[str]:

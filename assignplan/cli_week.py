@@ -14,15 +14,18 @@ from assignplan.cli import (
     BatchArg,
     BudgetOpt,
     ChangesOpt,
+    ClusterOpt,
     DownOpt,
     ForceOpt,
     GASettingsOpt,
     GenerationsOpt,
     PriorityOpt,
     SeedOpt,
+    ShowAllOpt,
     Steps,
     WeightsOpt,
     WithoutOpt,
+    WorkersOpt,
     _method_step,
     _print_outputs,
     _read_instance,
@@ -76,8 +79,7 @@ def replan(
     seed: SeedOpt = 0,
     budget: BudgetOpt = 30.0,
     as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON.")] = False,
-    show_all: Annotated[bool, typer.Option("--all", help="List every job, not the first 30.")]
-    = False,
+    show_all: ShowAllOpt = False,
     no_diff: Annotated[bool, typer.Option(
         "--no-diff", help="Do not print the differences against the old plan.")] = False,
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress display.")] = False,
@@ -259,14 +261,19 @@ def size(
         "--priority", metavar="ORDER", help="makespan (default), or due / weighted: the "
         "probes plan for it and a count must also meet every due time.")] = "makespan",
     weights: WeightsOpt = None,
+    workers: WorkersOpt = None,
+    cluster: ClusterOpt = None,
 ) -> None:
     """How many nodes of each group the batch needs to end by a deadline: counts ruled out
-    by the lower bound, counts confirmed by a plan (greedy, then a short ga run)."""
+    by the lower bound, counts confirmed by a plan (greedy, then a short ga run). With
+    --workers or --cluster each round probes as many counts at once as there are workers."""
+    from assignplan.dask_executor import check_options, open_executor
     from assignplan.files import all_or_nothing, check_output_file
     from assignplan.priority import parse_priority
 
     chosen = parse_priority(priority, weights)
     check_output_file(report, "--report")
+    check_options(workers, cluster)
     from assignplan.reading import calendar_hours, parse_batch_text, read_text
     from assignplan.sizing import CONFIRMED, size_batch, size_record
     from assignplan.units import clock, floor_minutes, number
@@ -289,8 +296,9 @@ def size(
         else:
             hours = value
     deadline = floor_minutes(hours * 60)  # a plan ends by the deadline: whole minutes
-    result = size_batch(doc, deadline, vary=tuple(vary or ()), seed=seed, budget=budget,
-                        probe_seconds=probe, priority=chosen)
+    with open_executor(workers, cluster) as executor:
+        result = size_batch(doc, deadline, vary=tuple(vary or ()), seed=seed, budget=budget,
+                            probe_seconds=probe, priority=chosen, executor=executor)
     record = size_record(result, origin)
     if report is not None:
         from assignplan.report.sizing import write_sizing_report

@@ -17,6 +17,11 @@ Result = TypeVar("Result")
 
 
 class Executor(Protocol):
+    @property
+    def workers(self) -> int:
+        """How many items can run at once (a caller may cut its work in that many)."""
+        ...
+
     def run(self, fn: Callable[[Item], Result],
             items: Sequence[Item]) -> Iterator[tuple[int, Result]]:
         """(index into items, fn(item)) for every item, as each finishes."""
@@ -25,6 +30,8 @@ class Executor(Protocol):
 
 class InProcess:
     """Every item in this process, in order (a compiled kernel may still use threads)."""
+
+    workers = 1
 
     def run(self, fn: Callable[[Item], Result],
             items: Sequence[Item]) -> Iterator[tuple[int, Result]]:

@@ -1,4 +1,5 @@
-"""Compiled kernels of the schedule builder (serial SGS) and of greedy list scheduling.
+"""Compiled kernels of the schedule builder (serial SGS) and the node profiles they share
+with list scheduling (`kernels_list`) and the runtime replays (`kernels_replay`).
 
 Plain arrays in, plain arrays out; `schedule.py` is the Python face. Each node keeps a step
 profile of free capacity: segment k of node i covers ``[seg_t[k], seg_t[k+1])`` (the last one
@@ -18,6 +19,8 @@ start, then the lowest node index.
 """
 
 from __future__ import annotations
+
+import types
 
 import numpy as np
 from numba import njit, prange
@@ -471,8 +474,19 @@ def _sgs_population(A, assign, order, rounds, reading, weights, start_out, fitne
 # Two compilations of the body: threads pay off for a population, but waking the pool costs
 # milliseconds on a busy machine (measured ~8 ms a call with 2 shared cores), more than a
 # single plan or a local-search batch takes to build; prange is a plain range in the serial one.
+def _renamed(fn, suffix: str):
+    """`fn`'s code under another name. numba's on-disk cache files a compilation under the
+    function's name, line and signature, not its `parallel` flag: two dispatchers of one
+    function share one entry, and the serial one could load the threaded code (measured: the
+    ga's small populations 4.7 ms a call instead of 0.03 ms on a busy machine)."""
+    twin = types.FunctionType(fn.__code__, fn.__globals__, fn.__name__ + suffix,
+                              fn.__defaults__, fn.__closure__)
+    twin.__qualname__ = fn.__qualname__ + suffix
+    return twin
+
+
 sgs_population = njit(cache=True, parallel=True)(_sgs_population)
-sgs_population_serial = njit(cache=True)(_sgs_population)
+sgs_population_serial = njit(cache=True)(_renamed(_sgs_population, "_serial"))
 
 
 @njit(cache=True)
@@ -497,95 +511,3 @@ def grow_slice(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i, need):
     seg_lo[i] = used
     seg_cap[i] = new_cap
     return seg_t, seg_f, used + new_cap
-
-
-@njit(cache=True)
-def greedy_list(A, order, job_class, class_ptr, class_nodes, assign, start):
-    """List scheduling: each job in `order` to the eligible node where it finishes earliest.
-
-    A: the instance's arrays; job_class/class_ptr/class_nodes: where each job may go (the
-    CSR of `instance.Eligibility`: A's own, or a narrower choice); only those nodes are
-    probed. Ties: earliest start, then lowest node index. Writes assign and start int64[J].
-    Per-node room is unknown up front, so slices start small and grow (see `grow_slice`).
-    Returns False if some job has no node or a predecessor comes later in `order`.
-    """
-    demand, capacity = A.demand, A.capacity
-    maint_ptr, maint_start, maint_end = A.maint_ptr, A.maint_start, A.maint_end
-    n_jobs = order.shape[0]
-    n_nodes = capacity.shape[0]
-    seg_cap = np.empty(n_nodes, np.int64)
-    seg_lo = np.empty(n_nodes, np.int64)
-    used = np.int64(0)
-    for i in range(n_nodes):
-        seg_cap[i] = node_slots(maint_ptr, A.res_ptr, i) + 8
-        seg_lo[i] = used
-        used += seg_cap[i]
-    seg_t = np.empty(2 * used + 2 * n_jobs, np.int64)
-    seg_f = np.empty((seg_t.shape[0], 3), np.int64)
-    seg_n = np.empty(n_nodes, np.int64)
-    for i in range(n_nodes):
-        init_node(i, seg_t, seg_f, seg_lo, seg_n, capacity, maint_ptr, maint_start, maint_end,
-                  A.res_ptr, A.res_start, A.res_end, A.res_demand)
-    end = np.full(n_jobs, -1, np.int64)
-    assign[:] = -1
-    start[:] = -1
-    for q in range(n_jobs):
-        j = order[q]
-        t0 = _ready_time(j, A.ready, end, A.pred_ptr, A.pred_idx)
-        if t0 < 0:
-            return False
-        d0 = demand[j, 0]
-        d1 = demand[j, 1]
-        d2 = demand[j, 2]
-        best_i = -1
-        best_s = np.int64(0)
-        best_k = -1
-        best_e = np.int64(0)
-        c = job_class[j]
-        for q in range(class_ptr[c], class_ptr[c + 1]):
-            i = class_nodes[q]
-            dur = duration_of(A, j, i)
-            latest = NO_DUE
-            if best_i >= 0:
-                # to win here the job must end before best_e (start by best_e - dur - 1),
-                # or at best_e from a start before best_s (s = best_e - dur < best_s)
-                latest = best_e - dur - 1 if best_e - dur >= best_s else best_e - dur
-                if latest < t0:
-                    continue
-            s, k = earliest_start_by(seg_t, seg_f, seg_lo[i], seg_n[i], t0, dur, d0, d1, d2,
-                                     latest)
-            if s < 0:
-                continue
-            e = s + dur
-            if best_i < 0 or e < best_e or (e == best_e and s < best_s):
-                best_i = i
-                best_s = s
-                best_k = k
-                best_e = e
-        if best_i < 0:
-            return False
-        i = best_i
-        if seg_n[i] + 2 > seg_cap[i]:
-            seg_t, seg_f, used = grow_slice(seg_t, seg_f, seg_lo, seg_cap, seg_n, used, i,
-                                       seg_n[i] + 2)
-        dur = duration_of(A, j, i)
-        seg_n[i] = place(seg_t, seg_f, seg_lo[i], seg_n[i], best_k, best_s, dur, d0, d1, d2)
-        assign[j] = i
-        start[j] = best_s
-        end[j] = best_e
-    return True
-
-
-@njit(cache=True, parallel=True)
-def greedy_list_pair(A1, order1, A2, order2, job_class, class_ptr, class_nodes, assign, start,
-                     ok):
-    """Two `greedy_list` runs side by side on two threads: (A1, order1) into assign[0],
-    start[0] and (A2, order2) into row 1 (A2 may be another view of the batch, e.g. the
-    mirrored one, with the same eligibility). ok[k]: `greedy_list`'s answer for run k."""
-    for k in prange(2):
-        if k == 0:
-            ok[0] = greedy_list(A1, order1, job_class, class_ptr, class_nodes, assign[0],
-                                start[0])
-        else:
-            ok[1] = greedy_list(A2, order2, job_class, class_ptr, class_nodes, assign[1],
-                                start[1])

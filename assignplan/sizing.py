@@ -32,6 +32,7 @@ from dataclasses import dataclass, field
 
 from assignplan.documents import Batch
 from assignplan.errors import InputError
+from assignplan.executor import Executor, InProcess
 from assignplan.expand import expand_batch
 from assignplan.instance import NO_DUE, build_instance
 from assignplan.priority import DEFAULT, Priority
@@ -86,17 +87,19 @@ class SizeResult:
         return float(sum(c * k for c, k in zip(self.cost, counts, strict=True)))
 
 
-class _Prober:
-    def __init__(self, doc: Batch, deadline: int, *, seed: int, probe_seconds: float,
-                 stop_at: float, priority: Priority = DEFAULT):
-        self.doc, self.deadline, self.priority = doc, deadline, priority
-        self.late_bounds: dict[tuple[int, ...], float] = {}
-        self.seed, self.probe_seconds, self.stop_at = seed, probe_seconds, stop_at
-        self.cache: dict[tuple[int, ...], Probe] = {}
-        self.bounds: dict[tuple[int, ...], int | None] = {}
-        self.order: list[Probe] = []
+@dataclass(frozen=True)
+class ProbeWork:
+    """One probe's work as an executor task (`executor.Executor`): an item (counts, ga
+    seconds) gives (bound, tardiness bound, greedy, ga, verdict); ga seconds None: the bound
+    only (greedy, ga and verdict None unless the bound rules the counts out). Picklable, so
+    probes can run on other processes or machines; each builds its own instance."""
 
-    def _instance(self, counts: tuple[int, ...]):
+    doc: Batch
+    deadline: int
+    seed: int
+    priority: Priority = DEFAULT
+
+    def instance(self, counts: tuple[int, ...]):
         groups = [g.model_copy(update={"count": c}) for g, c in zip(self.doc.nodes, counts,
                                                                    strict=True) if c > 0]
         if not groups:
@@ -106,18 +109,6 @@ class _Prober:
         except InputError:  # some job lost every node that could hold it
             return None
 
-    def bound(self, counts: tuple[int, ...]) -> int | None:
-        """The makespan bound at `counts` (None: no node can hold some job)."""
-        if counts not in self.bounds:
-            from assignplan.bounds import lower_bound
-
-            inst = self._instance(counts)
-            found = None if inst is None else lower_bound(
-                inst, deadline=time.perf_counter() + 10.0)
-            self.bounds[counts] = None if found is None else found.value
-            self.late_bounds[counts] = 0.0 if found is None else found.tardiness
-        return self.bounds[counts]
-
     def in_time(self, inst, plan) -> bool:
         """Whether `plan` ends by the deadline (and, unless the makespan comes first,
         meets every due time)."""
@@ -126,49 +117,99 @@ class _Prober:
         return self.priority.name == "makespan" or not bool(
             ((inst.due != NO_DUE) & (plan.end > inst.due)).any())
 
-    def out_of_time(self) -> bool:
-        return time.perf_counter() >= self.stop_at
-
-    def probe(self, counts: tuple[int, ...]) -> Probe:
-        if counts in self.cache:
-            return self.cache[counts]
+    def __call__(self, item: tuple[tuple[int, ...], float | None]):
+        from assignplan.bounds import lower_bound
         from assignplan.methods.ga import GASettings, solve_ga
         from assignplan.solve import solve
 
-        bound = self.bound(counts)
-        greedy = ga = None
-        if bound is None:
-            verdict = NO_NODE
-        elif bound > self.deadline or (self.priority.name != "makespan"
-                                       and self.late_bounds[counts] > 0):
-            verdict = RULED_OUT
-        else:
-            inst = self._instance(counts)
-            plan = solve(inst, "greedy", priority=self.priority)
-            greedy = plan.makespan
+        counts, ga_seconds = item
+        inst = self.instance(counts)
+        if inst is None:
+            return None, 0.0, None, None, NO_NODE
+        found = lower_bound(inst, deadline=time.perf_counter() + 10.0)
+        if found.value > self.deadline or (self.priority.name != "makespan"
+                                           and found.tardiness > 0):
+            return found.value, found.tardiness, None, None, RULED_OUT
+        if ga_seconds is None:
+            return found.value, found.tardiness, None, None, None
+        plan = solve(inst, "greedy", priority=self.priority, bound=found)
+        greedy, ga = plan.makespan, None
+        verdict = CONFIRMED if self.in_time(inst, plan) else OPEN
+        if verdict == OPEN and ga_seconds > 0:
+            # the deadline as the ga's stopping target (it stops at the bound it is given),
+            # and no completion phase: a probe asks about the makespan alone
+            settings = GASettings().replace(completion={"completion_share": 0.0})
+            plan = solve_ga(inst, settings=settings, lower_bound=self.deadline, seed=self.seed,
+                            budget=ga_seconds, priority=self.priority, term_bounds=(0.0, 0.0))
+            ga = plan.makespan
             verdict = CONFIRMED if self.in_time(inst, plan) else OPEN
-            if verdict == OPEN and not self.out_of_time():
-                seconds = min(self.probe_seconds, max(0.1, self.stop_at - time.perf_counter()))
-                # the deadline as the ga's stopping target (it stops at the bound it is
-                # given), and no completion phase: a probe asks about the makespan alone
-                settings = GASettings().replace(completion={"completion_share": 0.0})
-                plan = solve_ga(inst, settings=settings, lower_bound=self.deadline,
-                                seed=self.seed, budget=seconds, priority=self.priority,
-                                term_bounds=(0.0, 0.0))
-                ga = plan.makespan
-                verdict = CONFIRMED if self.in_time(inst, plan) else OPEN
-        out = Probe(counts, bound, greedy, ga, verdict)
-        self.cache[counts] = out
-        self.order.append(out)
+        return found.value, found.tardiness, greedy, ga, verdict
+
+
+class _Prober:
+    """Probes run in rounds of up to `width` at once on the executor (one after the other
+    in this process by default), each count vector at most once, recorded in the order asked."""
+
+    def __init__(self, doc: Batch, deadline: int, *, seed: int, probe_seconds: float,
+                 stop_at: float, priority: Priority = DEFAULT, executor: Executor | None = None):
+        self.work = ProbeWork(doc, deadline, seed, priority)
+        self.deadline, self.priority = deadline, priority
+        self.probe_seconds, self.stop_at = probe_seconds, stop_at
+        self.executor = executor or InProcess()
+        self.width = max(1, self.executor.workers)
+        self.cache: dict[tuple[int, ...], Probe] = {}
+        self.bounds: dict[tuple[int, ...], int | None] = {}
+        self.order: list[Probe] = []
+
+    def _run(self, many: list[tuple[int, ...]], ga_seconds: float | None) -> dict:
+        todo = list(dict.fromkeys(c for c in many if c not in self.cache and (
+            ga_seconds is not None or c not in self.bounds)))
+        got = dict(self.executor.run(self.work, [(c, ga_seconds) for c in todo]))
+        out = {}
+        for k, counts in enumerate(todo):
+            bound, _late, greedy, ga, verdict = got[k]
+            self.bounds[counts] = bound
+            out[counts] = (bound, greedy, ga, verdict)
         return out
+
+    def bounds_of(self, many: list[tuple[int, ...]]) -> list[int | None]:
+        """The makespan bound of each count vector (None: no node can hold some job); those
+        the bound rules out are recorded as probes (they plan nothing)."""
+        for counts, (bound, _g, _ga, verdict) in self._run(many, None).items():
+            if verdict is not None:
+                self._record(Probe(counts, bound, None, None, verdict))
+        return [self.bounds[c] for c in many]
+
+    def bound(self, counts: tuple[int, ...]) -> int | None:
+        return self.bounds_of([counts])[0]
+
+    def probes_of(self, many: list[tuple[int, ...]]) -> list[Probe]:
+        """Each count vector's probe: the bound, then greedy, then (time left) a short ga."""
+        left = self.stop_at - time.perf_counter()
+        ga_seconds = 0.0 if left <= 0 else min(self.probe_seconds, max(0.1, left))
+        for counts, (bound, greedy, ga, verdict) in self._run(many, ga_seconds).items():
+            self._record(Probe(counts, bound, greedy, ga, verdict))
+        return [self.cache[c] for c in many]
+
+    def probe(self, counts: tuple[int, ...]) -> Probe:
+        return self.probes_of([counts])[0]
+
+    def _record(self, probe: Probe) -> None:
+        if probe.counts not in self.cache:
+            self.cache[probe.counts] = probe
+            self.order.append(probe)
+
+    def out_of_time(self) -> bool:
+        return time.perf_counter() >= self.stop_at
 
 
 def size_batch(doc: Batch, deadline: int, *, vary: tuple[str, ...] = (), seed: int = 0,
                budget: float = 60.0, probe_seconds: float = 3.0,
-               priority: Priority = DEFAULT) -> SizeResult:
+               priority: Priority = DEFAULT, executor: Executor | None = None) -> SizeResult:
     """Size the node groups `vary` (all by default) of `doc` for a makespan of at most
     `deadline` minutes within about `budget` seconds (see the module docstring; with another
-    `priority`, every due time met as well)."""
+    `priority`, every due time met as well). With an `executor` of W workers each round of
+    the search probes W count vectors at once (a W+1-ary search instead of bisection)."""
     names = tuple(g.name for g in doc.nodes)
     unknown = [v for v in vary if v not in names]
     if unknown:
@@ -179,15 +220,17 @@ def size_batch(doc: Batch, deadline: int, *, vary: tuple[str, ...] = (), seed: i
     cost = tuple(float(c or 0.0) for c in costs) if any(c is not None for c in costs) else None
     current = tuple(g.count for g in doc.nodes)
     prober = _Prober(doc, deadline, seed=seed, probe_seconds=probe_seconds,
-                     stop_at=time.perf_counter() + budget, priority=priority)
+                     stop_at=time.perf_counter() + budget, priority=priority, executor=executor)
     out = SizeResult(names, varied, current, None, deadline, cost=cost)
     index = {n: k for k, n in enumerate(names)}
     best = None
-    for factor in (1.0, *GROWTH):
-        counts = tuple(math.ceil(c * factor) if n in varied else c
-                       for n, c in zip(names, current, strict=True))
-        if prober.probe(counts).confirmed:
-            best = counts
+    grown = [tuple(math.ceil(c * factor) if n in varied else c
+                   for n, c in zip(names, current, strict=True)) for factor in (1.0, *GROWTH)]
+    for at in range(0, len(grown), prober.width):
+        confirmed = [p.counts for p in prober.probes_of(grown[at:at + prober.width])
+                     if p.confirmed]
+        if confirmed:
+            best = confirmed[0]
             break
         if prober.out_of_time():
             break
@@ -210,31 +253,41 @@ def _with(counts: tuple[int, ...], k: int, n: int) -> tuple[int, ...]:
     return counts[:k] + (n,) + counts[k + 1:]
 
 
+def _first_passing(lo: int, hi: int, passing, width: int, *, stop=lambda: False) -> int:
+    """The smallest n in [lo, hi] with passing(n), taking passing(hi) as true and passing as
+    monotone (false, then true): each round asks `passing` (a list in, a list of bools out)
+    about `width` points spread over [lo, hi) at once; width 1 is bisection."""
+    while lo < hi and not stop():
+        points = sorted({lo + (hi - lo) * (m + 1) // (width + 1) for m in range(width)})
+        answers = passing(points)
+        first = next((m for m, ok in enumerate(answers) if ok), None)
+        if first is None:
+            lo = points[-1] + 1
+        else:
+            lo, hi = (lo if first == 0 else points[first - 1] + 1), points[first]
+    return hi
+
+
 def _bound_min(prober: _Prober, out: SizeResult, counts: tuple[int, ...], k: int) -> int:
     """The smallest count of group k (others at `counts`) the bound does not rule out."""
     name, top = out.groups[k], counts[k]
 
-    def ruled_out(n: int) -> bool:
-        bound = prober.bound(_with(counts, k, n))
-        if bound is None or bound > out.deadline:
-            prober.probe(_with(counts, k, n))  # recorded for the table; plans nothing
-            return True
-        return False
+    def allowed(ns: list[int]) -> list[bool]:
+        bounds = prober.bounds_of([_with(counts, k, n) for n in ns])
+        return [b is not None and b <= out.deadline for b in bounds]
 
     if top <= LINEAR_SCAN:
         n = 0
-        while n < top and ruled_out(n):
-            n += 1
+        while n < top:
+            batch = list(range(n, min(n + prober.width, top)))
+            answers = allowed(batch)
+            if any(answers):
+                n = batch[answers.index(True)]
+                break
+            n = batch[-1] + 1
         out.bisected[name] = False
     else:
-        lo, hi = 0, top  # ruled_out(top) is False when called from _shrink
-        while lo < hi:
-            mid = (lo + hi) // 2
-            if ruled_out(mid):
-                lo = mid + 1
-            else:
-                hi = mid
-        n = lo
+        n = _first_passing(0, top, allowed, prober.width)  # allowed(top) when from _shrink
         out.bisected[name] = True
     out.bound_min[name] = n
     return n
@@ -242,16 +295,14 @@ def _bound_min(prober: _Prober, out: SizeResult, counts: tuple[int, ...], k: int
 
 def _shrink(prober: _Prober, out: SizeResult, best: tuple[int, ...], k: int
             ) -> tuple[int, ...]:
-    """Bisection for the smallest count of group k a plan confirms, the others at `best`."""
+    """Search for the smallest count of group k a plan confirms, the others at `best`."""
     lo = _bound_min(prober, out, best, k)
-    hi = best[k]
-    while lo < hi and not prober.out_of_time():
-        mid = (lo + hi) // 2
-        if prober.probe(_with(best, k, mid)).confirmed:
-            hi = mid
-        else:
-            lo = mid + 1
-    return _with(best, k, hi)
+
+    def confirmed(ns: list[int]) -> list[bool]:
+        return [p.confirmed for p in prober.probes_of([_with(best, k, n) for n in ns])]
+
+    return _with(best, k, _first_passing(lo, best[k], confirmed, prober.width,
+                                         stop=prober.out_of_time))
 
 
 def size_record(result: SizeResult, window_start) -> dict:

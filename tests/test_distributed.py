@@ -27,6 +27,7 @@ from assignplan.expand import load_batch
 from assignplan.instance import build_instance
 from assignplan.methods.ga import ga_settings
 from assignplan.plan import to_plan_doc
+from assignplan.published import graham_lpt_family, pcmax_batch
 from assignplan.reading import load_plan
 from assignplan.report.tables import compare_table
 from assignplan.risk.models import parse_model
@@ -267,3 +268,32 @@ def test_compare_refuses_an_empty_folder_and_one_plan_of_several(tmp_path, extra
     result = runner.invoke(app, ["compare", str(SMALL), *second, *extra])
     assert result.exit_code == 2 and result.stderr.splitlines() == [
         fragment if extra else f"{empty}: {fragment}"]
+
+
+def test_solve_with_risk_on_workers_gives_the_in_process_figures(executor):
+    args = ["solve", str(SMALL), "--method", "greedy", "--risk", "--json", "--seed", "5"]
+    here = runner.invoke(app, args)
+    there = runner.invoke(app, [*args, "--cluster", executor.client.scheduler.address])
+    assert here.exit_code == 0 and there.exit_code == 0, here.output + there.output
+    risk_here, risk_there = (json.loads(r.stdout)["risk"] for r in (here, there))
+    assert risk_here.pop("seconds") >= 0 and risk_there.pop("seconds") >= 0
+    assert risk_here == risk_there and risk_here["samples"] == 1_000
+
+
+def test_size_on_workers_probes_a_round_at_once_and_finds_the_same_counts(executor, tmp_path):
+    # Graham's LPT family, m = 4 (SIAM J. Appl. Math. 17(2), 1969): optimum 12 on 4 machines,
+    # on two identical groups of four; fewer than four machines in all cannot end by 12 h
+    doc = pcmax_batch(list(graham_lpt_family(4)), 4)
+    machine = doc["nodes"][0]
+    doc["nodes"] = [{**machine, "name": "a"}, {**machine, "name": "b"}]
+    path = tmp_path / "batch.json"
+    path.write_text(json.dumps(doc))
+    args = ["size", str(path), "--within", "12", "--json", "--budget", "60", "--probe", "2"]
+    here = runner.invoke(app, args)
+    there = runner.invoke(app, [*args, "--cluster", executor.client.scheduler.address])
+    assert here.exit_code == 0 and there.exit_code == 0, here.output + there.output
+    one, two = json.loads(here.stdout), json.loads(there.stdout)
+    assert one["found"] == two["found"] and one["bound_minimum"] == two["bound_minimum"]
+    assert sum(two["found"].values()) == 4
+    # on two workers each round probes two counts: never fewer probes than one at a time
+    assert len(two["probes"]) >= len(one["probes"])

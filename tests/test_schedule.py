@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from assignplan import schedule
+from assignplan import kernels, schedule
 from assignplan.check import check_plan
 from assignplan.methods.greedy import greedy_assign
 from assignplan.plan import objective, to_plan_doc
@@ -367,3 +367,14 @@ def test_many_jobs_one_node_matches_twin():
     for order in (inst.order, rng.permutation(inst.n_jobs)):
         s = starts(d, order=order)
         assert np.all(s >= inst.ready)
+
+
+def test_the_serial_and_threaded_builders_keep_separate_compiler_cache_entries():
+    # numba files a cached compilation under the function's name, line and signature, not
+    # its parallel flag: with one shared entry the serial builder could load the threaded code
+    # and pay a thread-pool wake-up on every small call
+    paths = {k._cache._cache_file._index_path
+             for k in (kernels.sgs_population, kernels.sgs_population_serial)}
+    assert len(paths) == 2
+    assert not kernels.sgs_population_serial.targetoptions.get("parallel")
+    assert kernels.sgs_population.targetoptions.get("parallel")

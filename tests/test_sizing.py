@@ -5,15 +5,19 @@ out (the output says by what)."""
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from typer.testing import CliRunner
 
 from assignplan.cli import app
+from assignplan.executor import InProcess
 from assignplan.published import graham_lpt_family, pcmax_batch, read_optima, read_pcmax
 from assignplan.reading import parse_batch_text
-from assignplan.sizing import CONFIRMED, OPEN, RULED_OUT, size_batch
+from assignplan.sizing import CONFIRMED, OPEN, RULED_OUT, _first_passing, size_batch
 
 DATA = Path(__file__).resolve().parent / "data" / "published"
 runner = CliRunner()
@@ -109,3 +113,42 @@ def test_size_report_page_has_the_chart_and_every_probe(tmp_path):
         "size", str(_two_groups(tmp_path, None)), "--within", "12", "--vary", "cheap",
         "--json", "--budget", "30", "--probe", "2"]).stdout)["probes"])
     assert "confirmed by a plan" in html and "ruled out by the bound" in html
+
+
+class SeveralAtOnce(InProcess):
+    """An in-process executor that says it has three workers: the sizing search then probes
+    three counts a round (a 4-ary search), as it would on a cluster of three."""
+
+    workers = 3
+
+
+@pytest.mark.parametrize("m", [3, 6])
+def test_probing_several_counts_a_round_finds_the_same_counts(m):
+    # Graham's family again (SIAM J. Appl. Math. 17(2), 1969): optimum 3m on m machines
+    doc = parse_batch_text(json.dumps(pcmax_batch(list(graham_lpt_family(m)), m)))
+    one = size_batch(doc, 3 * m * 60, budget=30.0, probe_seconds=2.0)
+    three = size_batch(doc, 3 * m * 60, budget=30.0, probe_seconds=2.0,
+                       executor=SeveralAtOnce())
+    assert three.found == one.found == (m,)
+    assert three.bound_min == one.bound_min
+    # every probe of the wider search agrees with the optimum: m machines and more are
+    # confirmed, fewer are never confirmed
+    for p in three.probes:
+        assert (p.verdict == CONFIRMED) == (p.counts[0] >= m), p
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.integers(0, 300), st.integers(0, 300), st.integers(1, 6))
+def test_the_search_of_several_points_a_round_finds_the_first_passing_count(lo, span, width):
+    hi = lo + span
+    first = lo + span // 3  # monotone: false below it, true from it
+    asked = []
+
+    def passing(points):
+        assert len(points) <= width and all(lo <= p < hi for p in points)
+        asked.append(points)
+        return [p >= first for p in points]
+
+    assert _first_passing(lo, hi, passing, width) == first
+    # a round cuts the interval to at most 1/(width + 1) of it, plus one
+    assert len(asked) <= max(1, 2 + math.ceil(math.log(span + 1, width + 1)))

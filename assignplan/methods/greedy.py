@@ -17,7 +17,7 @@ import time
 
 import numpy as np
 
-from assignplan import kernels
+from assignplan import kernels, kernels_list
 from assignplan.errors import SolveError
 from assignplan.instance import Eligibility, Instance, priority_order
 from assignplan.methods.orders import (
@@ -44,7 +44,8 @@ def greedy_assign(inst: Instance, order: np.ndarray | None = None,
     assign = np.empty(inst.n_jobs, dtype=np.int64)
     start = np.empty(inst.n_jobs, dtype=np.int64)
     e = inst.elig if eligible is None else eligible
-    ok = kernels.greedy_list(inst.arrays, order, e.job_class, e.ptr, e.nodes, assign, start)
+    ok = kernels_list.greedy_list(inst.arrays, order, e.job_class, e.ptr, e.nodes, assign,
+                                  start)
     if not ok:  # cannot happen for a checked batch: every job has an eligible node
         raise SolveError("greedy: a job has no node that can hold it")
     return assign, start
@@ -60,8 +61,8 @@ def greedy_assign_pair(first: tuple[Instance, np.ndarray], second: tuple[Instanc
     start = np.empty((2, a.n_jobs), dtype=np.int64)
     ok = np.zeros(2, dtype=np.bool_)
     e = a.elig
-    kernels.greedy_list_pair(a.arrays, order_a, b.arrays, order_b, e.job_class, e.ptr, e.nodes,
-                             assign, start, ok)
+    kernels_list.greedy_list_pair(a.arrays, order_a, b.arrays, order_b, e.job_class, e.ptr,
+                                  e.nodes, assign, start, ok)
     if not ok.all():  # cannot happen for a checked batch: every job has an eligible node
         raise SolveError("greedy: a job has no node that can hold it")
     return (assign[0], start[0]), (assign[1], start[1])

@@ -73,14 +73,22 @@ def _time_text(s: dict) -> str:
     return text + (f", seed {s['seed']}" if s["seed"] is not None else "")
 
 
-def node_table(nodes: pd.DataFrame) -> Table:
-    """Per-node load: how much each node does and how full it gets."""
-    t = Table(title="Nodes (utilisation over the makespan)", title_justify="left")
+NODE_ROWS = 60  # a site's thousands of nodes are the CSV's to list (and --all's)
+
+
+def node_table(nodes: pd.DataFrame, limit: int | None = NODE_ROWS) -> Table:
+    """Per-node load: how much each node does and how full it gets; the first `limit` nodes
+    in inventory order unless limit is None."""
+    shown = nodes if limit is None else nodes.head(limit)
+    title = "Nodes (utilisation over the makespan)" + (
+        "" if len(shown) == len(nodes) else
+        f"; first {len(shown)} of {len(nodes):,} in inventory order, --all shows every node")
+    t = Table(title=title, title_justify="left")
     for col, justify in [("node", "left"), ("jobs", "right"), ("core-h", "right"),
                          ("core util", "right"), ("peak cores", "right"),
                          ("peak GiB", "right"), ("GPU util", "right"), ("busy until", "left")]:
         t.add_column(col, justify=justify)
-    for r in nodes.itertuples(index=False):
+    for r in shown.itertuples(index=False):
         t.add_row(
             r.node, f"{r.jobs:,}", number(r.core_hours, 1), number(r.core_utilisation_pct, 1, " %"),
             f"{r.peak_cores}/{r.cores}", f"{r.peak_memory_gib:g}/{r.memory_gib:g}",
@@ -120,7 +128,7 @@ def print_plan(console: Console, s: dict, nodes: pd.DataFrame, jobs: pd.DataFram
                *, show_all: bool) -> None:
     """The summary, per-node and per-job tables."""
     console.print(summary_table(s))
-    console.print(node_table(nodes))
+    console.print(node_table(nodes, None if show_all else NODE_ROWS))
     console.print(job_table(jobs, None if show_all else 30))
 
 
