@@ -12,7 +12,13 @@ from typing import Annotated
 
 import typer
 from rich.console import Console
-from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.progress import (
+    BarColumn,
+    MofNCompleteColumn,
+    Progress,
+    TextColumn,
+    TimeElapsedColumn,
+)
 
 from assignplan import __version__
 from assignplan.documents import HistoryRow
@@ -190,6 +196,23 @@ class Steps:
                 gap = 100 * (row.best_makespan_h - bound_h) / bound_h if bound_h > 0 else 0.0
                 progress.update(task, completed=row.generation,
                                 best=f"{row.best_makespan_h:.2f} h", gap=f"{gap:.2f} %")
+
+            yield tick
+
+    @contextmanager
+    def tasks(self, total: int, what: str):
+        """A bar of `total` pieces of work, advanced as each finishes: the hook takes a few
+        words on the piece just done (yields None when silent)."""
+        if not self.enabled:
+            yield None
+            return
+        columns = (TextColumn(what), BarColumn(), MofNCompleteColumn(),
+                   TextColumn("{task.fields[last]}"), TimeElapsedColumn())
+        with Progress(*columns, console=self.console, transient=True) as progress:
+            task = progress.add_task(what, total=total, last="")
+
+            def tick(text: str) -> None:
+                progress.update(task, advance=1, last=text)
 
             yield tick
 
@@ -524,8 +547,11 @@ def compare(
     from assignplan.solve import METHODS
 
     with open_executor(workers, cluster) as executor:
-        rows = compare_batches(instances, tuple(METHODS), seed=seed, budget=budget,
-                               executor=executor, priority=chosen)
+        with Steps(not as_json).tasks(len(files) * len(METHODS), "compare") as tick:
+            rows = compare_batches(
+                instances, tuple(METHODS), seed=seed, budget=budget, executor=executor,
+                priority=chosen, on_done=None if tick is None else lambda task, row: tick(
+                    f"{files[task.batch].name} {task.method}: {row.status}"))
     records = []
     for path, inst, batch_rows in zip(files, instances, rows, strict=True):
         named = compare_records(inst, batch_rows)

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -80,10 +80,13 @@ class RunMethod:
 
 def compare_batches(instances: Sequence[Instance], methods: tuple[str, ...], *, seed: int,
                     budget: float, executor: Executor | None = None,
-                    priority: Priority = DEFAULT) -> list[list[CompareRow]]:
+                    priority: Priority = DEFAULT,
+                    on_done: Callable[[MethodTask, CompareRow], None] | None = None
+                    ) -> list[list[CompareRow]]:
     """`compare_methods` on every batch, each bound and then each (batch, method) pair one
     task on `executor` (default: one after the other here), every method with `budget`
-    seconds and `priority`; the rows of each batch in the order of `methods`."""
+    seconds and `priority`; the rows of each batch in the order of `methods`. `on_done` hears
+    of each (batch, method) task as it finishes (a progress bar)."""
     executor = executor or InProcess()
     instances = tuple(instances)
     bounds: list = [None] * len(instances)
@@ -94,6 +97,8 @@ def compare_batches(instances: Sequence[Instance], methods: tuple[str, ...], *, 
     for k, row in executor.run(RunMethod(instances, tuple(bounds), seed, budget,
                                               priority), tasks):
         rows[tasks[k].batch][methods.index(tasks[k].method)] = row
+        if on_done is not None:
+            on_done(tasks[k], row)
     return [[row for row in batch if row is not None] for batch in rows]
 
 

@@ -110,9 +110,14 @@ class DaskExecutor:
                 k = index[future.key]
                 if future.status != "finished":
                     raise _failure(k, items, future.exception())
-                yield k, future.result()
+                result = future.result()
+                # the last reference to a gathered result goes, so its worker can drop it
+                # now instead of holding every piece's result until the run ends
+                futures[k] = None
+                del future
+                yield k, result
         finally:
-            self.client.cancel(futures)
+            self.client.cancel([f for f in futures if f is not None])
 
 
 def _failure(k: int, items: Sequence[Any], err: BaseException) -> AssignplanError:

@@ -168,6 +168,28 @@ def test_progress_steps_show_on_a_terminal():
     assert not Steps(False).enabled
 
 
+def test_compare_reports_each_method_as_it_finishes_to_a_progress_bar():
+    from assignplan.compare import compare_batches
+    from assignplan.instance import build_instance
+
+    inst = build_instance(load_batch(SMALL))
+    steps = Steps(True)
+    buffer = io.StringIO()
+    steps.console = Console(file=buffer, force_terminal=True, width=100)
+    steps.enabled = True
+    heard = []
+    with steps.tasks(4, "compare") as tick:
+        def done(task, row):
+            heard.append((task.batch, task.method, row.status))
+            tick(f"{task.method}: {row.status}")
+
+        rows = compare_batches([inst, inst], ("greedy", "exact"), seed=0, budget=5.0,
+                               on_done=done)
+    assert sorted(heard) == sorted((b, r.method, r.status)
+                                   for b, batch in enumerate(rows) for r in batch)
+    assert len(heard) == 4 and "compare" in buffer.getvalue() and "4/4" in buffer.getvalue()
+
+
 def test_runs_where_the_package_folder_cannot_hold_the_compiler_cache(tmp_path):
     """A copy of the package whose cache folders cannot be created (a file stands where
     each __pycache__ would go) and no usable home: numba's own fallbacks all fail, yet
