@@ -90,7 +90,7 @@ class SizeResult:
 @dataclass(frozen=True)
 class ProbeWork:
     """One probe's work as an executor task (`executor.Executor`): an item (counts, ga
-    seconds) gives (bound, tardiness bound, greedy, ga, verdict); ga seconds None: the bound
+    seconds) gives (bound, greedy, ga, verdict); ga seconds None: the bound
     only (greedy, ga and verdict None unless the bound rules the counts out). Picklable, so
     probes can run on other processes or machines; each builds its own instance."""
 
@@ -125,13 +125,13 @@ class ProbeWork:
         counts, ga_seconds = item
         inst = self.instance(counts)
         if inst is None:
-            return None, 0.0, None, None, NO_NODE
+            return None, None, None, NO_NODE
         found = lower_bound(inst, deadline=time.perf_counter() + 10.0)
         if found.value > self.deadline or (self.priority.name != "makespan"
                                            and found.tardiness > 0):
-            return found.value, found.tardiness, None, None, RULED_OUT
+            return found.value, None, None, RULED_OUT
         if ga_seconds is None:
-            return found.value, found.tardiness, None, None, None
+            return found.value, None, None, None
         plan = solve(inst, "greedy", priority=self.priority, bound=found)
         greedy, ga = plan.makespan, None
         verdict = CONFIRMED if self.in_time(inst, plan) else OPEN
@@ -143,7 +143,7 @@ class ProbeWork:
                             budget=ga_seconds, priority=self.priority, term_bounds=(0.0, 0.0))
             ga = plan.makespan
             verdict = CONFIRMED if self.in_time(inst, plan) else OPEN
-        return found.value, found.tardiness, greedy, ga, verdict
+        return found.value, greedy, ga, verdict
 
 
 class _Prober:
@@ -153,7 +153,6 @@ class _Prober:
     def __init__(self, doc: Batch, deadline: int, *, seed: int, probe_seconds: float,
                  stop_at: float, priority: Priority = DEFAULT, executor: Executor | None = None):
         self.work = ProbeWork(doc, deadline, seed, priority)
-        self.deadline, self.priority = deadline, priority
         self.probe_seconds, self.stop_at = probe_seconds, stop_at
         self.executor = executor or InProcess()
         self.width = max(1, self.executor.workers)
@@ -165,12 +164,9 @@ class _Prober:
         todo = list(dict.fromkeys(c for c in many if c not in self.cache and (
             ga_seconds is not None or c not in self.bounds)))
         got = dict(self.executor.run(self.work, [(c, ga_seconds) for c in todo]))
-        out = {}
         for k, counts in enumerate(todo):
-            bound, _late, greedy, ga, verdict = got[k]
-            self.bounds[counts] = bound
-            out[counts] = (bound, greedy, ga, verdict)
-        return out
+            self.bounds[counts] = got[k][0]
+        return {counts: got[k] for k, counts in enumerate(todo)}
 
     def bounds_of(self, many: list[tuple[int, ...]]) -> list[int | None]:
         """The makespan bound of each count vector (None: no node can hold some job); those
